@@ -1,0 +1,140 @@
+"""Time-index handling: frequency detection, seasonal codes and future dates."""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+import pandas as pd
+from pandas.tseries import offsets
+
+from ._types import IntArray
+from .errors import SpecificationError, TimeIndexError
+
+__all__ = ["Calendar", "calendar_from_index", "plain_calendar"]
+
+_WEEKDAYS = ("Mon", "Tue", "Wed", "Thu", "Fri", "Sat", "Sun")
+
+
+@dataclass(frozen=True)
+class Calendar:
+    """Where the rows sit in time.
+
+    ``index`` is None for plain arrays; then rows are numbered and ``period`` (if given)
+    defines the seasonal cycle.
+    """
+
+    index: pd.DatetimeIndex | None
+    freq: str | None
+    kind: str  # "monthly", "quarterly", "weekly", "daily", "other" or "plain"
+    period: int | None = None
+
+    def __len__(self) -> int:
+        return 0 if self.index is None else len(self.index)
+
+    def drop_first(self, count: int) -> Calendar:
+        """The same calendar without its first ``count`` rows."""
+        if self.index is None or count == 0:
+            return self
+        return Calendar(self.index[count:], self.freq, self.kind, self.period)
+
+    def future(self, horizon: int) -> pd.DatetimeIndex | None:
+        """The ``horizon`` dates after the last row (None for plain arrays)."""
+        if self.index is None:
+            return None
+        return pd.date_range(self.index[-1], periods=horizon + 1, freq=self.freq)[1:]
+
+    def season_labels(self) -> tuple[str, ...]:
+        """Labels of the seasonal dummies (the first season is the baseline)."""
+        if self.kind in ("monthly", "weekly"):
+            return tuple(f"month={m}" for m in range(2, 13))
+        if self.kind == "quarterly":
+            return tuple(f"quarter={q}" for q in range(2, 5))
+        if self.kind == "daily":
+            return tuple(f"weekday={d}" for d in _WEEKDAYS[1:])
+        if self.kind == "plain" and self.period is not None:
+            return tuple(f"season={s}" for s in range(2, self.period + 1))
+        raise SpecificationError(
+            f"seasonal dummies need monthly, quarterly, weekly or daily dates, or a "
+            f"'period' for plain arrays; this data is {self.kind!r}"
+        )
+
+    def season_codes(self, rows: IntArray, dates: pd.DatetimeIndex | None) -> IntArray:
+        """Season number (0-based) of each row; ``rows`` are positions from the first row."""
+        if self.kind in ("monthly", "weekly"):
+            assert dates is not None
+            return np.asarray(dates.month, dtype=np.int64) - 1
+        if self.kind == "quarterly":
+            assert dates is not None
+            return np.asarray(dates.quarter, dtype=np.int64) - 1
+        if self.kind == "daily":
+            assert dates is not None
+            return np.asarray(dates.dayofweek, dtype=np.int64)
+        self.season_labels()  # raises for kinds without seasons
+        assert self.period is not None
+        return np.asarray(rows, dtype=np.int64) % self.period
+
+
+def plain_calendar(period: int | None = None) -> Calendar:
+    """Calendar of plain arrays: numbered rows, optional seasonal period."""
+    if period is not None and (int(period) != period or period < 2):
+        raise SpecificationError(f"period must be an integer >= 2; got {period!r}")
+    return Calendar(None, None, "plain", None if period is None else int(period))
+
+
+def _kind(offset: offsets.BaseOffset) -> str:
+    if isinstance(offset, offsets.MonthBegin | offsets.MonthEnd) and offset.n == 1:
+        return "monthly"
+    if isinstance(offset, offsets.QuarterBegin | offsets.QuarterEnd) and offset.n == 1:
+        return "quarterly"
+    if isinstance(offset, offsets.Week) and offset.n == 1:
+        return "weekly"
+    if isinstance(offset, offsets.Day | offsets.BusinessDay) and offset.n == 1:
+        return "daily"
+    return "other"
+
+
+def calendar_from_index(index: pd.DatetimeIndex, freq: str | None = None) -> Calendar:
+    """Validate a DatetimeIndex and find its frequency.
+
+    Raises
+    ------
+    TimeIndexError
+        Duplicate, unsorted or unevenly spaced timestamps, or too few to tell the spacing.
+    """
+    if index.tz is not None:
+        index = index.tz_localize(None)
+    dup = index[index.duplicated()]
+    if len(dup):
+        raise TimeIndexError(
+            f"timestamp {dup[0].date()} appears more than once; keep one row per period"
+        )
+    if not index.is_monotonic_increasing:
+        raise TimeIndexError("timestamps are not in increasing order; sort the rows by date")
+    if freq is None:
+        freq = index.freq.freqstr if index.freq is not None else None
+    if freq is None:
+        if len(index) < 3:
+            raise TimeIndexError("need at least 3 timestamps to tell the frequency")
+        freq = pd.infer_freq(index)
+    if freq is None:
+        expected = pd.date_range(index[0], periods=3, freq=pd.infer_freq(index[:3]) or "D")
+        gaps = np.diff(index.asi8)
+        where = int(np.argmax(gaps != gaps[0])) + 1
+        raise TimeIndexError(
+            f"timestamps are not evenly spaced (first break at {index[where].date()}, "
+            f"after {index[where - 1].date()}); give one row per period with no gaps "
+            f"(e.g. {expected[0].date()}, {expected[1].date()}, ...)"
+        )
+    try:
+        offset = pd.tseries.frequencies.to_offset(freq)
+    except ValueError as exc:
+        raise TimeIndexError(f"unknown frequency {freq!r}") from exc
+    regular = pd.date_range(index[0], periods=len(index), freq=offset)
+    if not regular.equals(index):
+        bad = int(np.argmax(regular != index))
+        raise TimeIndexError(
+            f"timestamp {index[bad].date()} does not follow frequency {freq!r} "
+            f"(expected {regular[bad].date()}); give one row per period with no gaps"
+        )
+    return Calendar(pd.DatetimeIndex(index, freq=offset), offset.freqstr, _kind(offset))

@@ -1,0 +1,343 @@
+"""From user data to the design matrices of a VAR(p).
+
+:func:`load_series` validates a DataFrame (regular DatetimeIndex) or a plain array and
+applies the per-series transforms. :func:`build_design` makes ``Y`` (T, n) and ``X``
+(T, k) with the deterministic terms first, then exogenous regressors, then lags 1..p.
+:func:`future_exogenous_rows` gives the deterministic/exogenous part of ``x`` for the
+forecast steps.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Mapping, Sequence
+from dataclasses import dataclass
+
+import numpy as np
+import pandas as pd
+
+from ._types import FloatArray
+from .calendar import Calendar, calendar_from_index, plain_calendar
+from .errors import (
+    ConstantSeriesError,
+    DuplicateNameError,
+    ExogenousError,
+    MissingValuesError,
+    NonNumericError,
+    SpecificationError,
+    TooFewObservationsError,
+)
+from .transforms import DIFFERENCING, check_transforms, forward
+
+__all__ = [
+    "Deterministics",
+    "Design",
+    "SeriesData",
+    "build_design",
+    "future_exogenous_rows",
+    "load_series",
+]
+
+
+@dataclass(frozen=True)
+class Deterministics:
+    """Deterministic regressors: constant, linear trend and seasonal dummies."""
+
+    constant: bool = True
+    trend: bool = False
+    seasonal: bool = False
+
+
+@dataclass(frozen=True)
+class SeriesData:
+    """Validated series in model units, with their calendar.
+
+    Attributes
+    ----------
+    names : the n series names.
+    levels : (T0, n) the data in the user's units, as given.
+    values : (T, n) the data in model units (T = T0 - 1 if any series is differenced).
+    calendar : dates of the rows of ``values``.
+    transforms : one transform name per series.
+    exog : (T, q) exogenous regressors aligned with ``values`` (q may be 0).
+    exog_names : the q regressor names.
+    """
+
+    names: tuple[str, ...]
+    levels: FloatArray
+    values: FloatArray
+    calendar: Calendar
+    transforms: tuple[str, ...]
+    exog: FloatArray
+    exog_names: tuple[str, ...]
+
+    @property
+    def n(self) -> int:
+        return len(self.names)
+
+    @property
+    def nobs(self) -> int:
+        return self.values.shape[0]
+
+
+@dataclass(frozen=True)
+class Design:
+    """Regression form of a VAR(p): ``Y = X @ B + E``.
+
+    ``Y`` is (T, n); ``X`` is (T, k) with k = m + n*p, the m deterministic and exogenous
+    columns first; ``labels`` name the k columns (``const``, ``trend``, ``month=3``,
+    ``tyres[t-1]``...).
+    """
+
+    Y: FloatArray
+    X: FloatArray
+    lags: int
+    n_det: int
+    labels: tuple[str, ...]
+    names: tuple[str, ...]
+
+    @property
+    def n(self) -> int:
+        return self.Y.shape[1]
+
+    @property
+    def k(self) -> int:
+        return self.X.shape[1]
+
+    @property
+    def nobs(self) -> int:
+        return self.Y.shape[0]
+
+
+def _row_label(calendar: Calendar, row: int) -> str:
+    if calendar.index is None:
+        return f"row {row}"
+    return f"{calendar.index[row].date()} (row {row})"
+
+
+def _as_frame(data: pd.DataFrame | FloatArray, names: Sequence[str] | None) -> pd.DataFrame:
+    if isinstance(data, pd.DataFrame):
+        frame = data
+        if names is not None:
+            frame = frame.set_axis(list(names), axis=1)
+    elif isinstance(data, pd.Series):
+        frame = data.to_frame()
+    else:
+        arr = np.asarray(data)
+        if arr.ndim == 1:
+            arr = arr[:, None]
+        if arr.ndim != 2:
+            raise SpecificationError(f"data must be 2-D of shape (T, n); got shape {arr.shape}")
+        cols = list(names) if names is not None else [f"y{j + 1}" for j in range(arr.shape[1])]
+        if len(cols) != arr.shape[1]:
+            raise SpecificationError(f"got {len(cols)} names for {arr.shape[1]} columns")
+        frame = pd.DataFrame(arr, columns=cols)
+    return frame
+
+
+def _numeric(frame: pd.DataFrame, what: str) -> FloatArray:
+    names = [str(c) for c in frame.columns]
+    dup = sorted({c for c in names if names.count(c) > 1})
+    if dup:
+        raise DuplicateNameError(f"{what} name {dup[0]!r} is used more than once; rename one")
+    for col in frame.columns:
+        dtype = frame[col].dtype
+        if not (pd.api.types.is_numeric_dtype(dtype) and not pd.api.types.is_bool_dtype(dtype)):
+            sample = frame[col].dropna().iloc[:1].tolist()
+            raise NonNumericError(
+                f"{what} {str(col)!r} is not numeric (dtype {dtype}, e.g. {sample}); "
+                "give numbers only, with dates in the index or the first column"
+            )
+    return frame.to_numpy(dtype=np.float64, na_value=np.nan)
+
+
+def _check_finite(values: FloatArray, names: Sequence[str], calendar: Calendar, what: str) -> None:
+    bad = ~np.isfinite(values)
+    if bad.any():
+        row, col = (int(i) for i in np.argwhere(bad)[0])
+        kind = "NaN" if np.isnan(values[row, col]) else "an infinite value"
+        raise MissingValuesError(
+            f"{what} {names[col]!r} has {kind} at {_row_label(calendar, row)}, inside the "
+            f"estimation window ({int(bad.sum())} such values in all); fill them or cut the "
+            "data to a window without them"
+        )
+
+
+def load_series(
+    data: pd.DataFrame | FloatArray,
+    *,
+    transforms: str | Sequence[str] | Mapping[str, str] | None = None,
+    exog: pd.DataFrame | FloatArray | None = None,
+    names: Sequence[str] | None = None,
+    period: int | None = None,
+) -> SeriesData:
+    """Validate the series and put them in model units.
+
+    Parameters
+    ----------
+    data : DataFrame of shape (T0, n) with a regular DatetimeIndex, or array (T0, n)
+    transforms : one name for all series, one per series, or a mapping name -> transform
+        (series not named stay ``"none"``). Names: none, log, log1p, diff, logdiff.
+    exog : optional (T0, q) exogenous regressors on the same rows as ``data``.
+    names : series names for plain arrays (default y1..yn).
+    period : seasonal period for plain arrays (ignored with dates).
+    """
+    frame = _as_frame(data, names)
+    if frame.shape[1] == 0:
+        raise SpecificationError("data has no series columns")
+    levels = _numeric(frame, "series")
+    series_names = tuple(str(c) for c in frame.columns)
+    if isinstance(frame.index, pd.DatetimeIndex):
+        calendar = calendar_from_index(frame.index)
+    else:
+        calendar = plain_calendar(period)
+    if isinstance(transforms, Mapping):
+        unknown = sorted(set(transforms) - set(series_names))
+        if unknown:
+            raise SpecificationError(
+                f"transform given for unknown series {unknown[0]!r}; series are "
+                f"{', '.join(series_names)}"
+            )
+        transforms = [transforms.get(nm, "none") for nm in series_names]
+    tr = check_transforms(transforms, len(series_names))
+    _check_finite(levels, series_names, calendar, "series")
+    values = forward(levels, tr, series_names)
+    drop = levels.shape[0] - values.shape[0]
+    calendar = calendar.drop_first(drop)
+    for j, nm in enumerate(series_names):
+        if values.shape[0] > 0 and np.ptp(values[:, j]) == 0:
+            unit = "its differences are" if tr[j] in DIFFERENCING else "it is"
+            raise ConstantSeriesError(
+                f"series {nm!r} has no variation ({unit} constant at {values[0, j]:g}); "
+                "drop it or use a longer window"
+            )
+    ex, ex_names = _load_exog(exog, frame, series_names)
+    ex = ex[drop:]
+    _check_finite(ex, ex_names, calendar, "exogenous regressor")
+    return SeriesData(series_names, levels, values, calendar, tr, ex, ex_names)
+
+
+def _load_exog(
+    exog: pd.DataFrame | FloatArray | None, frame: pd.DataFrame, series_names: tuple[str, ...]
+) -> tuple[FloatArray, tuple[str, ...]]:
+    if exog is None:
+        return np.empty((frame.shape[0], 0)), ()
+    ex_frame = _as_frame(exog, None)
+    if isinstance(exog, np.ndarray):
+        ex_frame.columns = [f"x{j + 1}" for j in range(ex_frame.shape[1])]
+    if ex_frame.shape[0] != frame.shape[0]:
+        raise ExogenousError(
+            f"exogenous regressors have {ex_frame.shape[0]} rows but the series have "
+            f"{frame.shape[0]}; give one row per period of the data"
+        )
+    if isinstance(ex_frame.index, pd.DatetimeIndex) and isinstance(frame.index, pd.DatetimeIndex):
+        if not ex_frame.index.equals(frame.index):
+            raise ExogenousError("exogenous regressors are not on the same dates as the series")
+    names = tuple(str(c) for c in ex_frame.columns)
+    clash = sorted(set(names) & set(series_names))
+    if clash:
+        raise DuplicateNameError(f"exogenous regressor {clash[0]!r} has a series' name")
+    return _numeric(ex_frame, "exogenous regressor"), names
+
+
+def _deterministic_block(
+    series: SeriesData, det: Deterministics, rows: np.ndarray, dates: pd.DatetimeIndex | None
+) -> tuple[FloatArray, list[str]]:
+    cols: list[FloatArray] = []
+    labels: list[str] = []
+    if det.constant:
+        cols.append(np.ones(len(rows)))
+        labels.append("const")
+    if det.trend:
+        cols.append(rows.astype(np.float64) + 1.0)
+        labels.append("trend")
+    if det.seasonal:
+        season_labels = series.calendar.season_labels()
+        codes = series.calendar.season_codes(rows, dates)
+        for s, lab in enumerate(season_labels, start=1):
+            cols.append((codes == s).astype(np.float64))
+            labels.append(lab)
+    if not cols:
+        return np.empty((len(rows), 0)), labels
+    return np.column_stack(cols), labels
+
+
+def build_design(
+    series: SeriesData, lags: int, det: Deterministics, *, start: int | None = None
+) -> Design:
+    """Stack the regressors of a VAR(``lags``).
+
+    Parameters
+    ----------
+    start : first row of ``series.values`` used as a left-hand-side observation;
+        default ``lags``. Comparing lag orders on a common sample uses ``start=p_max``.
+    """
+    if int(lags) != lags or lags < 1:
+        raise SpecificationError(f"lags must be an integer >= 1; got {lags!r}")
+    lags = int(lags)
+    start = lags if start is None else int(start)
+    if start < lags:
+        raise SpecificationError(f"start ({start}) must be at least lags ({lags})")
+    T_all, n = series.values.shape
+    rows = np.arange(start, T_all)
+    dates = None if series.calendar.index is None else series.calendar.index[start:]
+    D, det_labels = _deterministic_block(series, det, rows, dates)
+    m = D.shape[1] + series.exog.shape[1]
+    k = m + n * lags
+    T = len(rows)
+    need = max(m + lags + 2, 3)
+    if T < need:
+        lost = series.levels.shape[0] - T_all
+        dropped = f" and {lost} row lost to differencing" if lost else ""
+        raise TooFewObservationsError(
+            f"{series.levels.shape[0]} observations leave {T} rows for estimation after "
+            f"{start} presample row(s){dropped}; each series' own AR({lags}) with {m} "
+            f"deterministic/exogenous term(s) needs at least {need}; use fewer lags "
+            "or more data"
+        )
+    V = series.values
+    lag_blocks = [V[start - lag : T_all - lag] for lag in range(1, lags + 1)]
+    X = np.column_stack([D, series.exog[start:], *lag_blocks]) if k else np.empty((T, 0))
+    labels = (
+        *det_labels,
+        *series.exog_names,
+        *(f"{nm}[t-{lag}]" for lag in range(1, lags + 1) for nm in series.names),
+    )
+    return Design(V[start:].copy(), X, lags, m, labels, series.names)
+
+
+def future_exogenous_rows(
+    series: SeriesData,
+    det: Deterministics,
+    horizon: int,
+    exog_future: pd.DataFrame | FloatArray | None = None,
+) -> FloatArray:
+    """The deterministic and exogenous part of x for steps 1..horizon, shape (horizon, m)."""
+    T_all = series.nobs
+    rows = np.arange(T_all, T_all + horizon)
+    dates = series.calendar.future(horizon)
+    D, _ = _deterministic_block(series, det, rows, dates)
+    q = len(series.exog_names)
+    if q == 0:
+        if exog_future is not None and np.asarray(exog_future).size:
+            raise ExogenousError("future exogenous values given, but the model has none")
+        return D
+    if exog_future is None:
+        raise ExogenousError(
+            f"the model uses exogenous regressors ({', '.join(series.exog_names)}); give "
+            f"their future values for all {horizon} forecast steps"
+        )
+    if isinstance(exog_future, pd.DataFrame):
+        missing = [c for c in series.exog_names if c not in exog_future.columns]
+        if missing:
+            raise ExogenousError(f"future values of exogenous regressor {missing[0]!r} missing")
+        fut = exog_future[list(series.exog_names)].to_numpy(dtype=np.float64, na_value=np.nan)
+    else:
+        fut = np.asarray(exog_future, dtype=np.float64).reshape(-1, q)
+    if fut.shape[0] < horizon:
+        raise ExogenousError(
+            f"exogenous regressors need future values for {horizon} steps; got {fut.shape[0]}"
+        )
+    fut = fut[:horizon]
+    if not np.all(np.isfinite(fut)):
+        raise ExogenousError("future exogenous values contain NaN or inf")
+    return np.column_stack([D, fut]) if D.size else fut

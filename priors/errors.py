@@ -1,0 +1,100 @@
+"""Exceptions and warnings raised by :mod:`priors`.
+
+The tree::
+
+    PriorsError
+    ├── DataError (ValueError)                 input data cannot be used as given
+    │   ├── MissingValuesError                 NaN or inf inside the estimation window
+    │   ├── TooFewObservationsError            not enough rows for the lags and regressors
+    │   ├── ConstantSeriesError                a series never changes
+    │   ├── NonPositiveValuesError             log transform of values <= 0 (or <= -1 for log1p)
+    │   ├── TimeIndexError                     duplicate, unsorted or irregular timestamps
+    │   ├── NonNumericError                    a column that is not numbers
+    │   ├── DuplicateNameError                 two series with the same name
+    │   └── ExogenousError                     exogenous regressors missing or misaligned
+    ├── SpecificationError (ValueError)        settings that do not fit together
+    ├── NotPositiveDefiniteError (LinAlgError) a matrix that must be SPD is not
+    └── NotFittedError (ValueError, AttributeError)
+
+    ConvergenceWarning (UserWarning)           an optimiser stopped at a bound or failed
+
+Every message says what was found and what to change. The service maps each class to
+an RFC 9457 problem response in one place (``service/errors.py``).
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+__all__ = [
+    "ConstantSeriesError",
+    "ConvergenceWarning",
+    "DataError",
+    "DuplicateNameError",
+    "ExogenousError",
+    "MissingValuesError",
+    "NonNumericError",
+    "NonPositiveValuesError",
+    "NotFittedError",
+    "NotPositiveDefiniteError",
+    "PriorsError",
+    "SpecificationError",
+    "TimeIndexError",
+    "TooFewObservationsError",
+]
+
+
+class PriorsError(Exception):
+    """Base class of every exception raised on purpose by :mod:`priors`."""
+
+
+class DataError(PriorsError, ValueError):
+    """The input data cannot be used as given."""
+
+
+class MissingValuesError(DataError):
+    """NaN or infinite values inside the estimation window."""
+
+
+class TooFewObservationsError(DataError):
+    """Too few observations for the requested lags and regressors."""
+
+
+class ConstantSeriesError(DataError):
+    """A series is constant over the estimation window, so its scale is zero."""
+
+
+class NonPositiveValuesError(DataError):
+    """A log-type transform was asked for a series with values outside its domain."""
+
+
+class TimeIndexError(DataError):
+    """Timestamps are duplicated, unsorted or not evenly spaced."""
+
+
+class NonNumericError(DataError):
+    """A column holds something other than numbers."""
+
+
+class DuplicateNameError(DataError):
+    """Two series (or regressors) share a name."""
+
+
+class ExogenousError(DataError):
+    """Exogenous regressors are missing, misaligned or lack future values."""
+
+
+class SpecificationError(PriorsError, ValueError):
+    """Model settings that are invalid or do not fit together."""
+
+
+class NotPositiveDefiniteError(PriorsError, np.linalg.LinAlgError):
+    """A matrix that must be symmetric positive definite is not."""
+
+
+class NotFittedError(PriorsError, ValueError, AttributeError):
+    """A method that needs a fitted model was called before ``fit``."""
+
+
+class ConvergenceWarning(UserWarning):
+    """An optimiser stopped at a bound of its search range or did not converge."""

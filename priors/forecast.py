@@ -1,0 +1,114 @@
+"""Summaries of simulated forecast paths: mean, median, quantiles, fan-chart bands.
+
+All functions take paths of shape (S, h, n) already in the user's units. Quantiles use
+numpy's default (linear interpolation between order statistics, "type 7"), which is
+monotone in the level, so bands built from them are nested.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Sequence
+from dataclasses import dataclass
+
+import numpy as np
+import pandas as pd
+
+from ._types import FloatArray
+from .errors import SpecificationError
+
+__all__ = ["Forecast", "band_levels", "check_quantiles", "fan_bands"]
+
+
+def check_quantiles(levels: Sequence[float]) -> FloatArray:
+    """Validate quantile levels: each strictly inside (0, 1), sorted, no repeats."""
+    q = np.asarray(list(levels), dtype=np.float64)
+    if q.ndim != 1 or q.size == 0:
+        raise SpecificationError("give at least one quantile level")
+    if not np.all((q > 0) & (q < 1)):
+        raise SpecificationError(f"quantile levels must lie strictly between 0 and 1; got {q}")
+    if np.any(np.diff(q) <= 0):
+        raise SpecificationError(f"quantile levels must be increasing with no repeats; got {q}")
+    return q
+
+
+def band_levels(coverages: Sequence[float]) -> FloatArray:
+    """Central-interval coverages in percent (e.g. 50, 80, 95) -> sorted fractions."""
+    c = np.asarray(list(coverages), dtype=np.float64)
+    if c.size == 0 or not np.all((c > 0) & (c < 100)):
+        raise SpecificationError(f"band coverages must lie strictly between 0 and 100; got {c}")
+    return np.unique(c) / 100.0
+
+
+def fan_bands(paths: FloatArray, coverages: Sequence[float]) -> dict[float, FloatArray]:
+    """Central intervals of each coverage: {coverage%: array (2, h, n) of lower, upper}.
+
+    Wider coverages contain narrower ones at every step (nested fan).
+    """
+    fracs = band_levels(coverages)
+    lows = (1.0 - fracs) / 2.0
+    levels = np.concatenate([lows, 1.0 - lows])
+    qs = np.quantile(paths, levels, axis=0)
+    m = fracs.size
+    return {float(100 * f): np.stack([qs[i], qs[m + i]]) for i, f in enumerate(fracs)}
+
+
+@dataclass(frozen=True)
+class Forecast:
+    """Simulated predictive paths in the user's units.
+
+    paths : (S, h, n).  names : n series names.  dates : h future dates (None for plain
+    arrays; then steps are numbered 1..h).  rejected_share : share of explosive
+    parameter draws rejected (None if no screening was asked for).
+    """
+
+    paths: FloatArray
+    names: tuple[str, ...]
+    dates: pd.DatetimeIndex | None
+    rejected_share: float | None = None
+
+    @property
+    def horizon(self) -> int:
+        return self.paths.shape[1]
+
+    def mean(self) -> FloatArray:
+        """(h, n) predictive mean."""
+        return self.paths.mean(axis=0)
+
+    def median(self) -> FloatArray:
+        """(h, n) predictive median."""
+        return np.median(self.paths, axis=0)
+
+    def quantiles(self, levels: Sequence[float]) -> FloatArray:
+        """(len(levels), h, n) predictive quantiles."""
+        return np.quantile(self.paths, check_quantiles(levels), axis=0)
+
+    def bands(self, coverages: Sequence[float] = (50, 80, 95)) -> dict[float, FloatArray]:
+        """Nested central intervals, see :func:`fan_bands`."""
+        return fan_bands(self.paths, coverages)
+
+    def cumulative(self) -> Forecast:
+        """Forecast of running totals over steps 1..h, path by path."""
+        return Forecast(np.cumsum(self.paths, axis=1), self.names, self.dates,
+                        self.rejected_share)
+
+    def steps(self) -> list[str]:
+        """Labels of the steps: ISO dates, or '1'..'h'."""
+        if self.dates is None:
+            return [str(i) for i in range(1, self.horizon + 1)]
+        return [d.date().isoformat() for d in self.dates]
+
+    def to_frame(self, levels: Sequence[float] = (0.05, 0.5, 0.95)) -> pd.DataFrame:
+        """Tidy table: one row per series and step with mean, median and quantiles."""
+        q = check_quantiles(levels)
+        qs = self.quantiles(q)
+        mean, med = self.mean(), self.median()
+        steps = self.steps()
+        rows = []
+        for j, name in enumerate(self.names):
+            for h in range(self.horizon):
+                row: dict[str, object] = {"series": name, "date": steps[h], "step": h + 1,
+                                          "mean": mean[h, j], "median": med[h, j]}
+                for i, lv in enumerate(q):
+                    row[f"q{lv:g}"] = qs[i, h, j]
+                rows.append(row)
+        return pd.DataFrame(rows)

@@ -1,0 +1,357 @@
+"""Estimator facade: ``BayesVAR(...).fit(data)`` then ``.forecast(h, rng=...)``.
+
+``__init__`` only stores settings; ``fit`` validates, chooses lags and hyperparameters,
+computes the closed-form posterior and sets the fitted attributes (names ending in ``_``).
+"""
+
+from __future__ import annotations
+
+from collections.abc import Mapping, Sequence
+from dataclasses import dataclass
+
+import numpy as np
+import pandas as pd
+from scipy import stats
+
+from ._types import FloatArray
+from .conjugate import NIWPosterior, flat_posterior, posterior
+from .data import Deterministics, Design, SeriesData, build_design, future_exogenous_rows, load_series
+from .errors import NotFittedError, SpecificationError, TooFewObservationsError
+from .forecast import Forecast
+from .predictive import companion_spectral_radius, simulate_paths, simulate_paths_from_draws
+from .sampling import Draws, check_size, sample_posterior
+from .shrinkage import MinnesotaHyper, NIWPrior, ar_residual_variances, minnesota_prior
+from .transforms import default_prior_mean, inverse_paths
+from .tuning import tune_hyperparameters
+
+__all__ = ["BayesVAR", "LagChoice", "default_max_lags"]
+
+PRIORS = ("minnesota", "flat")
+_MAX_LAGS = {"monthly": 13, "quarterly": 5, "weekly": 8, "daily": 14}
+
+
+@dataclass(frozen=True)
+class LagChoice:
+    """One candidate lag order: its score on the common sample and tuned tightness."""
+
+    lags: int
+    score: float
+    tightness: float | None
+    criterion: str  # "log_ml" or "bic"
+
+
+def default_max_lags(kind: str) -> int:
+    """Largest lag order searched by ``lags='auto'``: a year and one period for monthly
+    and quarterly data, 8 weeks, two weeks of days, else 8 (common practice)."""
+    return _MAX_LAGS.get(kind, 8)
+
+
+def _bic(design: Design) -> float:
+    """Schwarz criterion of the OLS VAR (Lutkepohl 2005, sec. 4.3): lower is better."""
+    coef, *_ = np.linalg.lstsq(design.X, design.Y, rcond=None)
+    E = design.Y - design.X @ coef
+    T = design.nobs
+    _, logdet = np.linalg.slogdet(E.T @ E / T)
+    return float(logdet + np.log(T) / T * design.n * design.k)
+
+
+class BayesVAR:
+    """Bayesian VAR with a natural-conjugate Minnesota prior.
+
+    Parameters
+    ----------
+    lags : int or "auto"
+        Lag order, or "auto" to choose it by marginal likelihood over 1..max_lags on a
+        common sample (Schwarz criterion with ``prior="flat"``).
+    max_lags : int, optional
+        Largest order tried by "auto"; default by frequency (see :func:`default_max_lags`).
+    prior : "minnesota" or "flat"
+        "flat" is the flat-prior limit (OLS posterior mean, Jeffreys prior on Sigma).
+    tightness : float or "auto"
+        Prior s.d. of the own first lag; "auto" maximises the marginal likelihood.
+    decay : float
+        Lag decay of the prior s.d. (s.d. ~ 1 / lag**decay).
+    det_scale : float
+        Prior s.d. of deterministic/exogenous coefficients, in residual s.d. units.
+    sum_coef, initial : float, "auto" or None
+        Weights of the sum-of-coefficients and dummy-initial-observation priors; None
+        switches them off, "auto" tunes them with the tightness.
+    hyperprior : bool
+        Tune by the posterior mode under Gamma hyperpriors (Giannone, Lenza & Primiceri
+        2015) instead of the marginal likelihood alone.
+    prior_mean : sequence or mapping, optional
+        Prior mean of each series' own first lag; default 1 for levels and logs, 0 for
+        differenced series.
+    constant, trend, seasonal : bool
+        Deterministic terms.
+    transforms : str, sequence or mapping, optional
+        none, log, log1p, diff or logdiff, for all or per series.
+    """
+
+    def __init__(
+        self,
+        *,
+        lags: int | str = "auto",
+        max_lags: int | None = None,
+        prior: str = "minnesota",
+        tightness: float | str = "auto",
+        decay: float = 1.0,
+        det_scale: float = 1000.0,
+        sum_coef: float | str | None = None,
+        initial: float | str | None = None,
+        hyperprior: bool = False,
+        prior_mean: Sequence[float] | Mapping[str, float] | None = None,
+        constant: bool = True,
+        trend: bool = False,
+        seasonal: bool = False,
+        transforms: str | Sequence[str] | Mapping[str, str] | None = None,
+    ) -> None:
+        self.lags = lags
+        self.max_lags = max_lags
+        self.prior = prior
+        self.tightness = tightness
+        self.decay = decay
+        self.det_scale = det_scale
+        self.sum_coef = sum_coef
+        self.initial = initial
+        self.hyperprior = hyperprior
+        self.prior_mean = prior_mean
+        self.constant = constant
+        self.trend = trend
+        self.seasonal = seasonal
+        self.transforms = transforms
+
+    # ------------------------------------------------------------------ settings
+    def _check_settings(self) -> None:
+        if self.prior not in PRIORS:
+            raise SpecificationError(f"prior must be one of {', '.join(PRIORS)}; got {self.prior!r}")
+        if not (self.lags == "auto" or (isinstance(self.lags, int | np.integer) and self.lags >= 1)):
+            raise SpecificationError(f"lags must be 'auto' or an integer >= 1; got {self.lags!r}")
+        if self.max_lags is not None and not (isinstance(self.max_lags, int) and self.max_lags >= 1):
+            raise SpecificationError(f"max_lags must be an integer >= 1; got {self.max_lags!r}")
+        for name in ("tightness", "sum_coef", "initial"):
+            v = getattr(self, name)
+            if isinstance(v, str) and v != "auto":
+                raise SpecificationError(f"{name} must be a number or 'auto'; got {v!r}")
+        if self.tightness is None:
+            raise SpecificationError("tightness must be a number or 'auto'")
+
+    def _base_hyper(self) -> tuple[MinnesotaHyper, tuple[str, ...]]:
+        tune = []
+        values: dict[str, float | None] = {}
+        for name, start in (("tightness", 0.2), ("sum_coef", 1.0), ("initial", 1.0)):
+            v = getattr(self, name)
+            if v == "auto":
+                tune.append(name)
+                values[name] = start
+            else:
+                values[name] = None if v is None else float(v)
+        hyper = MinnesotaHyper(
+            tightness=values["tightness"] or 0.2, decay=float(self.decay),
+            det_scale=float(self.det_scale), sum_coef=values["sum_coef"],
+            initial=values["initial"],
+        )
+        return hyper, tuple(tune)
+
+    def _prior_mean(self, series: SeriesData) -> FloatArray:
+        if self.prior_mean is None:
+            return default_prior_mean(series.transforms)
+        if isinstance(self.prior_mean, Mapping):
+            unknown = sorted(set(self.prior_mean) - set(series.names))
+            if unknown:
+                raise SpecificationError(f"prior_mean given for unknown series {unknown[0]!r}")
+            base = default_prior_mean(series.transforms)
+            return np.array([float(self.prior_mean.get(nm, b))
+                             for nm, b in zip(series.names, base, strict=True)])
+        pm = np.asarray(self.prior_mean, dtype=np.float64)
+        if pm.shape != (series.n,):
+            raise SpecificationError(f"prior_mean needs one value per series ({series.n})")
+        return pm
+
+    # ------------------------------------------------------------------ fitting
+    def _fit_minnesota(self, design: Design, prior_mean: FloatArray
+                       ) -> tuple[MinnesotaHyper, NIWPrior, NIWPosterior]:
+        base, tune = self._base_hyper()
+        psi = ar_residual_variances(design)
+        hyper = base
+        if tune:
+            hyper = tune_hyperparameters(design, base, prior_mean, tune=tune,
+                                         hyperprior=self.hyperprior, psi=psi).hyper
+        prior = minnesota_prior(design, hyper, prior_mean, psi)
+        return hyper, prior, posterior(design, prior)
+
+    def _feasible_max_lags(self, series: SeriesData, det: Deterministics, want: int) -> int:
+        for p in range(want, 0, -1):
+            try:
+                build_design(series, p, det)
+                return p
+            except TooFewObservationsError:
+                continue
+        build_design(series, 1, det)  # raises the informative error
+        return 1
+
+    def _choose_lags(self, series: SeriesData, det: Deterministics, prior_mean: FloatArray
+                     ) -> tuple[int, list[LagChoice]]:
+        want = self.max_lags or default_max_lags(series.calendar.kind)
+        p_max = self._feasible_max_lags(series, det, want)
+        table: list[LagChoice] = []
+        for p in range(1, p_max + 1):
+            design = build_design(series, p, det, start=p_max)
+            if self.prior == "flat":
+                table.append(LagChoice(p, _bic(design), None, "bic"))
+            else:
+                hyper, _, post = self._fit_minnesota(design, prior_mean)
+                assert post.log_ml is not None
+                table.append(LagChoice(p, post.log_ml, hyper.tightness, "log_ml"))
+        if self.prior == "flat":
+            best = min(table, key=lambda c: c.score)
+        else:
+            best = max(table, key=lambda c: c.score)
+        return best.lags, table
+
+    def fit(
+        self,
+        data: pd.DataFrame | FloatArray,
+        *,
+        exog: pd.DataFrame | FloatArray | None = None,
+        names: Sequence[str] | None = None,
+        period: int | None = None,
+    ) -> BayesVAR:
+        """Fit to ``data`` (T, n): a DataFrame with a regular DatetimeIndex or an array."""
+        self._check_settings()
+        series = load_series(data, transforms=self.transforms, exog=exog, names=names,
+                             period=period)
+        det = Deterministics(self.constant, self.trend, self.seasonal)
+        prior_mean = self._prior_mean(series)
+        if self.lags == "auto":
+            lags, table = self._choose_lags(series, det, prior_mean)
+        else:
+            lags, table = int(self.lags), []
+        design = build_design(series, lags, det)
+        if self.prior == "flat":
+            hyper, prior, post = None, None, flat_posterior(design)
+        else:
+            hyper, prior, post = self._fit_minnesota(design, prior_mean)
+        self.series_ = series
+        self.deterministics_ = det
+        self.prior_mean_ = prior_mean
+        self.design_ = design
+        self.lags_ = lags
+        self.lag_search_ = table
+        self.hyper_ = hyper
+        self.prior_ = prior
+        self.posterior_ = post
+        self.log_ml_ = post.log_ml
+        return self
+
+    def _check_fitted(self) -> None:
+        if not hasattr(self, "posterior_"):
+            raise NotFittedError("this BayesVAR is not fitted yet; call fit(data) first")
+
+    # ------------------------------------------------------------------ results
+    def sample(self, draws: int, *, rng: np.random.Generator) -> Draws:
+        """Exact i.i.d. posterior draws of (B, Sigma)."""
+        self._check_fitted()
+        return sample_posterior(rng, self.posterior_, draws)
+
+    def forecast(
+        self,
+        horizon: int,
+        *,
+        rng: np.random.Generator,
+        draws: int = 2000,
+        exog_future: pd.DataFrame | FloatArray | None = None,
+        reject_explosive: bool = False,
+    ) -> Forecast:
+        """Posterior predictive paths in the user's units.
+
+        Parameters
+        ----------
+        horizon : number of steps ahead (>= 1).
+        rng : the random generator; the same seed gives bit-identical paths.
+        draws : number of paths (one parameter draw each).
+        exog_future : (horizon, q) future values of exogenous regressors, if any.
+        reject_explosive : drop parameter draws whose companion matrix has spectral
+            radius >= 1 (this truncates the posterior; the share dropped is reported).
+        """
+        self._check_fitted()
+        if int(horizon) != horizon or horizon < 1:
+            raise SpecificationError(f"horizon must be an integer >= 1; got {horizon!r}")
+        draws = check_size(draws)
+        series, post = self.series_, self.posterior_
+        exog_rows = future_exogenous_rows(series, self.deterministics_, int(horizon), exog_future)
+        history = series.values[-self.lags_:]
+        rejected = None
+        if reject_explosive:
+            kept, rejected = self._stable_draws(rng, draws)
+            paths = simulate_paths_from_draws(rng, kept, history, exog_rows)
+        else:
+            paths = simulate_paths(rng, post, history, exog_rows, draws)
+        user = inverse_paths(paths, series.transforms, series.levels[-1])
+        return Forecast(user, series.names, series.calendar.future(int(horizon)), rejected)
+
+    def _stable_draws(self, rng: np.random.Generator, draws: int,
+                      max_rounds: int = 20) -> tuple[Draws, float]:
+        kept_B, kept_S, total = [], [], 0
+        have = 0
+        for _ in range(max_rounds):
+            batch = sample_posterior(rng, self.posterior_, draws)
+            total += draws
+            ok = companion_spectral_radius(batch.B, self.design_.n_det, self.lags_) < 1.0
+            kept_B.append(batch.B[ok])
+            kept_S.append(batch.Sigma[ok])
+            have += int(ok.sum())
+            if have >= draws:
+                break
+        if have < draws:
+            raise SpecificationError(
+                f"only {have} of {total} parameter draws were stable; the posterior puts "
+                "most mass on explosive dynamics, so forecast without reject_explosive or "
+                "difference the trending series"
+            )
+        B = np.concatenate(kept_B)[:draws]
+        Sig = np.concatenate(kept_S)[:draws]
+        return Draws(B, Sig), 1.0 - have / total
+
+    def coefficients(self, level: float = 0.9) -> pd.DataFrame:
+        """Posterior mean, s.d. and central credible interval of every coefficient.
+
+        Analytic matrix-t marginals: B_ri ~ t_{nu-n+1}(B_bar_ri, P^-1_rr S_ii / (nu-n+1)).
+        Columns: equation, regressor, mean, sd, lower, upper.
+        """
+        self._check_fitted()
+        if not 0 < level < 1:
+            raise SpecificationError(f"level must lie strictly between 0 and 1; got {level}")
+        post, design = self.posterior_, self.design_
+        n = post.n
+        dof = post.df - n + 1
+        scale2 = np.outer(post.row_cov_diag(), np.diag(post.S)) / dof
+        sd = np.sqrt(scale2 * dof / (dof - 2)) if dof > 2 else np.full_like(scale2, np.inf)
+        tq = stats.t.ppf(0.5 + level / 2, dof)
+        half = tq * np.sqrt(scale2)
+        rows = [
+            {"equation": design.names[i], "regressor": design.labels[r], "mean": post.B[r, i],
+             "sd": sd[r, i], "lower": post.B[r, i] - half[r, i],
+             "upper": post.B[r, i] + half[r, i]}
+            for i in range(n) for r in range(post.k)
+        ]
+        return pd.DataFrame(rows)
+
+    def sigma_mean(self) -> pd.DataFrame:
+        """Posterior mean of Sigma, labelled by series."""
+        self._check_fitted()
+        names = list(self.design_.names)
+        return pd.DataFrame(self.posterior_.sigma_mean(), index=names, columns=names)
+
+    def hyperparameters(self) -> dict[str, float | int | None]:
+        """Chosen lags and hyperparameters (None where switched off or flat)."""
+        self._check_fitted()
+        h = self.hyper_
+        return {
+            "lags": self.lags_,
+            "tightness": None if h is None else h.tightness,
+            "decay": None if h is None else h.decay,
+            "det_scale": None if h is None else h.det_scale,
+            "sum_coef": None if h is None else h.sum_coef,
+            "initial": None if h is None else h.initial,
+        }

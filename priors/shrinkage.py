@@ -1,0 +1,186 @@
+"""The Minnesota prior in natural-conjugate form, with optional dummy observations.
+
+Parameterisation (standard-deviation form; ``decay`` applies to the s.d.)::
+
+    sd(own lag l)            = tightness / l**decay
+    sd(lag l of series j, i) ~ tightness * sigma_i / (l**decay * sigma_j)
+    sd(deterministic, i)     ~ det_scale * sigma_i
+
+Natural-conjugate form (Kadiyala & Karlsson 1997; Giannone, Lenza & Primiceri 2015):
+``B | Sigma ~ MN(B0, diag(omega), Sigma)``, ``Sigma ~ IW(diag(psi) * (nu0 - n - 1), nu0)``
+with ``nu0 = n + 2`` so that ``E[Sigma] = diag(psi)``, and ``omega`` equal to
+``(tightness / l**decay)**2 / psi_j`` for lag l of series j. Because the
+coefficient covariance is ``Sigma (x) Omega0``, the cross-variable tightness is 1 in this
+form; a different value needs an independent prior.
+
+``psi`` are residual variances of univariate AR(p) regressions (with the model's
+deterministic terms) on the estimation sample (Banbura, Giannone & Reichlin 2010).
+
+Sum-of-coefficients (weight ``mu``) and dummy-initial-observation (weight ``delta``)
+priors are extra rows (Y_d, X_d) appended to the data (Doan, Litterman & Sims 1984;
+Sims 1993; Sims & Zha 1998); smaller weights mean tighter priors.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+from ._types import FloatArray
+from .data import Design
+from .errors import ConstantSeriesError, SpecificationError
+
+__all__ = ["MinnesotaHyper", "NIWPrior", "ar_residual_variances", "minnesota_prior"]
+
+
+@dataclass(frozen=True)
+class MinnesotaHyper:
+    """Hyperparameters of the Minnesota prior.
+
+    tightness : prior s.d. of a series' own first lag (lambda_1), > 0.
+    decay : lag decay exponent on the s.d. (1 = harmonic: s.d. ~ 1/l, variance ~ 1/l^2).
+    det_scale : prior s.d. of deterministic/exogenous coefficients in units of the
+        equation's residual s.d. (large = nearly flat).
+    sum_coef : weight mu of the sum-of-coefficients dummies, None = off.
+    initial : weight delta of the dummy-initial-observation, None = off.
+    """
+
+    tightness: float = 0.2
+    decay: float = 1.0
+    det_scale: float = 1000.0
+    sum_coef: float | None = None
+    initial: float | None = None
+
+    def __post_init__(self) -> None:
+        for name in ("tightness", "det_scale", "sum_coef", "initial"):
+            v = getattr(self, name)
+            if v is not None and not (np.isfinite(v) and v > 0):
+                raise SpecificationError(f"{name} must be a positive number; got {v!r}")
+        if not (np.isfinite(self.decay) and self.decay >= 0):
+            raise SpecificationError(f"decay must be >= 0; got {self.decay!r}")
+
+
+@dataclass(frozen=True)
+class NIWPrior:
+    """Normal-inverse-Wishart prior plus dummy observations.
+
+    B0 : (k, n) prior mean.  omega : (k,) diagonal of the row covariance Omega0.
+    S0 : (n, n) inverse-Wishart scale.  df : nu0.
+    Yd : (T_d, n), Xd : (T_d, k) dummy observations (T_d may be 0).
+    """
+
+    B0: FloatArray
+    omega: FloatArray
+    S0: FloatArray
+    df: float
+    Yd: FloatArray
+    Xd: FloatArray
+
+
+def ar_residual_variances(design: Design) -> FloatArray:
+    """Residual variance of each series' own AR(p) with the deterministic terms, (n,)."""
+    m, n, p = design.n_det, design.n, design.lags
+    X_det = design.X[:, :m]
+    out = np.empty(n)
+    for i in range(n):
+        own = design.X[:, [m + lag * n + i for lag in range(p)]]
+        Z = np.column_stack([X_det, own])
+        coef, *_ = np.linalg.lstsq(Z, design.Y[:, i], rcond=None)
+        resid = design.Y[:, i] - Z @ coef
+        dof = max(design.nobs - Z.shape[1], 1)
+        out[i] = resid @ resid / dof
+        if not out[i] > 1e-12 * max(1.0, float(np.mean(design.Y[:, i] ** 2))):
+            raise ConstantSeriesError(
+                f"series {design.names[i]!r} is fitted exactly by its own lags, so its "
+                "scale is zero; drop it or use a longer window"
+            )
+    return out
+
+
+def lag_variance_profile(design: Design, psi: FloatArray, decay: float) -> FloatArray:
+    """omega / tightness**2 for the lag rows, shape (n*p,): 1 / (l**(2*decay) * psi_j)."""
+    lags = np.repeat(np.arange(1, design.lags + 1, dtype=np.float64), design.n)
+    return 1.0 / (lags ** (2.0 * decay) * np.tile(psi, design.lags))
+
+
+def det_variances(design: Design, det_scale: float) -> FloatArray:
+    """omega for the deterministic/exogenous rows, shape (m,).
+
+    Regressors are put on a common footing by their root mean square, so the prior
+    s.d. of a coefficient is ``det_scale * sigma_i / rms(x)``.
+    """
+    Xd = design.X[:, : design.n_det]
+    rms = np.sqrt(np.mean(Xd**2, axis=0)) if design.nobs else np.ones(design.n_det)
+    rms = np.where(rms > 0, rms, 1.0)
+    return det_scale**2 / rms**2
+
+
+def initial_means(design: Design) -> FloatArray:
+    """Mean of the p presample observations of each series (y-bar_0), shape (n,)."""
+    m, n, p = design.n_det, design.n, design.lags
+    first = design.X[0, m : m + n * p].reshape(p, n)
+    return first.mean(axis=0)
+
+
+def minnesota_prior(
+    design: Design,
+    hyper: MinnesotaHyper,
+    prior_mean: FloatArray,
+    psi: FloatArray | None = None,
+) -> NIWPrior:
+    """Build the natural-conjugate Minnesota prior for ``design``.
+
+    Parameters
+    ----------
+    prior_mean : (n,) prior mean of each series' own first-lag coefficient.
+    psi : (n,) scales; default :func:`ar_residual_variances`.
+    """
+    n, m, k, p = design.n, design.n_det, design.k, design.lags
+    prior_mean = np.asarray(prior_mean, dtype=np.float64)
+    if prior_mean.shape != (n,):
+        raise SpecificationError(f"prior_mean must have one value per series ({n})")
+    psi = ar_residual_variances(design) if psi is None else np.asarray(psi, dtype=np.float64)
+    B0 = np.zeros((k, n))
+    B0[m + np.arange(n), np.arange(n)] = prior_mean
+    omega = np.concatenate(
+        [det_variances(design, hyper.det_scale), hyper.tightness**2 * lag_variance_profile(
+            design, psi, hyper.decay)]
+    )
+    df = n + 2.0
+    S0 = np.diag(psi * (df - n - 1))
+    Yd, Xd = dummy_observations(design, hyper, prior_mean)
+    return NIWPrior(B0, omega, S0, df, Yd, Xd)
+
+
+def dummy_observations(
+    design: Design, hyper: MinnesotaHyper, prior_mean: FloatArray
+) -> tuple[FloatArray, FloatArray]:
+    """Sum-of-coefficients and initial-observation rows, (T_d, n) and (T_d, k).
+
+    Only series with a unit-root prior mean (prior_mean == 1) get a sum-of-coefficients
+    row. Deterministic columns are 0 except the constant in the initial observation.
+    """
+    n, m, k, p = design.n, design.n_det, design.k, design.lags
+    ybar = initial_means(design)
+    rows_y: list[FloatArray] = []
+    rows_x: list[FloatArray] = []
+    if hyper.sum_coef is not None:
+        for i in np.flatnonzero(prior_mean == 1.0):
+            y = np.zeros(n)
+            y[i] = ybar[i] / hyper.sum_coef
+            x = np.zeros(k)
+            x[m + i + n * np.arange(p)] = y[i]
+            rows_y.append(y)
+            rows_x.append(x)
+    if hyper.initial is not None:
+        y = ybar / hyper.initial
+        x = np.zeros(k)
+        if "const" in design.labels:
+            x[design.labels.index("const")] = 1.0 / hyper.initial
+        x[m:] = np.tile(y, p)
+        rows_y.append(y)
+        rows_x.append(x)
+    if not rows_y:
+        return np.empty((0, n)), np.empty((0, k))
+    return np.array(rows_y), np.array(rows_x)

@@ -1,0 +1,230 @@
+"""Choosing hyperparameters and the lag order by marginal likelihood.
+
+Empirical Bayes (Giannone, Lenza & Primiceri 2015): maximise ``log p(Y | gamma)``, or
+with ``hyperprior=True`` the posterior mode ``log p(Y | gamma) + log p(gamma)`` under
+GLP's Gamma hyperpriors, over ``log gamma`` with gamma = (tightness[, sum_coef][,
+initial]). Lag orders are compared on a common sample (the first ``max_lags`` rows are
+presample for every order).
+
+When only the tightness is tuned, :class:`TightnessProfile` evaluates the marginal
+likelihood in O(k n^2 + n^3) per value after one eigendecomposition: the deterministic
+block is partialled out (its prior variance does not change with the tightness) and the
+remaining lag block of the posterior precision is ``D^-1/2 (W + I/lambda^2) D^-1/2``
+with a fixed W = Q diag(e) Q'.
+"""
+
+from __future__ import annotations
+
+import math
+import warnings
+from collections.abc import Callable
+from dataclasses import dataclass, replace
+
+import numpy as np
+from scipy.optimize import minimize, minimize_scalar
+from scipy.special import gammaln, multigammaln
+
+from ._types import FloatArray
+from .conjugate import log_marginal_likelihood
+from .data import Design
+from .errors import ConvergenceWarning
+from .shrinkage import (
+    MinnesotaHyper,
+    ar_residual_variances,
+    det_variances,
+    lag_variance_profile,
+    minnesota_prior,
+)
+
+__all__ = [
+    "BOUNDS",
+    "TightnessProfile",
+    "TuningResult",
+    "gamma_from_mode_sd",
+    "log_hyperprior",
+    "tune_hyperparameters",
+]
+
+#: search ranges (inclusive) of each tuned hyperparameter
+BOUNDS = {"tightness": (1e-4, 5.0), "sum_coef": (1e-3, 1e3), "initial": (1e-3, 1e3)}
+#: (mode, s.d.) of the Gamma hyperpriors of Giannone, Lenza & Primiceri (2015)
+HYPERPRIOR_MODE_SD = {"tightness": (0.2, 0.4), "sum_coef": (1.0, 1.0), "initial": (1.0, 1.0)}
+
+
+def gamma_from_mode_sd(mode: float, sd: float) -> tuple[float, float]:
+    """Shape and scale of the Gamma distribution with this mode and s.d.
+
+    The shape a solves a / (a - 1)^2 = (sd / mode)^2 (a > 1); scale = mode / (a - 1).
+    """
+    r = (sd / mode) ** 2
+    # a/(a-1)^2 = r  <=>  r a^2 - (2r + 1) a + r = 0, larger root
+    a = ((2 * r + 1) + math.sqrt((2 * r + 1) ** 2 - 4 * r * r)) / (2 * r)
+    return a, mode / (a - 1)
+
+
+def log_hyperprior(name: str, value: float) -> float:
+    """log Gamma density of one hyperparameter under GLP's hyperprior."""
+    a, scale = gamma_from_mode_sd(*HYPERPRIOR_MODE_SD[name])
+    return float((a - 1) * np.log(value) - value / scale - a * np.log(scale) - gammaln(a))
+
+
+@dataclass(frozen=True)
+class TuningResult:
+    """Chosen hyperparameters and the value of the objective there."""
+
+    hyper: MinnesotaHyper
+    log_ml: float
+    objective: float
+    tuned: tuple[str, ...]
+    evaluations: int
+
+
+class TightnessProfile:
+    """log p(Y | tightness) for a fixed design, psi, decay and det_scale, no dummies.
+
+    Cost: one eigendecomposition of size n*p at construction, O(k n^2 + n^3) per call.
+    """
+
+    def __init__(self, design: Design, hyper: MinnesotaHyper, prior_mean: FloatArray,
+                 psi: FloatArray) -> None:
+        m, n, T = design.n_det, design.n, design.nobs
+        X, Y = design.X, design.Y
+        Xd, Xl = X[:, :m], X[:, m:]
+        omega_d = det_variances(design, hyper.det_scale)
+        w = lag_variance_profile(design, psi, hyper.decay)
+        B0l = np.zeros((n * design.lags, n))
+        B0l[np.arange(n), np.arange(n)] = prior_mean
+        # partial out the deterministic block: P_dd = Xd'Xd + diag(1/omega_d)
+        P_dd = Xd.T @ Xd + np.diag(1.0 / omega_d)
+        C = np.linalg.cholesky(P_dd) if m else np.zeros((0, 0))
+        A_ld = Xl.T @ Xd
+        r_d = Xd.T @ Y
+        if m:
+            Ci_Adl = np.linalg.solve(C, A_ld.T)  # C^-1 A_dl, (m, np)
+            Ci_rd = np.linalg.solve(C, r_d)
+            A_tilde = Xl.T @ Xl - Ci_Adl.T @ Ci_Adl
+            g = Xl.T @ Y - Ci_Adl.T @ Ci_rd
+            quad_d = Ci_rd.T @ Ci_rd
+            logdet_Pdd = 2.0 * np.sum(np.log(np.diag(C)))
+        else:
+            A_tilde, g = Xl.T @ Xl, Xl.T @ Y
+            quad_d, logdet_Pdd = np.zeros((n, n)), 0.0
+        sw = np.sqrt(w)
+        e, Qm = np.linalg.eigh(sw[:, None] * A_tilde * sw[None, :])
+        self._e = np.clip(e, 0.0, None)
+        self._G1 = Qm.T @ (sw[:, None] * g)
+        self._G2 = Qm.T @ (B0l / sw[:, None])
+        self._B0WB0 = (B0l / w[:, None]).T @ B0l
+        df0 = n + 2.0
+        self._S0 = np.diag(psi * (df0 - n - 1))
+        self._YY_minus_d = Y.T @ Y - quad_d
+        self._const = (
+            -0.5 * n * T * np.log(np.pi)
+            + multigammaln(0.5 * (df0 + T), n)
+            - multigammaln(0.5 * df0, n)
+            - 0.5 * n * float(np.sum(np.log(omega_d)))
+            - 0.5 * n * float(np.sum(np.log(w)))
+            - 0.5 * n * logdet_Pdd
+            + 0.5 * n * float(np.sum(np.log(w)))  # from log|Sc| = -sum log w + ...
+            + 0.5 * df0 * float(np.sum(np.log(np.diag(self._S0))))
+        )
+        self._df = df0 + T
+        self._kl = n * design.lags
+        self._n = n
+
+    def __call__(self, tightness: float) -> float:
+        lam2 = tightness * tightness
+        H = self._G1 + self._G2 / lam2
+        d = 1.0 / (self._e + 1.0 / lam2)
+        quad = (H * d[:, None]).T @ H
+        S = self._S0 + self._YY_minus_d + self._B0WB0 / lam2 - quad
+        S = 0.5 * (S + S.T)
+        sign, logdet_S = np.linalg.slogdet(S)
+        if sign <= 0:
+            return -np.inf
+        logdet_Sc_part = float(np.sum(np.log(self._e + 1.0 / lam2)))
+        return float(
+            self._const
+            - self._n * self._kl * np.log(tightness)
+            - 0.5 * self._n * logdet_Sc_part
+            - 0.5 * self._df * logdet_S
+        )
+
+
+def _objective_factory(
+    design: Design, base: MinnesotaHyper, prior_mean: FloatArray, psi: FloatArray,
+    names: tuple[str, ...], hyperprior: bool,
+) -> Callable[[FloatArray], tuple[float, float]]:
+    """Map log-hyperparameters to (objective, log_ml)."""
+    profile = None
+    if names == ("tightness",) and base.sum_coef is None and base.initial is None:
+        profile = TightnessProfile(design, base, prior_mean, psi)
+
+    def evaluate(logs: FloatArray) -> tuple[float, float]:
+        values = dict(zip(names, np.exp(logs).tolist(), strict=True))
+        if profile is not None:
+            lml = profile(values["tightness"])
+        else:
+            hyper = replace(base, **values)
+            lml = log_marginal_likelihood(design, minnesota_prior(design, hyper, prior_mean, psi))
+        obj = lml
+        if hyperprior:
+            obj += sum(log_hyperprior(nm, v) for nm, v in values.items())
+        return obj, lml
+
+    return evaluate
+
+
+def tune_hyperparameters(
+    design: Design,
+    base: MinnesotaHyper,
+    prior_mean: FloatArray,
+    *,
+    tune: tuple[str, ...] = ("tightness",),
+    hyperprior: bool = False,
+    psi: FloatArray | None = None,
+) -> TuningResult:
+    """Maximise the (log) marginal likelihood, or the hyperparameter posterior, over ``tune``.
+
+    ``tune`` lists names among tightness, sum_coef and initial; a dummy weight can be
+    tuned only if it is switched on in ``base`` (its value there is the start).
+    """
+    psi = ar_residual_variances(design) if psi is None else psi
+    names = tuple(tune)
+    evaluate = _objective_factory(design, base, prior_mean, psi, names, hyperprior)
+    lo = np.log([BOUNDS[nm][0] for nm in names])
+    hi = np.log([BOUNDS[nm][1] for nm in names])
+    count = 0
+
+    def negative(logs: FloatArray) -> float:
+        nonlocal count
+        count += 1
+        val = evaluate(np.atleast_1d(logs))[0]
+        return -val if np.isfinite(val) else 1e300
+
+    if len(names) == 1:
+        # coarse grid then bounded Brent, so a multimodal profile does not trap us
+        grid = np.linspace(lo[0], hi[0], 25)
+        vals = [negative(np.array([g])) for g in grid]
+        i = int(np.argmin(vals))
+        a, b = grid[max(i - 1, 0)], grid[min(i + 1, len(grid) - 1)]
+        res = minimize_scalar(negative, bounds=(a, b), method="bounded",
+                              options={"xatol": 1e-6})
+        best = np.array([res.x])
+    else:
+        start = np.log([getattr(base, nm) for nm in names])
+        start = np.clip(start, lo, hi)
+        res = minimize(negative, start, method="L-BFGS-B", bounds=list(zip(lo, hi, strict=True)))
+        best = res.x
+    at_bound = np.isclose(best, lo, atol=1e-3) | np.isclose(best, hi, atol=1e-3)
+    if np.any(at_bound):
+        which = ", ".join(nm for nm, b in zip(names, at_bound, strict=True) if b)
+        warnings.warn(
+            f"marginal likelihood is largest at the edge of the search range for {which}; "
+            "the data barely inform it, consider fixing it",
+            ConvergenceWarning,
+            stacklevel=2,
+        )
+    obj, lml = evaluate(best)
+    hyper = replace(base, **dict(zip(names, np.exp(best).tolist(), strict=True)))
+    return TuningResult(hyper, lml, obj, names, count)

@@ -1,0 +1,117 @@
+"""Predictive paths: the fast sampler, the exact one-step predictive, coverage."""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+from scipy import stats
+
+from priors.conjugate import posterior
+from priors.data import Deterministics, build_design, future_exogenous_rows, load_series
+from priors.model import BayesVAR
+from priors.predictive import (
+    companion_spectral_radius,
+    simulate_paths,
+    simulate_paths_from_draws,
+)
+from priors.sampling import sample_posterior
+
+from .helpers import design_and_prior
+
+ALPHA = 1e-3  # family-wise false-alarm rate of each statistical check
+
+
+def _setup(known_var, rng, T=60, lags=1, n=2):
+    y = known_var.simulate(rng, T)[:, :n]
+    design, prior = design_and_prior(y, lags=lags)
+    post = posterior(design, prior)
+    series = load_series(y)
+    return design, post, series
+
+
+def test_fast_paths_match_explicit_parameter_draws(known_var, rng):
+    # The projection trick (draw Z'R^-T x_h by Gram-Schmidt) must give the same joint
+    # distribution as explicit (B, Sigma) draws. h = 8 > k = 3 also covers the steps
+    # where the projection vectors become linearly dependent.
+    design, post, series = _setup(known_var, rng)
+    h, S = 8, 40_000
+    exog = future_exogenous_rows(series, Deterministics(), h)
+    history = series.values[-1:]
+    fast = simulate_paths(np.random.default_rng(1), post, history, exog, S)
+    draws = sample_posterior(np.random.default_rng(2), post, S)
+    slow = simulate_paths_from_draws(np.random.default_rng(3), draws, history, exog)
+    se = np.sqrt(fast.var(0) / S + slow.var(0) / S)
+    z = (fast.mean(0) - slow.mean(0)) / se
+    assert np.abs(z).max() < stats.norm.ppf(1 - ALPHA / (2 * z.size))
+    np.testing.assert_allclose(fast.var(0), slow.var(0), rtol=0.06)
+    # dependence across steps and series: correlation of the flattened paths
+    cf = np.corrcoef(fast.reshape(S, -1), rowvar=False)
+    cs = np.corrcoef(slow.reshape(S, -1), rowvar=False)
+    assert np.abs(cf - cs).max() < 0.04  # about 4 s.e. of a correlation at 40k draws
+
+
+def test_one_step_predictive_is_multivariate_t(known_var, rng):
+    # Exact one-step predictive (methods sec. 7; Zellner 1971):
+    # y_T+1 ~ t_{nu-n+1}(B_bar'x, (1 + x'P^-1 x) S / (nu - n + 1)); scipy.stats oracle.
+    design, post, series = _setup(known_var, rng, lags=2)
+    exog = future_exogenous_rows(series, Deterministics(), 1)
+    history = series.values[-2:]
+    paths = simulate_paths(np.random.default_rng(4), post, history, exog, 30_000)[:, 0]
+    x = np.concatenate([exog[0], history[::-1].ravel()])
+    v = np.linalg.solve(post.R.T, x)
+    dof = post.df - post.n + 1
+    scale = (1.0 + v @ v) * post.S / dof
+    for i in range(post.n):
+        ref = stats.t(df=dof, loc=post.B[:, i] @ x, scale=np.sqrt(scale[i, i]))
+        assert stats.kstest(paths[:, i], ref.cdf).pvalue > ALPHA / post.n
+
+
+def test_same_seed_same_forecast_bit_for_bit(known_var, rng):
+    design, post, series = _setup(known_var, rng)
+    exog = future_exogenous_rows(series, Deterministics(), 5)
+    a = simulate_paths(np.random.default_rng(9), post, series.values[-1:], exog, 100)
+    b = simulate_paths(np.random.default_rng(9), post, series.values[-1:], exog, 100)
+    assert np.array_equal(a, b)
+
+
+def test_spectral_radius_matches_statsmodels_roots():
+    # Reference library: statsmodels' VARResults.roots are the inverse companion
+    # eigenvalues, so the spectral radius is 1 / min |root|.
+    import statsmodels.api as sm
+    from statsmodels.tsa.api import VAR
+
+    data = sm.datasets.macrodata.load_pandas().data
+    y = np.diff(np.log(data[["realgdp", "realcons", "realinv"]].to_numpy()), axis=0)
+    ref = VAR(y).fit(3)
+    radius = companion_spectral_radius(ref.params, 1, 3)
+    assert radius == pytest.approx(1.0 / np.abs(ref.roots).min(), rel=1e-10)
+
+
+def test_reject_explosive_keeps_only_stable_draws():
+    rng = np.random.default_rng(5)
+    y = np.cumsum(rng.standard_normal((40, 2)), axis=0)  # random walks: radius near 1
+    model = BayesVAR(lags=1, tightness=0.5).fit(y)
+    fc = model.forecast(6, rng=np.random.default_rng(1), draws=500, reject_explosive=True)
+    assert fc.paths.shape == (500, 6, 2)
+    assert fc.rejected_share is not None and 0.0 < fc.rejected_share < 1.0
+    plain = model.forecast(6, rng=np.random.default_rng(1), draws=500)
+    assert plain.rejected_share is None
+
+
+def test_interval_coverage_near_nominal_on_known_var(known_var):
+    # 200 replications of a known stationary VAR(2), T = 150, horizons 1..4.
+    # Tolerance: hits pool over 200 x 3 series, so the binomial s.e. of an 80% rate is
+    # about 0.016 and of a 95% rate about 0.009; we allow 3.5 s.e. plus 0.01 for the
+    # shrinkage prior (Bayesian intervals are not exact frequentist intervals).
+    rng = np.random.default_rng(77)
+    reps, h, T = 200, 4, 150
+    hits = {80: np.zeros((reps, h, 3)), 95: np.zeros((reps, h, 3))}
+    for r in range(reps):
+        y = known_var.simulate(rng, T + h)
+        model = BayesVAR(lags=2).fit(y[:T])
+        fc = model.forecast(h, rng=rng, draws=400)
+        for cov, band in fc.bands((80, 95)).items():
+            hits[int(cov)][r] = (band[0] <= y[T:]) & (y[T:] <= band[1])
+    for cov, se in ((80, 0.016), (95, 0.009)):
+        rate = hits[cov].mean(axis=(0, 2))  # per horizon
+        assert np.all(np.abs(rate - cov / 100) < 3.5 * se + 0.01), (cov, rate)

@@ -6,7 +6,14 @@ environment access. The estimator facade is :class:`BayesVAR`.
 
 from .calendar import Calendar
 from .conjugate import NIWPosterior, flat_posterior, log_marginal_likelihood, posterior
-from .data import Deterministics, Design, SeriesData, build_design, future_exogenous_rows, load_series
+from .data import (
+    Design,
+    Deterministics,
+    SeriesData,
+    build_design,
+    future_exogenous_rows,
+    load_series,
+)
 from .errors import (
     ConstantSeriesError,
     ConvergenceWarning,
@@ -38,8 +45,8 @@ __all__ = [
     "ConstantSeriesError",
     "ConvergenceWarning",
     "DataError",
-    "Deterministics",
     "Design",
+    "Deterministics",
     "Draws",
     "DuplicateNameError",
     "ExogenousError",

@@ -51,7 +51,8 @@ class Calendar:
         if self.kind == "quarterly":
             return tuple(f"quarter={q}" for q in range(2, 5))
         if self.kind == "daily":
-            return tuple(f"weekday={d}" for d in _WEEKDAYS[1:])
+            days = _WEEKDAYS[:5] if self.freq == "B" else _WEEKDAYS  # no weekend rows
+            return tuple(f"weekday={d}" for d in days[1:])
         if self.kind == "plain" and self.period is not None:
             return tuple(f"season={s}" for s in range(2, self.period + 1))
         raise SpecificationError(
@@ -69,7 +70,7 @@ class Calendar:
             return np.asarray(dates.quarter, dtype=np.int64) - 1
         if self.kind == "daily":
             assert dates is not None
-            return np.asarray(dates.dayofweek, dtype=np.int64)
+            return np.asarray(dates.day_of_week, dtype=np.int64)
         self.season_labels()  # raises for kinds without seasons
         assert self.period is not None
         return np.asarray(rows, dtype=np.int64) % self.period
@@ -80,6 +81,20 @@ def plain_calendar(period: int | None = None) -> Calendar:
     if period is not None and (int(period) != period or period < 2):
         raise SpecificationError(f"period must be an integer >= 2; got {period!r}")
     return Calendar(None, None, "plain", None if period is None else int(period))
+
+
+def _infer_freq(index: pd.DatetimeIndex) -> str | None:
+    """``pd.infer_freq`` as a string, without pandas' warning about its return type."""
+    with pd.option_context("future.infer_freq_returns_offset", True):
+        offset = pd.infer_freq(index)
+    return None if offset is None else offset.freqstr
+
+
+def _likely_freq(index: pd.DatetimeIndex) -> str | None:
+    """The most common frequency of runs of 3 timestamps (for pointing at a gap)."""
+    guesses = [_infer_freq(index[i : i + 3]) for i in range(min(len(index) - 2, 60))]
+    found = [g for g in guesses if g is not None]
+    return max(found, key=found.count) if found else None
 
 
 def _kind(offset: offsets.BaseOffset) -> str:
@@ -116,15 +131,19 @@ def calendar_from_index(index: pd.DatetimeIndex, freq: str | None = None) -> Cal
     if freq is None:
         if len(index) < 3:
             raise TimeIndexError("need at least 3 timestamps to tell the frequency")
-        freq = pd.infer_freq(index)
+        freq = _infer_freq(index)
     if freq is None:
-        expected = pd.date_range(index[0], periods=3, freq=pd.infer_freq(index[:3]) or "D")
-        gaps = np.diff(index.asi8)
-        where = int(np.argmax(gaps != gaps[0])) + 1
+        likely = _likely_freq(index)
+        if likely is None:
+            gaps = np.diff(index.asi8)
+            where, hint = int(np.argmax(gaps != gaps[0])) + 1, ""
+        else:
+            regular = pd.date_range(index[0], periods=len(index), freq=likely)
+            where = max(int(np.argmax(regular != index)), 1)
+            hint = f", expected {regular[where].date()} for frequency {likely!r}"
         raise TimeIndexError(
             f"timestamps are not evenly spaced (first break at {index[where].date()}, "
-            f"after {index[where - 1].date()}); give one row per period with no gaps "
-            f"(e.g. {expected[0].date()}, {expected[1].date()}, ...)"
+            f"after {index[where - 1].date()}{hint}); give one row per period with no gaps"
         )
     try:
         offset = pd.tseries.frequencies.to_offset(freq)

@@ -117,7 +117,12 @@ def _row_label(calendar: Calendar, row: int) -> str:
 def _as_frame(data: pd.DataFrame | FloatArray, names: Sequence[str] | None) -> pd.DataFrame:
     if isinstance(data, pd.DataFrame):
         frame = data
+        first_is_dates = frame.shape[1] and pd.api.types.is_datetime64_any_dtype(frame.iloc[:, 0])
+        if first_is_dates and not isinstance(frame.index, pd.DatetimeIndex):
+            frame = frame.set_index(frame.columns[0])
         if names is not None:
+            if len(names) != frame.shape[1]:
+                raise SpecificationError(f"got {len(names)} names for {frame.shape[1]} columns")
             frame = frame.set_axis(list(names), axis=1)
     elif isinstance(data, pd.Series):
         frame = data.to_frame()
@@ -204,7 +209,8 @@ def load_series(
     drop = levels.shape[0] - values.shape[0]
     calendar = calendar.drop_first(drop)
     for j, nm in enumerate(series_names):
-        if values.shape[0] > 0 and np.ptp(values[:, j]) == 0:
+        # relative tolerance: differences of e.g. 0.1 * t are constant only up to rounding
+        if values.shape[0] > 0 and np.ptp(values[:, j]) <= 1e-10 * np.abs(values[:, j]).max():
             unit = "its differences are" if tr[j] in DIFFERENCING else "it is"
             raise ConstantSeriesError(
                 f"series {nm!r} has no variation ({unit} constant at {values[0, j]:g}); "
@@ -222,7 +228,7 @@ def _load_exog(
     if exog is None:
         return np.empty((frame.shape[0], 0)), ()
     ex_frame = _as_frame(exog, None)
-    if isinstance(exog, np.ndarray):
+    if not isinstance(exog, pd.DataFrame | pd.Series):
         ex_frame.columns = [f"x{j + 1}" for j in range(ex_frame.shape[1])]
     if ex_frame.shape[0] != frame.shape[0]:
         raise ExogenousError(
@@ -332,7 +338,14 @@ def future_exogenous_rows(
             raise ExogenousError(f"future values of exogenous regressor {missing[0]!r} missing")
         fut = exog_future[list(series.exog_names)].to_numpy(dtype=np.float64, na_value=np.nan)
     else:
-        fut = np.asarray(exog_future, dtype=np.float64).reshape(-1, q)
+        fut = np.asarray(exog_future, dtype=np.float64)
+        if fut.ndim == 1 and q == 1:
+            fut = fut[:, None]
+        if fut.ndim != 2 or fut.shape[1] != q:
+            raise ExogenousError(
+                f"future exogenous values must have shape (horizon, {q}), one column per "
+                f"regressor ({', '.join(series.exog_names)}); got shape {fut.shape}"
+            )
     if fut.shape[0] < horizon:
         raise ExogenousError(
             f"exogenous regressors need future values for {horizon} steps; got {fut.shape[0]}"

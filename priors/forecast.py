@@ -44,12 +44,14 @@ def fan_bands(paths: FloatArray, coverages: Sequence[float]) -> dict[float, Floa
 
     Wider coverages contain narrower ones at every step (nested fan).
     """
-    fracs = band_levels(coverages)
+    pct = np.unique(np.asarray(list(coverages), dtype=np.float64))
+    fracs = band_levels(pct)
     lows = (1.0 - fracs) / 2.0
     levels = np.concatenate([lows, 1.0 - lows])
     qs = np.quantile(paths, levels, axis=0)
     m = fracs.size
-    return {float(100 * f): np.stack([qs[i], qs[m + i]]) for i, f in enumerate(fracs)}
+    # keys are the coverages as given: 100 * (29 / 100) is 28.999999999999996
+    return {float(c): np.stack([qs[i], qs[m + i]]) for i, c in enumerate(pct)}
 
 
 @dataclass(frozen=True)

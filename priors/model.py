@@ -15,7 +15,14 @@ from scipy import stats
 
 from ._types import FloatArray
 from .conjugate import NIWPosterior, flat_posterior, posterior
-from .data import Deterministics, Design, SeriesData, build_design, future_exogenous_rows, load_series
+from .data import (
+    Design,
+    Deterministics,
+    SeriesData,
+    build_design,
+    future_exogenous_rows,
+    load_series,
+)
 from .errors import NotFittedError, SpecificationError, TooFewObservationsError
 from .forecast import Forecast
 from .predictive import companion_spectral_radius, simulate_paths, simulate_paths_from_draws
@@ -44,6 +51,10 @@ def default_max_lags(kind: str) -> int:
     """Largest lag order searched by ``lags='auto'``: a year and one period for monthly
     and quarterly data, 8 weeks, two weeks of days, else 8 (common practice)."""
     return _MAX_LAGS.get(kind, 8)
+
+
+def _is_count(value: object) -> bool:
+    return isinstance(value, int | np.integer) and not isinstance(value, bool) and value >= 1
 
 
 def _bic(design: Design) -> float:
@@ -124,10 +135,11 @@ class BayesVAR:
     # ------------------------------------------------------------------ settings
     def _check_settings(self) -> None:
         if self.prior not in PRIORS:
-            raise SpecificationError(f"prior must be one of {', '.join(PRIORS)}; got {self.prior!r}")
-        if not (self.lags == "auto" or (isinstance(self.lags, int | np.integer) and self.lags >= 1)):
+            raise SpecificationError(
+                f"prior must be one of {', '.join(PRIORS)}; got {self.prior!r}")
+        if not (self.lags == "auto" or _is_count(self.lags)):
             raise SpecificationError(f"lags must be 'auto' or an integer >= 1; got {self.lags!r}")
-        if self.max_lags is not None and not (isinstance(self.max_lags, int) and self.max_lags >= 1):
+        if self.max_lags is not None and not _is_count(self.max_lags):
             raise SpecificationError(f"max_lags must be an integer >= 1; got {self.max_lags!r}")
         for name in ("tightness", "sum_coef", "initial"):
             v = getattr(self, name)
@@ -147,7 +159,8 @@ class BayesVAR:
             else:
                 values[name] = None if v is None else float(v)
         hyper = MinnesotaHyper(
-            tightness=values["tightness"] or 0.2, decay=float(self.decay),
+            tightness=values["tightness"] if values["tightness"] is not None else 0.2,
+            decay=float(self.decay),
             det_scale=float(self.det_scale), sum_coef=values["sum_coef"],
             initial=values["initial"],
         )
@@ -312,6 +325,16 @@ class BayesVAR:
         B = np.concatenate(kept_B)[:draws]
         Sig = np.concatenate(kept_S)[:draws]
         return Draws(B, Sig), 1.0 - have / total
+
+    def spectral_radius(self, draws: int = 1000, *, rng: np.random.Generator) -> FloatArray:
+        """Posterior draws of the companion matrix's spectral radius, (draws,).
+
+        Values >= 1 mean explosive dynamics. Costs one (n p) x (n p) eigenvalue problem
+        per draw.
+        """
+        self._check_fitted()
+        B = self.sample(draws, rng=rng).B
+        return companion_spectral_radius(B, self.design_.n_det, self.lags_)
 
     def coefficients(self, level: float = 0.9) -> pd.DataFrame:
         """Posterior mean, s.d. and central credible interval of every coefficient.

@@ -34,6 +34,15 @@ from .errors import ConstantSeriesError, SpecificationError
 __all__ = ["MinnesotaHyper", "NIWPrior", "ar_residual_variances", "minnesota_prior"]
 
 
+#: accepted ranges: beyond them the prior variances under- or overflow
+_RANGES = {
+    "tightness": (1e-6, 1e3),
+    "det_scale": (1e-6, 1e8),
+    "sum_coef": (1e-6, 1e6),
+    "initial": (1e-6, 1e6),
+}
+
+
 @dataclass(frozen=True)
 class MinnesotaHyper:
     """Hyperparameters of the Minnesota prior.
@@ -53,10 +62,12 @@ class MinnesotaHyper:
     initial: float | None = None
 
     def __post_init__(self) -> None:
-        for name in ("tightness", "det_scale", "sum_coef", "initial"):
+        for name, (lo, hi) in _RANGES.items():
             v = getattr(self, name)
-            if v is not None and not (np.isfinite(v) and v > 0):
-                raise SpecificationError(f"{name} must be a positive number; got {v!r}")
+            if v is not None and not (np.isfinite(v) and lo <= v <= hi):
+                raise SpecificationError(
+                    f"{name} must be a number between {lo:g} and {hi:g}; got {v!r}"
+                )
         if not (np.isfinite(self.decay) and self.decay >= 0):
             raise SpecificationError(f"decay must be >= 0; got {self.decay!r}")
 
@@ -136,7 +147,7 @@ def minnesota_prior(
     prior_mean : (n,) prior mean of each series' own first-lag coefficient.
     psi : (n,) scales; default :func:`ar_residual_variances`.
     """
-    n, m, k, p = design.n, design.n_det, design.k, design.lags
+    n, m, k = design.n, design.n_det, design.k
     prior_mean = np.asarray(prior_mean, dtype=np.float64)
     if prior_mean.shape != (n,):
         raise SpecificationError(f"prior_mean must have one value per series ({n})")

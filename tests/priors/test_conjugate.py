@@ -132,3 +132,14 @@ def test_collinear_regressors_raise_not_positive_definite():
     design = build_design(load_series(y), 1, Deterministics())
     with pytest.raises(NotPositiveDefiniteError, match="collinear"):
         flat_posterior(design)
+
+
+@pytest.mark.parametrize("dummies", [(None, None), (0.7, None), (None, 2.0), (0.5, 1.5)])
+def test_fast_log_ml_equals_qr_route(known_var, rng, dummies):
+    from priors.conjugate import Moments, log_marginal_likelihood_fast
+
+    y = known_var.simulate(rng, 80) + 20.0
+    design, prior = design_and_prior(y, lags=3, sum_coef=dummies[0], initial=dummies[1])
+    exact = log_marginal_likelihood(design, prior)
+    fast = log_marginal_likelihood_fast(Moments.of(design), prior)
+    assert fast == pytest.approx(exact, rel=1e-9)

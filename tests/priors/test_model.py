@@ -16,7 +16,8 @@ EXAMPLES = Path(__file__).resolve().parents[2] / "examples"
 
 
 def _demo():
-    spec = importlib.util.spec_from_file_location("make_demo", EXAMPLES / "make_bike_parts_demand.py")
+    path = EXAMPLES / "make_bike_parts_demand.py"
+    spec = importlib.util.spec_from_file_location("make_demo", path)
     module = importlib.util.module_from_spec(spec)
     assert spec.loader is not None
     spec.loader.exec_module(module)

@@ -7,7 +7,7 @@ import pytest
 from scipy import stats
 
 from priors.conjugate import posterior
-from priors.data import Deterministics, build_design, future_exogenous_rows, load_series
+from priors.data import Deterministics, future_exogenous_rows, load_series
 from priors.model import BayesVAR
 from priors.predictive import (
     companion_spectral_radius,
@@ -96,6 +96,9 @@ def test_reject_explosive_keeps_only_stable_draws():
     assert fc.rejected_share is not None and 0.0 < fc.rejected_share < 1.0
     plain = model.forecast(6, rng=np.random.default_rng(1), draws=500)
     assert plain.rejected_share is None
+    radius = model.spectral_radius(2000, rng=np.random.default_rng(2))
+    # the reported share matches the posterior probability of an explosive draw
+    assert fc.rejected_share == pytest.approx(np.mean(radius >= 1.0), abs=0.05)
 
 
 def test_interval_coverage_near_nominal_on_known_var(known_var):

@@ -1,0 +1,290 @@
+"""Command line: ``fanfold forecast DATA.csv --horizon 12`` and ``fanfold fit DATA.csv``.
+
+Parses the arguments, reads the CSV, calls :class:`priors.BayesVAR` and prints text
+(:mod:`service.tables`) or JSON (:mod:`service.serialization`). Every expected failure
+is one line ``fanfold: error: <message>`` on stderr, with exit status 2 for a bad command
+line or model settings (:class:`priors.SpecificationError`) and 1 for a data file that
+cannot be read or used (any other :class:`priors.PriorsError`).
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+import math
+import os
+import secrets
+import sys
+import warnings
+from collections.abc import Callable, Sequence
+from importlib.metadata import PackageNotFoundError, version
+from typing import Any, NoReturn
+
+import numpy as np
+import pandas as pd
+
+from priors import TRANSFORMS, BayesVAR, ConvergenceWarning, PriorsError, SpecificationError
+from priors.model import default_max_lags
+
+from .serialization import forecast_to_dict, frame_from_csv, quantile_key, summary_to_dict
+from .tables import format_fit, format_forecast
+
+__all__ = ["InputError", "UsageError", "build_parser", "main", "read_data"]
+
+EXIT_DATA, EXIT_USAGE = 1, 2
+PRIORS = ("minnesota", "flat")  # as accepted by BayesVAR(prior=...)
+
+
+class UsageError(Exception):
+    """A bad command line (exit status 2)."""
+
+
+class InputError(Exception):
+    """A data file that cannot be read, or an output file that cannot be written (1)."""
+
+
+def _one_line(text: object) -> str:
+    return " ".join(str(text).split())
+
+
+def read_data(path: str) -> pd.DataFrame:
+    """The series in the CSV file at ``path``, see :func:`frame_from_csv`."""
+    try:
+        with open(path, encoding="utf-8-sig", newline="") as fh:
+            text = fh.read()
+    except FileNotFoundError:
+        raise InputError(f"data file {path!r} not found") from None
+    except (OSError, UnicodeDecodeError) as exc:
+        raise InputError(f"cannot read data file {path!r}: {_one_line(exc)}") from exc
+    return frame_from_csv(text)
+
+
+# ---------------------------------------------------------------------- option types
+def _fail(message: str) -> NoReturn:
+    raise argparse.ArgumentTypeError(message)
+
+
+def _integer(low: int) -> Callable[[str], int]:
+    def parse(text: str) -> int:
+        try:
+            value = int(text)
+        except ValueError:
+            value = low - 1
+        if value < low:
+            _fail(f"expected an integer >= {low}; got {text!r}")
+        return value
+
+    return parse
+
+
+def _number(text: str, low: float = 0.0, high: float = math.inf) -> float:
+    try:
+        value = float(text)
+    except ValueError:
+        value = math.nan
+    if not low < value < high:
+        between = f"> {low:g}" if high == math.inf else f"strictly between {low:g} and {high:g}"
+        _fail(f"expected a number {between}; got {text!r}")
+    return value
+
+
+def _level(text: str) -> float:
+    return _number(text, 0.0, 1.0)
+
+
+def _quantiles(text: str) -> tuple[float, ...]:
+    levels = sorted({_level(p) for p in (s.strip() for s in text.split(",")) if p})
+    keys = {quantile_key(q) for q in levels}
+    if not levels or len(keys) < len(levels):
+        _fail(f"expected distinct levels in (0, 1) such as 0.05,0.5,0.95; got {text!r}")
+    return tuple(levels)
+
+
+def _transform_name(name: str) -> str:
+    if name not in TRANSFORMS:
+        _fail(f"unknown transform {name!r}; choose one of {', '.join(TRANSFORMS)}")
+    return name
+
+
+def _transform(text: str) -> str | dict[str, str]:
+    if "=" not in text:
+        return _transform_name(text.strip())
+    spec: dict[str, str] = {}
+    for item in text.split(","):
+        series, sep, name = (s.strip() for s in item.partition("="))
+        if not (series and sep) or series in spec:
+            _fail("expected one name for all series or SERIES=TRANSFORM pairs with distinct "
+                  f"series, like tyres=log,chains=diff; got {text!r}")
+        spec[series] = _transform_name(name)
+    return spec
+
+
+_positive_int, _seed = _integer(1), _integer(0)
+
+
+def _lags(text: str) -> int | str:
+    return "auto" if text == "auto" else _positive_int(text)
+
+
+def _tightness(text: str) -> float | str:
+    return "auto" if text == "auto" else _number(text)
+
+
+# ---------------------------------------------------------------------- parser
+class _Parser(argparse.ArgumentParser):
+    def error(self, message: str) -> NoReturn:
+        raise UsageError(f"{message} (see '{self.prog} --help')")
+
+
+class _HelpFormatter(argparse.ArgumentDefaultsHelpFormatter):
+    """Appends "(default: X)" unless the help text already states the default."""
+
+    def _get_help_string(self, action: argparse.Action) -> str:
+        text = action.help or ""
+        if "default" in text or action.default is None or action.required:
+            return text
+        return super()._get_help_string(action) or text
+
+
+def _model_options() -> argparse.ArgumentParser:
+    parent = _Parser(add_help=False)
+    g = parent.add_argument_group("model options")
+    g.add_argument("--lags", type=_lags, default="auto", metavar="N|auto",
+                   help="lag order, or 'auto' to choose 1..--max-lags by marginal likelihood "
+                        "(by BIC with --prior flat)")
+    g.add_argument("--max-lags", type=_positive_int, metavar="N",
+                   help="largest lag order tried by --lags auto (default: by data frequency: "
+                        + ", ".join(f"{default_max_lags(kind)} {kind}" for kind in
+                                    ("monthly", "quarterly", "weekly", "daily"))
+                        + f", else {default_max_lags('other')})")
+    g.add_argument("--prior", choices=PRIORS, default="minnesota",
+                   help="Minnesota shrinkage, or flat (posterior mean = OLS estimates)")
+    g.add_argument("--tightness", type=_tightness, default="auto", metavar="X|auto",
+                   help="prior s.d. of each series' own first lag, or 'auto' to maximise the "
+                        "marginal likelihood; ignored with --prior flat")
+    g.add_argument("--transform", type=_transform, metavar="SPEC",
+                   help=f"{', '.join(TRANSFORMS)} for all series, or per series such as "
+                        "tyres=log,chains=diff; forecasts are back in the data's units "
+                        "(default: none)")
+    g.add_argument("--seasonal", action="store_true",
+                   help="add seasonal dummies (months, quarters or weekdays, by the data's "
+                        "frequency)")
+    g.add_argument("--trend", action="store_true", help="add a linear time trend")
+    g.add_argument("--no-constant", dest="constant", action="store_false",
+                   help="leave out the constant (default: keep it)")
+    return parent
+
+
+def build_parser() -> argparse.ArgumentParser:
+    """The ``fanfold`` parser with its ``forecast`` and ``fit`` commands."""
+    parser = _Parser(prog="fanfold", formatter_class=_HelpFormatter,
+                     description="Bayesian VAR forecasts of monthly (or other regular) "
+                                 "demand series from a CSV file.")
+    parser.add_argument("--version", action="version", version=f"%(prog)s {_version()}")
+    sub = parser.add_subparsers(dest="command", metavar="COMMAND", required=True)
+    common = {"parents": [_model_options()], "formatter_class": _HelpFormatter}
+    data_help = "CSV file: a header row, dates in the first column, one column per series"
+
+    fc = sub.add_parser("forecast", help="forecast every series with uncertainty bands",
+                        description="Fit the model and print the forecast of every series.",
+                        **common)
+    fc.add_argument("data", metavar="DATA.csv", help=data_help)
+    fc.add_argument("--horizon", type=_positive_int, required=True, metavar="H",
+                    help="number of periods ahead (required)")
+    fc.add_argument("--draws", type=_positive_int, default=2000, metavar="N",
+                    help="simulated paths")
+    fc.add_argument("--seed", type=_seed, metavar="S",
+                    help="random seed (default: a fresh random seed, printed with the output)")
+    fc.add_argument("--quantiles", type=_quantiles, default="0.05,0.5,0.95", metavar="Q,...",
+                    help="comma-separated quantile levels in (0, 1)")
+    fc.add_argument("--out", metavar="FILE.csv",
+                    help="also write a tidy CSV: series, date, step, mean, median, "
+                         "q<level>... (default: no file)")
+    fc.add_argument("--json", action="store_true", help="print JSON instead of tables")
+    fc.set_defaults(run=_forecast)
+
+    fit = sub.add_parser("fit", help="fit the model and summarise the posterior",
+                         description="Fit the model and print the chosen lags, "
+                                     "hyperparameters and (with --summary) the posterior.",
+                         **common)
+    fit.add_argument("data", metavar="DATA.csv", help=data_help)
+    fit.add_argument("--summary", action="store_true",
+                     help="also print lag search, coefficients and the error covariance")
+    fit.add_argument("--level", type=_level, default=0.9,
+                     help="coverage of the coefficients' credible intervals")
+    fit.add_argument("--json", action="store_true",
+                     help="print the full summary as JSON (implies --summary)")
+    fit.set_defaults(run=_fit)
+    return parser
+
+
+def _version() -> str:
+    try:
+        return version("fanfold")
+    except PackageNotFoundError:
+        return "unknown"
+
+
+# ---------------------------------------------------------------------- commands
+def _fitted(args: argparse.Namespace) -> BayesVAR:
+    model = BayesVAR(lags=args.lags, max_lags=args.max_lags, prior=args.prior,
+                     tightness=args.tightness, constant=args.constant, trend=args.trend,
+                     seasonal=args.seasonal, transforms=args.transform)
+    return model.fit(read_data(args.data))
+
+
+def _json(payload: dict[str, Any]) -> str:
+    return json.dumps(payload, indent=2, allow_nan=False)
+
+
+def _forecast(args: argparse.Namespace) -> str:
+    model = _fitted(args)
+    seed = secrets.randbits(32) if args.seed is None else args.seed
+    fc = model.forecast(args.horizon, rng=np.random.default_rng(seed), draws=args.draws)
+    if args.out:
+        table = fc.to_frame(args.quantiles)
+        try:
+            table.to_csv(args.out, index=False)
+        except OSError as exc:
+            raise InputError(f"cannot write {args.out!r}: {_one_line(exc)}") from exc
+        print(f"fanfold: wrote {len(table)} rows to {args.out}", file=sys.stderr)
+    payload = forecast_to_dict(model, fc, quantiles=args.quantiles, seed=seed, draws=args.draws)
+    return _json(payload) if args.json else format_forecast(payload)
+
+
+def _fit(args: argparse.Namespace) -> str:
+    model = _fitted(args)
+    payload = summary_to_dict(model, args.level)
+    if args.json:
+        return _json(payload)
+    return format_fit(payload, prior=args.prior, level=args.level, summary=args.summary)
+
+
+def _run(args: argparse.Namespace) -> str:
+    """Run the command; warnings (e.g. tuning at a bound) become one-line notes, each once."""
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always", ConvergenceWarning)
+        try:
+            return args.run(args)
+        finally:
+            for message in dict.fromkeys(_one_line(w.message) for w in caught):
+                print(f"fanfold: warning: {message}", file=sys.stderr)
+
+
+def main(argv: Sequence[str] | None = None) -> int:
+    """Entry point of the ``fanfold`` command; returns the exit status."""
+    try:
+        args = build_parser().parse_args(argv)
+        print(_run(args))
+    except SystemExit as exc:  # --help and --version
+        return exc.code if isinstance(exc.code, int) else 0
+    except BrokenPipeError:  # e.g. piped into `head`: stop quietly
+        os.dup2(os.open(os.devnull, os.O_WRONLY), sys.stdout.fileno())
+        return EXIT_DATA
+    except (UsageError, SpecificationError) as exc:
+        print(f"fanfold: error: {_one_line(exc)}", file=sys.stderr)
+        return EXIT_USAGE
+    except (InputError, PriorsError) as exc:
+        print(f"fanfold: error: {_one_line(exc)}", file=sys.stderr)
+        return EXIT_DATA
+    return 0

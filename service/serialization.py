@@ -1,0 +1,185 @@
+"""Wire formats: CSV data in, plain JSON-ready dicts out.
+
+Pure functions shared by the CLI and the HTTP API. :func:`frame_from_csv` turns the text
+of a data file into the DataFrame :meth:`priors.BayesVAR.fit` takes. The ``*_to_dict``
+functions read a fitted :class:`priors.BayesVAR` and its :class:`priors.Forecast`: numpy
+scalars and arrays become ``int``, ``float`` and nested ``list``, and every NaN or
+infinite number becomes ``None`` (JSON ``null``), so ``json.dumps(..., allow_nan=False)``
+always succeeds.
+"""
+
+from __future__ import annotations
+
+import csv
+import io
+import math
+import warnings
+from collections.abc import Sequence
+from typing import Any
+
+import numpy as np
+import pandas as pd
+
+from priors import BayesVAR, DataError, Forecast, TimeIndexError
+from priors.forecast import check_quantiles
+
+__all__ = ["forecast_to_dict", "frame_from_csv", "quantile_key", "summary_to_dict"]
+
+_DATE_HINT = "write dates like 2016-01-01 in the first column"
+
+
+def frame_from_csv(text: str) -> pd.DataFrame:
+    """Series from CSV text: a header row, dates in the first column, one column per series.
+
+    Returns a DataFrame indexed by the dates; :meth:`priors.BayesVAR.fit` checks the rest
+    (numbers, gaps, missing values...). Raises :class:`priors.DataError` (unreadable CSV,
+    no series column) or :class:`priors.TimeIndexError` (first column not dates).
+    """
+    try:
+        frame = pd.read_csv(io.StringIO(text))
+    except (pd.errors.ParserError, pd.errors.EmptyDataError) as exc:
+        raise DataError(f"cannot read the data as CSV: {' '.join(str(exc).split())}") from exc
+    if frame.shape[1] < 2:
+        raise DataError("the data need a date column and at least one series column, "
+                        f"separated by commas; found {frame.shape[1]} column(s)")
+    header = next(csv.reader(io.StringIO(text)), [])
+    if len(header) == frame.shape[1] and len(set(header)) < len(header):
+        frame.columns = header  # keep duplicate names, which pandas renames "x.1"
+    name = str(frame.columns[0])
+    series = frame.iloc[:, 1:]
+    series.index = pd.DatetimeIndex(_parse_dates(frame.iloc[:, 0], name), name=name)
+    return series
+
+
+def _parse_dates(column: pd.Series, name: str) -> pd.Series:
+    if pd.api.types.is_numeric_dtype(column) or pd.api.types.is_bool_dtype(column):
+        raise TimeIndexError(f"the first column {name!r} must hold dates but holds numbers "
+                             f"(e.g. {column.iloc[0]}); {_DATE_HINT}")
+    missing = np.flatnonzero(column.isna().to_numpy())
+    if missing.size:
+        raise TimeIndexError(f"the first column {name!r} has no date in data row "
+                             f"{missing[0] + 1}")
+    try:
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore", UserWarning)  # "could not infer format"
+            return pd.to_datetime(column)
+    except (ValueError, TypeError, OverflowError) as exc:
+        reason = (str(exc).splitlines() or [type(exc).__name__])[0]
+        reason = reason.split(". You might want to try")[0].rstrip(":. ")
+        raise TimeIndexError(f"cannot read the first column {name!r} as dates ({reason}); "
+                             f"{_DATE_HINT}") from exc
+
+
+def quantile_key(level: float) -> str:
+    """Name of a quantile level in JSON: ``format(level, "g")``, e.g. "0.05"."""
+    return format(float(level), "g")
+
+
+def _num(value: Any) -> float | None:
+    """A finite Python float, or None for None, NaN and +-inf."""
+    if value is None:
+        return None
+    x = float(value)
+    return x if math.isfinite(x) else None
+
+
+def _nums(values: Any) -> list[Any]:
+    """An array of any shape as nested lists of floats, non-finite entries as None."""
+    arr = np.asarray(values, dtype=np.float64)
+    out = arr.astype(object)
+    out[~np.isfinite(arr)] = None
+    return out.tolist()
+
+
+def _hyperparameters(model: BayesVAR) -> dict[str, float | None]:
+    return {k: _num(v) for k, v in model.hyperparameters().items() if k != "lags"}
+
+
+def forecast_to_dict(
+    model: BayesVAR, forecast: Forecast, *, quantiles: Sequence[float], seed: int, draws: int
+) -> dict[str, Any]:
+    """The one-shot forecast answer shared by the CLI (``--json``) and the HTTP API.
+
+    Layout::
+
+        {"forecasts": {name: {"dates": [...], "mean": [...], "median": [...],
+                              "quantiles": {"0.05": [...], ...}}, ...},
+         "lags": int, "hyperparameters": {...}, "log_marginal_likelihood": float | None,
+         "seed": int, "draws": int, "horizon": int}
+
+    ``dates`` are ISO dates (or "1".."h" for data without dates); each list has one value
+    per step. ``hyperparameters`` are those of ``model.hyperparameters()`` except lags.
+    """
+    levels = check_quantiles(quantiles)
+    keys = [quantile_key(q) for q in levels]
+    if len(set(keys)) != len(keys):
+        raise ValueError(f"quantile levels {list(levels)} are not distinct at 6 digits")
+    mean, median, qs = forecast.mean(), forecast.median(), forecast.quantiles(levels)
+    steps = forecast.steps()
+    series = {
+        name: {
+            "dates": list(steps),
+            "mean": _nums(mean[:, j]),
+            "median": _nums(median[:, j]),
+            "quantiles": {key: _nums(qs[i, :, j]) for i, key in enumerate(keys)},
+        }
+        for j, name in enumerate(forecast.names)
+    }
+    return {
+        "forecasts": series,
+        "lags": int(model.lags_),
+        "hyperparameters": _hyperparameters(model),
+        "log_marginal_likelihood": _num(model.log_ml_),
+        "seed": int(seed),
+        "draws": int(draws),
+        "horizon": int(forecast.horizon),
+    }
+
+
+def _span(model: BayesVAR) -> dict[str, Any]:
+    """The estimation sample: dates of the first and last rows of Y, and their count."""
+    index = model.series_.calendar.index
+    nobs = int(model.design_.nobs)
+    if index is None:
+        total = model.series_.nobs
+        return {"start": str(total - nobs + 1), "end": str(total), "observations": nobs}
+    sample = index[-nobs:]
+    return {"start": sample[0].date().isoformat(), "end": sample[-1].date().isoformat(),
+            "observations": nobs}
+
+
+def summary_to_dict(model: BayesVAR, level: float = 0.9) -> dict[str, Any]:
+    """Posterior summary of a fitted model.
+
+    Layout::
+
+        {"lags": int, "hyperparameters": {...}, "log_marginal_likelihood": float | None,
+         "lag_search": [{"lags", "score", "tightness", "criterion"}, ...],
+         "coefficients": [{"equation", "regressor", "mean", "sd", "lower", "upper"}, ...],
+         "sigma": {"names": [...], "mean": [[...], ...]},
+         "span": {"start": str, "end": str, "observations": int}}
+
+    ``lower``/``upper`` bound the central ``level`` credible interval; ``lag_search`` is
+    empty unless the lag order was chosen by ``lags="auto"``; ``span`` is the estimation
+    sample (the data minus presample rows, and the row lost to differencing if any).
+    """
+    coefs = model.coefficients(level)
+    sigma = model.sigma_mean()
+    return {
+        "lags": int(model.lags_),
+        "hyperparameters": _hyperparameters(model),
+        "log_marginal_likelihood": _num(model.log_ml_),
+        "lag_search": [
+            {"lags": int(c.lags), "score": _num(c.score), "tightness": _num(c.tightness),
+             "criterion": str(c.criterion)}
+            for c in model.lag_search_
+        ],
+        "coefficients": [
+            {"equation": str(row.equation), "regressor": str(row.regressor),
+             "mean": _num(row.mean), "sd": _num(row.sd), "lower": _num(row.lower),
+             "upper": _num(row.upper)}
+            for row in coefs.itertuples(index=False)
+        ],
+        "sigma": {"names": [str(c) for c in sigma.columns], "mean": _nums(sigma.to_numpy())},
+        "span": _span(model),
+    }

@@ -1,0 +1,126 @@
+"""Plain fixed-width text views of the dicts built by :mod:`service.serialization`.
+
+Each ``format_*`` function takes such a dict and returns the text as one string, so the
+text and the JSON output always come from the same numbers.
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Iterable, Sequence
+from typing import Any
+
+__all__ = ["decimals_for", "format_fit", "format_forecast", "render_table"]
+
+_MISSING = "-"
+
+
+def render_table(header: Sequence[str], rows: Iterable[Sequence[str]], indent: str = "  ") -> str:
+    """Columns padded to their widest cell: the first left-aligned, the others right."""
+    rows = [list(r) for r in rows]
+    widths = [max(len(str(c)) for c in col) for col in zip(header, *rows, strict=True)]
+
+    def line(cells: Sequence[str]) -> str:
+        parts = [str(cells[0]).ljust(widths[0])]
+        parts += [str(c).rjust(w) for c, w in zip(cells[1:], widths[1:], strict=True)]
+        return (indent + "  ".join(parts)).rstrip()
+
+    return "\n".join([line(header), *(line(r) for r in rows)])
+
+
+def decimals_for(values: Iterable[float | None], digits: int = 4) -> int:
+    """Decimals that show the largest absolute value with about ``digits`` significant
+    digits (0 for values of 1000 and more, at most 6)."""
+    finite = [abs(v) for v in values if v is not None and math.isfinite(v) and v != 0]
+    if not finite:
+        return 0
+    return min(max(digits - 1 - math.floor(math.log10(max(finite))), 0), 6)
+
+
+def _fixed(value: float | None, decimals: int) -> str:
+    return _MISSING if value is None else f"{value:.{decimals}f}"
+
+
+def _g(value: float | None, digits: int = 4) -> str:
+    return _MISSING if value is None else f"{value:.{digits}g}"
+
+
+def _hyper_line(hyper: dict[str, float | None]) -> str:
+    if all(v is None for v in hyper.values()):
+        return "hyperparameters: none (flat prior)"
+    return "hyperparameters: " + "  ".join(
+        f"{k}={'off' if v is None else _g(v)}" for k, v in hyper.items()
+    )
+
+
+def _log_ml_line(log_ml: float | None) -> str:
+    shown = "n/a (flat prior)" if log_ml is None else f"{log_ml:.2f}"
+    return f"log marginal likelihood: {shown}"
+
+
+def format_forecast(payload: dict[str, Any]) -> str:
+    """One table per series: date, mean, median and the quantiles, step by step."""
+    forecasts = payload["forecasts"]
+    out = [
+        f"Fanfold forecast: {len(forecasts)} series, {payload['horizon']} steps ahead, "
+        f"VAR({payload['lags']}), {payload['draws']} draws, seed {payload['seed']} "
+        f"(rerun with --seed {payload['seed']} to reproduce)",
+        _hyper_line(payload["hyperparameters"]),
+        _log_ml_line(payload["log_marginal_likelihood"]),
+    ]
+    for name, fc in forecasts.items():
+        columns = {"mean": fc["mean"], "median": fc["median"]}
+        columns.update({f"q{k}": v for k, v in fc["quantiles"].items()})
+        dec = decimals_for(v for col in columns.values() for v in col)
+        rows = [
+            [date, *(_fixed(col[h], dec) for col in columns.values())]
+            for h, date in enumerate(fc["dates"])
+        ]
+        out += ["", name, render_table(["date", *columns], rows)]
+    return "\n".join(out)
+
+
+def _lag_search(search: list[dict[str, Any]], chosen: int) -> list[str]:
+    criterion = search[0]["criterion"]
+    better = "higher" if criterion == "log_ml" else "lower"
+    tuned = any(c["tightness"] is not None for c in search)
+    rows = [
+        [("* " if c["lags"] == chosen else "  ") + str(c["lags"]),
+         _MISSING if c["score"] is None else f"{c['score']:.2f}",
+         *([_g(c["tightness"])] if tuned else [])]
+        for c in search
+    ]
+    header = ["lags", "score", *(["tightness"] if tuned else [])]
+    return [f"lag search ({criterion} on a common sample, {better} is better; * chosen):",
+            render_table(header, rows)]
+
+
+def format_fit(payload: dict[str, Any], *, prior: str, level: float, summary: bool) -> str:
+    """The fitted model; with ``summary`` also lag search, coefficients and Sigma."""
+    span = payload["span"]
+    out = [
+        f"Fanfold fit: VAR({payload['lags']}), {prior} prior",
+        f"estimation sample: {span['start']} to {span['end']} "
+        f"({span['observations']} observations)",
+        _hyper_line(payload["hyperparameters"]),
+        _log_ml_line(payload["log_marginal_likelihood"]),
+    ]
+    if not summary:
+        out.append("(add --summary for coefficients and the error covariance)")
+        return "\n".join(out)
+    if payload["lag_search"]:
+        out += ["", *_lag_search(payload["lag_search"], payload["lags"])]
+    out += ["", f"coefficients (posterior mean, sd and {100 * level:g}% credible interval):"]
+    equations: dict[str, list[list[str]]] = {}
+    for c in payload["coefficients"]:
+        equations.setdefault(c["equation"], []).append(
+            [c["regressor"], *(_g(c[k]) for k in ("mean", "sd", "lower", "upper"))]
+        )
+    for eq, rows in equations.items():
+        out += ["", f"equation {eq}",
+                render_table(["regressor", "mean", "sd", "lower", "upper"], rows)]
+    names = payload["sigma"]["names"]
+    rows = [[nm, *(_g(v) for v in row)] for nm, row in
+            zip(names, payload["sigma"]["mean"], strict=True)]
+    out += ["", "error covariance Sigma (posterior mean):", render_table(["", *names], rows)]
+    return "\n".join(out)

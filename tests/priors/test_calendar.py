@@ -1,0 +1,158 @@
+"""Time index: validation, frequency detection, future dates and seasonal labels."""
+
+from __future__ import annotations
+
+import numpy as np
+import pandas as pd
+import pytest
+
+from priors.calendar import calendar_from_index, plain_calendar
+from priors.data import load_series
+from priors.errors import SpecificationError, TimeIndexError
+
+
+def _dates(freq: str, periods: int = 24, start: str = "2021-01-01") -> pd.DatetimeIndex:
+    """Dates as a user would read them from a file: regular, but with no ``freq`` set."""
+    return pd.DatetimeIndex(list(pd.date_range(start, periods=periods, freq=freq)))
+
+
+# ---------------------------------------------------------------- bad indexes
+
+
+def test_duplicate_timestamp_is_named():
+    idx = _dates("MS", 6)
+    idx = idx.insert(3, idx[3])
+    with pytest.raises(TimeIndexError, match=r"2021-04-01 appears more than once; keep one row"):
+        calendar_from_index(idx)
+
+
+def test_unsorted_timestamps():
+    idx = _dates("MS", 6)[[0, 2, 1, 3, 4, 5]]
+    with pytest.raises(TimeIndexError, match="not in increasing order; sort the rows by date"):
+        calendar_from_index(idx)
+
+
+@pytest.mark.parametrize(
+    ("freq", "start", "after", "at", "expected"),
+    [
+        ("MS", "2021-01-01", "2021-06-01", "2021-08-01", "2021-07-01"),
+        ("ME", "2021-01-31", "2021-06-30", "2021-08-31", "2021-07-31"),
+        ("D", "2021-01-01", "2021-01-06", "2021-01-08", "2021-01-07"),
+    ],
+)
+def test_gap_names_the_first_missing_period(freq, start, after, at, expected):
+    # months differ in length, so the break must be found against the calendar, not by
+    # comparing raw spacings (that pointed at the first 31-day month instead)
+    idx = _dates(freq, 12, start).delete(6)
+    match = rf"not evenly spaced \(first break at {at}, after {after}, expected {expected}"
+    with pytest.raises(TimeIndexError, match=match):
+        calendar_from_index(idx)
+    with pytest.raises(TimeIndexError, match="give one row per period with no gaps"):
+        load_series(pd.DataFrame({"a": np.arange(11.0)}, index=idx))
+
+
+def test_timestamps_off_the_declared_frequency():
+    idx = pd.DatetimeIndex(["2021-01-01", "2021-02-01", "2021-03-15"])
+    with pytest.raises(TimeIndexError, match=r"2021-03-15 does not follow frequency 'MS' "
+                                             r"\(expected 2021-03-01\)"):
+        calendar_from_index(idx, freq="MS")
+
+
+def test_too_few_timestamps_to_tell_the_frequency():
+    with pytest.raises(TimeIndexError, match="at least 3 timestamps"):
+        calendar_from_index(_dates("MS", 2))
+
+
+def test_unknown_frequency_string():
+    with pytest.raises(TimeIndexError, match="unknown frequency 'fortnightly'"):
+        calendar_from_index(_dates("MS", 4), freq="fortnightly")
+
+
+# ---------------------------------------------------------------- detection
+
+
+@pytest.mark.parametrize(
+    ("freq", "kind", "freqstr"),
+    [
+        ("MS", "monthly", "MS"),
+        ("ME", "monthly", "ME"),
+        ("QS", "quarterly", "QS-JAN"),
+        ("QE", "quarterly", "QE-DEC"),
+        ("W", "weekly", "W-SUN"),
+        ("W-WED", "weekly", "W-WED"),
+        ("D", "daily", "D"),
+        ("B", "daily", "B"),
+        ("2MS", "other", "2MS"),
+    ],
+)
+def test_frequency_detected_and_future_dates_continue(freq, kind, freqstr):
+    full = _dates(freq, 30)
+    cal = calendar_from_index(full[:24])
+    assert (cal.kind, cal.freq) == (kind, freqstr)
+    assert cal.future(6).equals(full[24:])
+
+
+def test_declared_index_freq_is_used():
+    cal = calendar_from_index(pd.date_range("2021-01-01", periods=2, freq="MS"))
+    assert cal.kind == "monthly"
+
+
+def test_timezone_is_dropped_and_wall_times_kept():
+    idx = pd.date_range("2021-01-01", periods=5, freq="D", tz="Europe/Berlin")
+    cal = calendar_from_index(idx)
+    assert cal.index.tz is None
+    assert cal.index[0] == pd.Timestamp("2021-01-01")
+
+
+# ---------------------------------------------------------------- seasons
+
+
+@pytest.mark.parametrize(
+    ("freq", "labels"),
+    [
+        ("MS", tuple(f"month={m}" for m in range(2, 13))),
+        ("W", tuple(f"month={m}" for m in range(2, 13))),
+        ("QE", ("quarter=2", "quarter=3", "quarter=4")),
+        ("D", tuple(f"weekday={d}" for d in ("Tue", "Wed", "Thu", "Fri", "Sat", "Sun"))),
+        # business days never fall on a weekend: Sat/Sun dummies would be all-zero columns
+        ("B", ("weekday=Tue", "weekday=Wed", "weekday=Thu", "weekday=Fri")),
+    ],
+)
+def test_season_labels(freq, labels):
+    assert calendar_from_index(_dates(freq)).season_labels() == labels
+
+
+def test_season_codes_follow_the_dates():
+    cal = calendar_from_index(_dates("QS", 6, "2021-07-01"))
+    np.testing.assert_array_equal(cal.season_codes(np.arange(6), cal.index), [2, 3, 0, 1, 2, 3])
+
+
+def test_weekday_codes():
+    cal = calendar_from_index(_dates("D", 7, "2024-01-01"))  # a Monday
+    np.testing.assert_array_equal(cal.season_codes(np.arange(7), cal.index), np.arange(7))
+
+
+def test_no_seasons_without_a_known_cycle():
+    with pytest.raises(SpecificationError, match="seasonal dummies need .* this data is 'other'"):
+        calendar_from_index(_dates("2MS")).season_labels()
+    with pytest.raises(SpecificationError, match="'period' for plain arrays; this data is 'plain'"):
+        plain_calendar().season_labels()
+
+
+def test_plain_calendar():
+    cal = plain_calendar(4)
+    assert (len(cal), cal.future(3)) == (0, None)
+    assert cal.season_labels() == ("season=2", "season=3", "season=4")
+    np.testing.assert_array_equal(cal.season_codes(np.arange(6), None), [0, 1, 2, 3, 0, 1])
+
+
+@pytest.mark.parametrize("period", [1, 2.5, 0])
+def test_plain_period_must_be_an_integer_of_at_least_2(period):
+    with pytest.raises(SpecificationError, match="period must be an integer >= 2"):
+        plain_calendar(period)
+
+
+def test_drop_first_keeps_the_frequency():
+    cal = calendar_from_index(_dates("MS", 12)).drop_first(1)
+    assert len(cal) == 11 and cal.index[0] == pd.Timestamp("2021-02-01")
+    assert cal.future(1)[0] == pd.Timestamp("2022-01-01")

@@ -1,0 +1,309 @@
+"""From user data to design matrices: every bad input has its own error, and the layout."""
+
+from __future__ import annotations
+
+import numpy as np
+import pandas as pd
+import pytest
+
+from priors import BayesVAR
+from priors.data import Deterministics, build_design, future_exogenous_rows, load_series
+from priors.errors import (
+    ConstantSeriesError,
+    DuplicateNameError,
+    ExogenousError,
+    MissingValuesError,
+    NonNumericError,
+    SpecificationError,
+    TooFewObservationsError,
+)
+
+MONTHS = pd.date_range("2020-01-01", periods=30, freq="MS")
+
+
+@pytest.fixture
+def frame(rng) -> pd.DataFrame:
+    """Two monthly series, 30 rows from January 2020."""
+    values = 10.0 + rng.standard_normal((30, 2))
+    return pd.DataFrame(values, index=MONTHS, columns=["tyres", "brakes"])
+
+
+# ---------------------------------------------------------------- missing values
+
+
+@pytest.mark.parametrize(("bad", "kind"), [(np.nan, "NaN"), (np.inf, "an infinite value"),
+                                           (-np.inf, "an infinite value")])
+def test_missing_or_infinite_value_is_located(frame, bad, kind):
+    frame.iloc[4, 1] = bad
+    match = rf"series 'brakes' has {kind} at 2020-05-01 \(row 4\).*fill them or cut the data"
+    with pytest.raises(MissingValuesError, match=match):
+        load_series(frame)
+
+
+def test_missing_values_are_counted_in_plain_arrays(rng):
+    y = rng.standard_normal((20, 2))
+    y[[3, 7], 0] = np.nan
+    with pytest.raises(MissingValuesError, match=r"'y1' has NaN at row 3, .*\(2 such values"):
+        load_series(y)
+
+
+def test_missing_exogenous_value(frame, rng):
+    x = rng.standard_normal((30, 1))
+    x[10] = np.nan
+    with pytest.raises(MissingValuesError, match=r"exogenous regressor 'x1' has NaN at 2020-11"):
+        load_series(frame, exog=x)
+
+
+# ---------------------------------------------------------------- too few rows
+
+
+def test_too_few_observations_for_the_lags(rng):
+    series = load_series(rng.standard_normal((8, 2)))
+    match = r"8 observations leave 2 rows .* AR\(6\) .* needs at least 9; use fewer lags"
+    with pytest.raises(TooFewObservationsError, match=match):
+        build_design(series, 6, Deterministics())
+
+
+def test_too_few_observations_mentions_differencing(rng):
+    series = load_series(rng.standard_normal((8, 1)).cumsum(axis=0), transforms="diff")
+    with pytest.raises(TooFewObservationsError, match="and 1 row lost to differencing"):
+        build_design(series, 4, Deterministics())
+
+
+def test_too_few_observations_through_the_model(rng):
+    with pytest.raises(TooFewObservationsError, match="use fewer lags or more data"):
+        BayesVAR(lags=12).fit(rng.standard_normal((15, 2)))
+
+
+# ---------------------------------------------------------------- constant series
+
+
+def test_constant_series(frame):
+    frame["brakes"] = 4.0
+    with pytest.raises(ConstantSeriesError, match=r"'brakes' has no variation \(it is constant "
+                                                  r"at 4\); drop it or use a longer window"):
+        load_series(frame)
+
+
+@pytest.mark.parametrize("step", [3.0, 0.1])
+def test_differenced_series_with_constant_differences(frame, step):
+    # 0.1 * t has differences that are equal only up to rounding
+    frame["brakes"] = step * np.arange(30)
+    match = rf"'brakes' has no variation \(its differences are constant at {step:g}\)"
+    with pytest.raises(ConstantSeriesError, match=match):
+        load_series(frame, transforms="diff")
+
+
+def test_constant_growth_rate_under_logdiff(frame):
+    frame["tyres"] = 100 * 1.05 ** np.arange(30)
+    with pytest.raises(ConstantSeriesError, match="'tyres' has no variation"):
+        load_series(frame, transforms="logdiff")
+
+
+# ---------------------------------------------------------------- non-numeric, names
+
+
+@pytest.mark.parametrize(
+    ("column", "dtype"),
+    [(["a", "b", "c"], "str"), ([True, False, True], "bool"),
+     (np.array([1.0, 2.0, 3.0], dtype=object), "object")],
+)
+def test_non_numeric_column(column, dtype):
+    data = pd.DataFrame({"tyres": [1.0, 2.0, 4.0], "code": column})
+    with pytest.raises(NonNumericError, match=rf"series 'code' is not numeric \(dtype {dtype}"
+                                              r".*give numbers only"):
+        load_series(data)
+
+
+def test_non_numeric_plain_array():
+    with pytest.raises(NonNumericError, match="'y1' is not numeric"):
+        load_series(np.array([[True], [False], [True]]))
+
+
+def test_date_column_first_becomes_the_index(frame):
+    # the NonNumericError message promises dates may sit in the first column
+    with_dates = frame.reset_index(names="month")
+    series = load_series(with_dates)
+    assert series.names == ("tyres", "brakes")
+    assert series.calendar.kind == "monthly"
+
+
+def test_duplicate_series_names(rng):
+    with pytest.raises(DuplicateNameError, match="series name 'a' is used more than once"):
+        load_series(rng.standard_normal((10, 3)), names=["a", "b", "a"])
+    frame = pd.DataFrame(rng.standard_normal((10, 2)), columns=["a", "a"])
+    with pytest.raises(DuplicateNameError, match="rename one"):
+        load_series(frame)
+
+
+@pytest.mark.parametrize("as_frame", [False, True])
+def test_wrong_number_of_names(rng, as_frame):
+    y = rng.standard_normal((10, 2))
+    data = pd.DataFrame(y) if as_frame else y
+    with pytest.raises(SpecificationError, match="got 3 names for 2 columns"):
+        load_series(data, names=["a", "b", "c"])
+
+
+def test_shape_and_emptiness(rng):
+    with pytest.raises(SpecificationError, match=r"2-D of shape \(T, n\); got shape \(4, 3, 2\)"):
+        load_series(rng.standard_normal((4, 3, 2)))
+    with pytest.raises(SpecificationError, match="no series columns"):
+        load_series(pd.DataFrame(index=MONTHS))
+
+
+def test_transform_errors(frame):
+    with pytest.raises(SpecificationError, match="unknown transform 'sqrt'; choose one of none"):
+        load_series(frame, transforms="sqrt")
+    with pytest.raises(SpecificationError, match="transform given for unknown series 'wheels'; "
+                                                 "series are tyres, brakes"):
+        load_series(frame, transforms={"wheels": "log"})
+    with pytest.raises(SpecificationError, match="got 1 transforms for 2 series"):
+        load_series(frame, transforms=["log"])
+
+
+# ---------------------------------------------------------------- exogenous regressors
+
+
+def test_exogenous_row_count(frame, rng):
+    with pytest.raises(ExogenousError, match="have 29 rows but the series have 30"):
+        load_series(frame, exog=rng.standard_normal((29, 1)))
+
+
+def test_exogenous_dates_must_match(frame):
+    promo = pd.DataFrame({"promo": np.arange(30.0)}, index=MONTHS + pd.DateOffset(months=1))
+    with pytest.raises(ExogenousError, match="not on the same dates"):
+        load_series(frame, exog=promo)
+
+
+def test_exogenous_name_clash(frame):
+    clash = pd.DataFrame({"tyres": np.arange(30.0)}, index=MONTHS)
+    with pytest.raises(DuplicateNameError, match="exogenous regressor 'tyres' has a series' name"):
+        load_series(frame, exog=clash)
+
+
+def test_exogenous_list_gets_its_own_names(rng):
+    # a list used to be named y1.. and clash with the default series names
+    series = load_series(rng.standard_normal((12, 1)), exog=list(range(12)))
+    assert series.exog_names == ("x1",)
+
+
+@pytest.fixture
+def with_promo(frame, rng):
+    promo = pd.DataFrame({"promo": rng.standard_normal(30)}, index=MONTHS)
+    return load_series(frame, exog=promo)
+
+
+@pytest.mark.parametrize(
+    ("future", "match"),
+    [
+        (None, r"uses exogenous regressors \(promo\); give their future values for all 3"),
+        (np.ones(2), "need future values for 3 steps; got 2"),
+        (np.array([1.0, np.nan, 1.0]), "contain NaN or inf"),
+        (np.array([1.0, 2.0, np.inf]), "contain NaN or inf"),
+        (np.ones((3, 2)), r"must have shape \(horizon, 1\).*\(promo\); got shape \(3, 2\)"),
+        (pd.DataFrame({"price": np.ones(3)}), "future values of exogenous regressor 'promo'"),
+    ],
+)
+def test_future_exogenous_values(with_promo, future, match):
+    with pytest.raises(ExogenousError, match=match):
+        future_exogenous_rows(with_promo, Deterministics(), 3, future)
+
+
+def test_future_exogenous_values_without_regressors(frame):
+    with pytest.raises(ExogenousError, match="but the model has none"):
+        future_exogenous_rows(load_series(frame), Deterministics(), 3, np.ones(3))
+
+
+def test_future_exogenous_values_through_the_model(frame, rng):
+    model = BayesVAR(lags=1, tightness=0.2).fit(frame, exog=rng.standard_normal((30, 1)))
+    with pytest.raises(ExogenousError, match="give their future values"):
+        model.forecast(2, rng=rng)
+
+
+# ---------------------------------------------------------------- design layout
+
+
+def test_design_labels_and_blocks(frame, rng):
+    promo = pd.DataFrame({"promo": rng.standard_normal(30)}, index=MONTHS)
+    series = load_series(frame, exog=promo)
+    d = build_design(series, 2, Deterministics(constant=True, trend=True, seasonal=True))
+    months = tuple(f"month={m}" for m in range(2, 13))
+    lags = ("tyres[t-1]", "brakes[t-1]", "tyres[t-2]", "brakes[t-2]")
+    assert d.labels == ("const", "trend", *months, "promo", *lags)
+    assert (d.n_det, d.k, d.nobs) == (14, 18, 28)
+    V = frame.to_numpy()
+    np.testing.assert_array_equal(d.Y, V[2:])
+    np.testing.assert_array_equal(d.X[:, 14:16], V[1:-1])
+    np.testing.assert_array_equal(d.X[:, 16:18], V[:-2])
+    np.testing.assert_array_equal(d.X[:, 13], promo["promo"].to_numpy()[2:])
+    np.testing.assert_array_equal(d.X[:, 1], np.arange(3, 31))
+    # the first Y row is March 2020: only the month=3 dummy is on
+    assert d.X[0, 2:13].tolist() == [0, 1] + [0] * 9
+
+
+@pytest.mark.parametrize(
+    ("freq", "labels"),
+    [("QS", ("quarter=2", "quarter=3", "quarter=4")),
+     ("D", tuple(f"weekday={d}" for d in ("Tue", "Wed", "Thu", "Fri", "Sat", "Sun")))],
+)
+def test_seasonal_labels_by_frequency(rng, freq, labels):
+    idx = pd.date_range("2021-01-01", periods=40, freq=freq)
+    series = load_series(pd.DataFrame({"a": rng.standard_normal(40)}, index=idx))
+    d = build_design(series, 1, Deterministics(seasonal=True))
+    assert d.labels == ("const", *labels, "a[t-1]")
+
+
+def test_plain_arrays_with_a_period(rng):
+    series = load_series(rng.standard_normal((20, 1)), period=4)
+    d = build_design(series, 1, Deterministics(seasonal=True))
+    assert d.labels == ("const", "season=2", "season=3", "season=4", "y1[t-1]")
+    # row 1 of the data is the first left-hand side; it is season 2
+    np.testing.assert_array_equal(d.X[:4, 1:4], [[1, 0, 0], [0, 1, 0], [0, 0, 1], [0, 0, 0]])
+
+
+def test_common_sample_for_lag_comparison(frame):
+    series = load_series(frame)
+    designs = [build_design(series, p, Deterministics(), start=4) for p in (1, 2, 4)]
+    for d in designs[1:]:
+        np.testing.assert_array_equal(d.Y, designs[0].Y)
+    assert [d.k for d in designs] == [3, 5, 9]
+
+
+@pytest.mark.parametrize(("lags", "start", "match"), [
+    (0, None, "lags must be an integer >= 1; got 0"),
+    (1.5, None, "lags must be an integer >= 1"),
+    (3, 2, r"start \(2\) must be at least lags \(3\)"),
+])
+def test_bad_lags_or_start(frame, lags, start, match):
+    with pytest.raises(SpecificationError, match=match):
+        build_design(load_series(frame), lags, Deterministics(), start=start)
+
+
+# ---------------------------------------------------------------- future rows
+
+
+def test_future_rows_continue_trend_and_seasons(frame):
+    series = load_series(frame)  # 30 months: January 2020 .. June 2022
+    det = Deterministics(constant=True, trend=True, seasonal=True)
+    rows = future_exogenous_rows(series, det, 8)
+    assert rows.shape == (8, 13)
+    np.testing.assert_array_equal(rows[:, 0], 1.0)
+    np.testing.assert_array_equal(rows[:, 1], np.arange(31, 39))
+    future = series.calendar.future(8)  # July 2022 .. February 2023
+    months = rows[:, 2:] @ np.arange(2, 13)
+    np.testing.assert_array_equal(np.where(months == 0, 1, months), future.month)
+
+
+def test_future_rows_of_a_differenced_series(frame):
+    series = load_series(frame, transforms={"tyres": "diff"})
+    rows = future_exogenous_rows(series, Deterministics(trend=True), 2)
+    # one row was lost to differencing, so the design has 29 rows and the trend goes on
+    np.testing.assert_array_equal(rows[:, 1], [30, 31])
+
+
+def test_future_rows_with_exogenous_values(with_promo):
+    rows = future_exogenous_rows(with_promo, Deterministics(), 2, [[5.0], [6.0], [7.0]])
+    np.testing.assert_array_equal(rows, [[1.0, 5.0], [1.0, 6.0]])
+    named = pd.DataFrame({"other": [0.0, 0.0], "promo": [3.0, 4.0]})
+    np.testing.assert_array_equal(
+        future_exogenous_rows(with_promo, Deterministics(), 2, named), [[1.0, 3.0], [1.0, 4.0]])

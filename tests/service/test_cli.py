@@ -1,0 +1,307 @@
+"""The ``fanfold`` command, run in-process through ``service.cli.main``."""
+
+from __future__ import annotations
+
+import json
+import subprocess
+import sys
+import warnings
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+import pytest
+
+from priors import BayesVAR, ConvergenceWarning
+from service.cli import main
+
+ROOT = Path(__file__).resolve().parents[2]
+DEMO = ROOT / "examples" / "bike_parts_demand.csv"
+NAMES = ["tyres", "inner_tubes", "brake_pads", "chains", "cassettes"]
+FAST = ["--lags", "2", "--draws", "200"]
+
+
+@pytest.fixture
+def run(capsys: pytest.CaptureFixture[str]):
+    """Run ``fanfold ARGS`` in-process; returns (exit status, stdout, stderr)."""
+
+    def _run(*args: object) -> tuple[int, str, str]:
+        code = main([str(a) for a in args])
+        out, err = capsys.readouterr()
+        return code, out, err
+
+    return _run
+
+
+def _forecast_json(run, *extra: object) -> dict:
+    code, out, err = run("forecast", DEMO, "--horizon", 3, *FAST, "--json", *extra)
+    assert code == 0, err
+    return json.loads(out)
+
+
+# ---------------------------------------------------------------------- forecast
+def test_forecast_json_layout(run) -> None:
+    out = _forecast_json(run, "--seed", 1)
+    assert set(out) == {"forecasts", "lags", "hyperparameters", "log_marginal_likelihood",
+                        "seed", "draws", "horizon"}
+    assert (out["lags"], out["seed"], out["draws"], out["horizon"]) == (2, 1, 200, 3)
+    assert set(out["hyperparameters"]) == {"tightness", "decay", "det_scale", "sum_coef",
+                                           "initial"}
+    assert isinstance(out["log_marginal_likelihood"], float)
+    assert list(out["forecasts"]) == NAMES
+    for fc in out["forecasts"].values():
+        assert set(fc) == {"dates", "mean", "median", "quantiles"}
+        assert fc["dates"] == ["2026-01-01", "2026-02-01", "2026-03-01"]
+        assert list(fc["quantiles"]) == ["0.05", "0.5", "0.95"]
+        assert all(len(v) == 3 for v in [fc["mean"], fc["median"], *fc["quantiles"].values()])
+
+
+def test_forecast_quantiles_are_monotone(run) -> None:
+    out = _forecast_json(run, "--seed", 2, "--quantiles", "0.9,0.1,0.25,0.5,0.75")
+    for fc in out["forecasts"].values():
+        assert list(fc["quantiles"]) == ["0.1", "0.25", "0.5", "0.75", "0.9"]
+        q = np.array(list(fc["quantiles"].values()))
+        assert np.all(np.diff(q, axis=0) >= 0)
+        np.testing.assert_allclose(fc["quantiles"]["0.5"], fc["median"])
+
+
+def test_same_seed_same_json_and_seed_is_reported(run) -> None:
+    args = ("forecast", DEMO, "--horizon", 2, *FAST, "--json")
+    first, second = run(*args, "--seed", 42), run(*args, "--seed", 42)
+    assert first[0] == 0 and first[1] == second[1]
+    assert run(*args, "--seed", 43)[1] != first[1]
+
+    drawn = json.loads(run(*args)[1])  # no --seed: a fresh one, reported
+    assert isinstance(drawn["seed"], int) and 0 <= drawn["seed"] < 2**32
+    again = json.loads(run(*args, "--seed", drawn["seed"])[1])
+    assert again == drawn
+
+
+def test_forecast_text_table(run) -> None:
+    code, out, err = run("forecast", DEMO, "--horizon", 2, *FAST, "--seed", 5)
+    assert code == 0 and err == ""
+    assert "seed 5" in out.splitlines()[0]
+    for name in NAMES:
+        assert f"\n{name}\n" in out
+    header = next(line for line in out.splitlines() if line.strip().startswith("date"))
+    assert header.split() == ["date", "mean", "median", "q0.05", "q0.5", "q0.95"]
+    assert out.count("2026-02-01") == len(NAMES)
+
+
+def test_forecast_out_writes_tidy_csv(run, tmp_path: Path) -> None:
+    path = tmp_path / "fc.csv"
+    code, out, err = run("forecast", DEMO, "--horizon", 4, *FAST, "--seed", 3,
+                         "--quantiles", "0.1,0.9", "--out", path)
+    assert code == 0 and "wrote 20 rows" in err
+    table = pd.read_csv(path)
+    assert list(table.columns) == ["series", "date", "step", "mean", "median", "q0.1", "q0.9"]
+    assert len(table) == len(NAMES) * 4
+    assert table["series"].unique().tolist() == NAMES
+    assert table["step"].tolist() == [1, 2, 3, 4] * len(NAMES)
+    assert (table["q0.1"] <= table["median"]).all() and (table["median"] <= table["q0.9"]).all()
+    _, js, _ = run("forecast", DEMO, "--horizon", 4, *FAST, "--seed", 3,
+                   "--quantiles", "0.1,0.9", "--json")
+    np.testing.assert_allclose(table["mean"][:4], json.loads(js)["forecasts"]["tyres"]["mean"])
+
+
+def test_forecast_with_transforms_and_deterministics(run) -> None:
+    out = _forecast_json(run, "--seed", 4, "--transform", "tyres=log,chains=diff",
+                         "--seasonal", "--trend", "--tightness", "0.2")
+    assert out["hyperparameters"]["tightness"] == pytest.approx(0.2)
+    assert min(out["forecasts"]["tyres"]["quantiles"]["0.05"]) > 0
+
+
+def test_python_m_service_entry_point() -> None:
+    args = ["forecast", str(DEMO), "--horizon", "3", "--draws", "200", "--seed", "1", "--json"]
+    proc = subprocess.run([sys.executable, "-m", "service", *args], cwd=ROOT,
+                          capture_output=True, text=True, timeout=120, check=False)
+    assert proc.returncode == 0, proc.stderr
+    out = json.loads(proc.stdout)
+    assert out["seed"] == 1 and out["horizon"] == 3 and list(out["forecasts"]) == NAMES
+
+
+# ---------------------------------------------------------------------- fit
+def test_fit_json_layout_with_lag_search(run) -> None:
+    code, out, err = run("fit", DEMO, "--max-lags", 3, "--json")
+    assert code == 0, err
+    fit = json.loads(out)
+    assert set(fit) == {"lags", "hyperparameters", "log_marginal_likelihood", "lag_search",
+                        "coefficients", "sigma", "span"}
+    assert [c["lags"] for c in fit["lag_search"]] == [1, 2, 3]
+    assert set(fit["lag_search"][0]) == {"lags", "score", "tightness", "criterion"}
+    best = max(fit["lag_search"], key=lambda c: c["score"])
+    assert fit["lags"] == best["lags"]
+    assert len(fit["coefficients"]) == len(NAMES) * (1 + len(NAMES) * fit["lags"])
+    assert fit["sigma"]["names"] == NAMES
+    assert fit["span"]["end"] == "2025-12-01"
+    assert fit["span"]["observations"] == 120 - fit["lags"]
+
+
+def test_fit_text_summary(run) -> None:
+    code, out, _ = run("fit", DEMO, "--max-lags", 2, "--summary", "--level", "0.8")
+    assert code == 0
+    assert "lag search" in out and "80% credible interval" in out
+    assert all(f"equation {name}" in out for name in NAMES)
+    assert "Sigma" in out
+    code, short, _ = run("fit", DEMO, "--lags", 2)
+    assert code == 0 and "VAR(2)" in short and "equation" not in short
+
+
+def test_flat_prior_matches_statsmodels_ols(run) -> None:
+    from statsmodels.tsa.api import VAR
+
+    code, out, err = run("fit", DEMO, "--prior", "flat", "--lags", 2, "--json")
+    assert code == 0, err
+    fit = json.loads(out)
+    n, k = len(NAMES), 1 + 2 * len(NAMES)
+    coefs = fit["coefficients"]
+    assert [c["regressor"] for c in coefs[:k]] == [
+        "const", *(f"{nm}[t-{lag}]" for lag in (1, 2) for nm in NAMES)]
+    mean = np.array([c["mean"] for c in coefs]).reshape(n, k).T  # (k, n) like statsmodels
+    sd = np.array([c["sd"] for c in coefs]).reshape(n, k).T
+
+    ols = VAR(pd.read_csv(DEMO, index_col=0).to_numpy(np.float64)).fit(2, trend="c")
+    dof = ols.df_resid  # T - k
+    np.testing.assert_allclose(mean, ols.params, rtol=1e-7, atol=1e-9)
+    # matrix-t marginal of B under IW(E'E, T-k): sd^2 = se_ols^2 (T-k) / (T-k-n-1)
+    np.testing.assert_allclose(sd, ols.stderr * np.sqrt(dof / (dof - n - 1)), rtol=1e-7)
+    np.testing.assert_allclose(fit["sigma"]["mean"], ols.sigma_u * dof / (dof - n - 1),
+                               rtol=1e-7)
+    assert fit["log_marginal_likelihood"] is None
+    assert fit["span"]["observations"] == ols.nobs
+
+
+# ---------------------------------------------------------------------- errors
+def _write(tmp_path: Path, name: str, edit) -> Path:
+    frame = pd.read_csv(DEMO)
+    frame = edit(frame)
+    path = tmp_path / name
+    frame.to_csv(path, index=False)
+    return path
+
+
+def _nan_inside(f: pd.DataFrame) -> pd.DataFrame:
+    f.loc[30, "chains"] = np.nan
+    return f
+
+
+def _duplicate_date(f: pd.DataFrame) -> pd.DataFrame:
+    f.loc[10, "date"] = f.loc[9, "date"]
+    return f
+
+
+def _text_column(f: pd.DataFrame) -> pd.DataFrame:
+    f["brake_pads"] = f["brake_pads"].astype(str) + " units"
+    return f
+
+
+def _no_dates(f: pd.DataFrame) -> pd.DataFrame:
+    f["date"] = [f"month {i}" for i in range(len(f))]
+    return f
+
+
+def _numbers_as_dates(f: pd.DataFrame) -> pd.DataFrame:
+    f["date"] = range(len(f))
+    return f
+
+
+def _dates_only(f: pd.DataFrame) -> pd.DataFrame:
+    return f[["date"]]
+
+
+@pytest.mark.parametrize(("edit", "match"), [
+    (_nan_inside, "'chains' has NaN"),
+    (_duplicate_date, "appears more than once"),
+    (_text_column, "'brake_pads' is not numeric"),
+    (_no_dates, "as dates"),
+    (_numbers_as_dates, "must hold dates"),
+    (_dates_only, "at least one series column"),
+])
+def test_bad_data_is_one_line_and_exit_1(run, tmp_path: Path, edit, match: str) -> None:
+    path = _write(tmp_path, "bad.csv", edit)
+    for command in (["forecast", path, "--horizon", 2, *FAST], ["fit", path, "--lags", 2]):
+        code, out, err = run(*command)
+        assert code == 1
+        assert out == ""
+        assert err.count("\n") == 1 and err.startswith("fanfold: error: ")
+        assert match in err and "Traceback" not in err
+
+
+@pytest.mark.parametrize("content", [b"", b"\xff\xfe\x00garbage", b'date,a\n"2020-01-01,1\n'])
+def test_unreadable_csv_exit_1(run, tmp_path: Path, content: bytes) -> None:
+    path = tmp_path / "broken.csv"
+    path.write_bytes(content)
+    code, _, err = run("forecast", path, "--horizon", 2)
+    assert code == 1 and err.startswith("fanfold: error: ") and err.count("\n") == 1
+
+
+def test_missing_file_exit_1(run, tmp_path: Path) -> None:
+    code, out, err = run("fit", tmp_path / "nope.csv")
+    assert (code, out) == (1, "")
+    assert err == f"fanfold: error: data file '{tmp_path / 'nope.csv'}' not found\n"
+
+
+@pytest.mark.parametrize("args", [
+    [],
+    ["forecast", DEMO],  # --horizon missing
+    ["forecast", DEMO, "--horizon", "0"],
+    ["forecast", DEMO, "--horizon", "two"],
+    ["forecast", DEMO, "--horizon", "2", "--draws", "-5"],
+    ["forecast", DEMO, "--horizon", "2", "--quantiles", "0.5,1.5"],
+    ["forecast", DEMO, "--horizon", "2", "--quantiles", ","],
+    ["forecast", DEMO, "--horizon", "2", "--lags", "0"],
+    ["forecast", DEMO, "--horizon", "2", "--tightness", "-1"],
+    ["forecast", DEMO, "--horizon", "2", "--prior", "wishart"],
+    ["forecast", DEMO, "--horizon", "2", "--transform", "sqrt"],
+    ["forecast", DEMO, "--horizon", "2", "--transform", "tyres=log,tyres=diff"],
+    ["forecast", DEMO, "--horizon", "2", "--transform", "pedals=log"],  # unknown series
+    ["forecast", DEMO, "--horizon", "2", "--seed", "-1"],
+    ["forecast", DEMO, "--horizon", "2", "--no-such-option"],
+    ["fit", DEMO, "--level", "1"],
+    ["predict", DEMO],
+])
+def test_bad_options_exit_2(run, args: list[object]) -> None:
+    code, out, err = run(*args)
+    assert code == 2 and out == ""
+    assert err.count("\n") == 1 and err.startswith("fanfold: error: ")
+
+
+def test_warnings_become_one_line_notes(run, monkeypatch: pytest.MonkeyPatch) -> None:
+    fit = BayesVAR.fit
+
+    def warn_then_fit(self, *args, **kwargs):
+        warnings.warn("tightness stopped at its upper bound 5", ConvergenceWarning,
+                      stacklevel=2)
+        return fit(self, *args, **kwargs)
+
+    monkeypatch.setattr(BayesVAR, "fit", warn_then_fit)
+    code, out, err = run("fit", DEMO, "--lags", 1)
+    assert code == 0 and "VAR(1)" in out
+    assert err == "fanfold: warning: tightness stopped at its upper bound 5\n"
+
+
+def test_huge_tightness_is_a_clean_error(run) -> None:
+    code, _, err = run("fit", DEMO, "--lags", 1, "--tightness", "1e300")
+    assert code in (1, 2) and err.startswith("fanfold: error: ")
+
+
+# ---------------------------------------------------------------------- help
+def test_help_lists_commands_and_version(run) -> None:
+    code, out, _ = run("--help")
+    assert code == 0 and "forecast" in out and "fit" in out
+    code, out, _ = run("--version")
+    assert code == 0 and out.startswith("fanfold ")
+
+
+@pytest.mark.parametrize(("command", "defaults"), [
+    ("forecast", ["default: 2000", "default: 0.05,0.5,0.95", "default: auto",
+                  "default: minnesota", "default: none", "default: a fresh random seed",
+                  "default: keep it", "default: False", "default: by data frequency"]),
+    ("fit", ["default: 0.9", "default: auto", "default: minnesota", "default: none"]),
+])
+def test_command_help_states_defaults(run, command: str, defaults: list[str]) -> None:
+    code, out, _ = run(command, "--help")
+    text = " ".join(out.split())  # undo argparse's line wrapping
+    assert code == 0
+    for default in defaults:
+        assert default in text

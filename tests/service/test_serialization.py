@@ -1,0 +1,156 @@
+"""forecast_to_dict and summary_to_dict: layout, plain JSON types, no NaN or inf."""
+
+from __future__ import annotations
+
+import json
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+import pytest
+
+from priors import BayesVAR, DataError, Forecast, SpecificationError, TimeIndexError
+from service.serialization import (
+    forecast_to_dict,
+    frame_from_csv,
+    quantile_key,
+    summary_to_dict,
+)
+
+DEMO = Path(__file__).resolve().parents[2] / "examples" / "bike_parts_demand.csv"
+QUANTILES = (0.05, 0.5, 0.95)
+
+
+@pytest.fixture(scope="module")
+def demo() -> pd.DataFrame:
+    return pd.read_csv(DEMO, index_col=0, parse_dates=True)
+
+
+@pytest.fixture(scope="module")
+def model(demo: pd.DataFrame) -> BayesVAR:
+    return BayesVAR(lags=2, tightness=0.3).fit(demo)
+
+
+def _plain(obj: object) -> None:
+    """Only dict, list, str, int, float (finite), bool and None, all the way down."""
+    if isinstance(obj, dict):
+        assert all(isinstance(k, str) for k in obj)
+        for v in obj.values():
+            _plain(v)
+    elif isinstance(obj, list):
+        for v in obj:
+            _plain(v)
+    else:
+        assert obj is None or type(obj) in (str, int, float, bool), type(obj)
+        if isinstance(obj, float):
+            assert np.isfinite(obj)
+
+
+@pytest.mark.parametrize(("level", "key"), [(0.05, "0.05"), (0.5, "0.5"), (0.95, "0.95"),
+                                            (0.025, "0.025"), (np.float64(0.1), "0.1")])
+def test_quantile_key_is_short(level: float, key: str) -> None:
+    assert quantile_key(level) == key
+
+
+def test_forecast_dict_layout(model: BayesVAR) -> None:
+    fc = model.forecast(4, rng=np.random.default_rng(0), draws=200)
+    out = forecast_to_dict(model, fc, quantiles=QUANTILES, seed=7, draws=200)
+
+    assert list(out) == ["forecasts", "lags", "hyperparameters", "log_marginal_likelihood",
+                         "seed", "draws", "horizon"]
+    assert list(out["forecasts"]) == list(model.series_.names)
+    assert (out["lags"], out["seed"], out["draws"], out["horizon"]) == (2, 7, 200, 4)
+    assert "lags" not in out["hyperparameters"]
+    assert out["hyperparameters"]["tightness"] == pytest.approx(0.3)
+    assert isinstance(out["log_marginal_likelihood"], float)
+    tyres = out["forecasts"]["tyres"]
+    assert tyres["dates"] == ["2026-01-01", "2026-02-01", "2026-03-01", "2026-04-01"]
+    assert list(tyres["quantiles"]) == ["0.05", "0.5", "0.95"]
+    np.testing.assert_allclose(tyres["mean"], fc.mean()[:, 0])
+    np.testing.assert_allclose(tyres["quantiles"]["0.5"], tyres["median"])
+    _plain(out)
+    json.dumps(out, allow_nan=False)
+
+
+def test_forecast_dict_turns_non_finite_into_none(model: BayesVAR) -> None:
+    paths = np.ones((10, 2, 1))
+    paths[:, 1, 0] = np.inf
+    fc = Forecast(paths, ("a",), pd.date_range("2026-01-01", periods=2, freq="MS"))
+    with np.errstate(invalid="ignore"):  # quantiles of inf subtract inf - inf
+        out = forecast_to_dict(model, fc, quantiles=[0.5], seed=1, draws=10)
+    assert out["forecasts"]["a"]["mean"] == [1.0, None]
+    assert out["forecasts"]["a"]["quantiles"]["0.5"] == [1.0, None]
+    json.dumps(out, allow_nan=False)
+
+
+def test_forecast_dict_rejects_bad_quantiles(model: BayesVAR) -> None:
+    fc = model.forecast(1, rng=np.random.default_rng(0), draws=20)
+    with pytest.raises(SpecificationError, match="between 0 and 1"):
+        forecast_to_dict(model, fc, quantiles=[0.5, 1.5], seed=1, draws=20)
+
+
+def test_summary_dict_layout(model: BayesVAR) -> None:
+    out = summary_to_dict(model, 0.8)
+    n, k = 5, 1 + 5 * 2
+    assert list(out) == ["lags", "hyperparameters", "log_marginal_likelihood", "lag_search",
+                         "coefficients", "sigma", "span"]
+    assert out["lag_search"] == []
+    assert len(out["coefficients"]) == n * k
+    first = out["coefficients"][0]
+    assert first["equation"] == "tyres" and first["regressor"] == "const"
+    assert set(first) == {"equation", "regressor", "mean", "sd", "lower", "upper"}
+    assert all(c["lower"] < c["mean"] < c["upper"] for c in out["coefficients"])
+    sigma = np.array(out["sigma"]["mean"])
+    assert out["sigma"]["names"] == list(model.series_.names)
+    np.testing.assert_allclose(sigma, sigma.T)
+    assert out["span"] == {"start": "2016-03-01", "end": "2025-12-01", "observations": 118}
+    _plain(out)
+    json.dumps(out, allow_nan=False)
+
+
+def test_summary_level_widens_intervals(model: BayesVAR) -> None:
+    narrow = summary_to_dict(model, 0.5)["coefficients"][0]
+    wide = summary_to_dict(model, 0.99)["coefficients"][0]
+    assert wide["lower"] < narrow["lower"] < narrow["upper"] < wide["upper"]
+
+
+def test_summary_dict_lag_search_and_flat(demo: pd.DataFrame) -> None:
+    auto = summary_to_dict(BayesVAR(lags="auto", max_lags=3, prior="flat").fit(demo))
+    assert [c["lags"] for c in auto["lag_search"]] == [1, 2, 3]
+    assert {c["criterion"] for c in auto["lag_search"]} == {"bic"}
+    assert all(c["tightness"] is None for c in auto["lag_search"])
+    assert auto["log_marginal_likelihood"] is None
+    assert set(auto["hyperparameters"].values()) == {None}
+    _plain(auto)
+
+
+def test_summary_span_without_dates() -> None:
+    y = np.random.default_rng(3).standard_normal((40, 2))
+    out = summary_to_dict(BayesVAR(lags=3, tightness=0.2).fit(y))
+    assert out["span"] == {"start": "4", "end": "40", "observations": 37}
+
+
+# ---------------------------------------------------------------------- frame_from_csv
+def test_frame_from_csv_reads_demo(demo: pd.DataFrame) -> None:
+    frame = frame_from_csv(DEMO.read_text())
+    assert list(frame.columns) == list(demo.columns)
+    assert isinstance(frame.index, pd.DatetimeIndex) and frame.index.name == "date"
+    assert frame.index[0] == pd.Timestamp("2016-01-01")
+    np.testing.assert_array_equal(frame.to_numpy(), demo.to_numpy())
+
+
+def test_frame_from_csv_keeps_duplicate_names() -> None:
+    frame = frame_from_csv("date,a,a\n2020-01-01,1,2\n2020-02-01,3,4\n")
+    assert list(frame.columns) == ["a", "a"]
+
+
+@pytest.mark.parametrize(("text", "error", "match"), [
+    ("", DataError, "cannot read the data as CSV"),
+    ("date;a\n2020-01-01;1\n", DataError, "separated by commas"),
+    ("date,a\nsoon,1\nlater,2\n", TimeIndexError, "as dates"),
+    ("date,a\n1,1\n2,2\n", TimeIndexError, "holds numbers"),
+    ("date,a\n2020-01-01,1\n,2\n", TimeIndexError, "no date in data row 2"),
+])
+def test_frame_from_csv_errors(text: str, error: type, match: str) -> None:
+    with pytest.raises(error, match=match):
+        frame_from_csv(text)

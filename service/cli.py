@@ -130,6 +130,10 @@ def _tightness(text: str) -> float | str:
     return "auto" if text == "auto" else _number(text)
 
 
+def _weight(text: str) -> float | str | None:
+    return None if text == "off" else _tightness(text)
+
+
 # ---------------------------------------------------------------------- parser
 class _Parser(argparse.ArgumentParser):
     def error(self, message: str) -> NoReturn:
@@ -162,6 +166,17 @@ def _model_options() -> argparse.ArgumentParser:
     g.add_argument("--tightness", type=_tightness, default="auto", metavar="X|auto",
                    help="prior s.d. of each series' own first lag, or 'auto' to maximise the "
                         "marginal likelihood; ignored with --prior flat")
+    g.add_argument("--decay", type=_number, default=1.0, metavar="X",
+                   help="lag decay: the prior s.d. of lag l is tightness / l**X")
+    g.add_argument("--sum-coef", type=_weight, default=None, metavar="X|auto",
+                   help="weight of the sum-of-coefficients prior (smaller = tighter; for "
+                        "trending series), 'auto' to tune it (default: off)")
+    g.add_argument("--initial", type=_weight, default=None, metavar="X|auto",
+                   help="weight of the dummy-initial-observation prior (smaller = tighter), "
+                        "'auto' to tune it (default: off)")
+    g.add_argument("--hyperprior", action="store_true",
+                   help="tune by the posterior mode under Gamma hyperpriors instead of the "
+                        "marginal likelihood alone")
     g.add_argument("--transform", type=_transform, metavar="SPEC",
                    help=f"{', '.join(TRANSFORMS)} for all series, or per series such as "
                         "tyres=log,chains=diff; forecasts are back in the data's units "
@@ -200,6 +215,9 @@ def build_parser() -> argparse.ArgumentParser:
     fc.add_argument("--out", metavar="FILE.csv",
                     help="also write a tidy CSV: series, date, step, mean, median, "
                          "q<level>... (default: no file)")
+    fc.add_argument("--reject-explosive", action="store_true",
+                    help="drop parameter draws with explosive dynamics (companion spectral "
+                         "radius >= 1) and report the share dropped")
     fc.add_argument("--json", action="store_true", help="print JSON instead of tables")
     fc.set_defaults(run=_forecast)
 
@@ -212,6 +230,8 @@ def build_parser() -> argparse.ArgumentParser:
                      help="also print lag search, coefficients and the error covariance")
     fit.add_argument("--level", type=_level, default=0.9,
                      help="coverage of the coefficients' credible intervals")
+    fit.add_argument("--seed", type=_seed, default=0, metavar="S",
+                     help="random seed of the draws behind the spectral-radius summary")
     fit.add_argument("--json", action="store_true",
                      help="print the full summary as JSON (implies --summary)")
     fit.set_defaults(run=_fit)
@@ -228,8 +248,10 @@ def _version() -> str:
 # ---------------------------------------------------------------------- commands
 def _fitted(args: argparse.Namespace) -> BayesVAR:
     model = BayesVAR(lags=args.lags, max_lags=args.max_lags, prior=args.prior,
-                     tightness=args.tightness, constant=args.constant, trend=args.trend,
-                     seasonal=args.seasonal, transforms=args.transform)
+                     tightness=args.tightness, decay=args.decay, sum_coef=args.sum_coef,
+                     initial=args.initial, hyperprior=args.hyperprior,
+                     constant=args.constant, trend=args.trend, seasonal=args.seasonal,
+                     transforms=args.transform)
     return model.fit(read_data(args.data))
 
 
@@ -240,7 +262,8 @@ def _json(payload: dict[str, Any]) -> str:
 def _forecast(args: argparse.Namespace) -> str:
     model = _fitted(args)
     seed = secrets.randbits(32) if args.seed is None else args.seed
-    fc = model.forecast(args.horizon, rng=np.random.default_rng(seed), draws=args.draws)
+    fc = model.forecast(args.horizon, rng=np.random.default_rng(seed), draws=args.draws,
+                        reject_explosive=args.reject_explosive)
     if args.out:
         table = fc.to_frame(args.quantiles)
         try:
@@ -254,7 +277,7 @@ def _forecast(args: argparse.Namespace) -> str:
 
 def _fit(args: argparse.Namespace) -> str:
     model = _fitted(args)
-    payload = summary_to_dict(model, args.level)
+    payload = summary_to_dict(model, args.level, rng=np.random.default_rng(args.seed))
     if args.json:
         return _json(payload)
     return format_fit(payload, prior=args.prior, level=args.level, summary=args.summary)

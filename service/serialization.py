@@ -105,7 +105,8 @@ def forecast_to_dict(
         {"forecasts": {name: {"dates": [...], "mean": [...], "median": [...],
                               "quantiles": {"0.05": [...], ...}}, ...},
          "lags": int, "hyperparameters": {...}, "log_marginal_likelihood": float | None,
-         "seed": int, "draws": int, "horizon": int}
+         "seed": int, "draws": int, "horizon": int,
+         "rejected_explosive_share": float | None}
 
     ``dates`` are ISO dates (or "1".."h" for data without dates); each list has one value
     per step. ``hyperparameters`` are those of ``model.hyperparameters()`` except lags.
@@ -133,6 +134,7 @@ def forecast_to_dict(
         "seed": int(seed),
         "draws": int(draws),
         "horizon": int(forecast.horizon),
+        "rejected_explosive_share": _num(forecast.rejected_share),
     }
 
 
@@ -148,7 +150,17 @@ def _span(model: BayesVAR) -> dict[str, Any]:
             "observations": nobs}
 
 
-def summary_to_dict(model: BayesVAR, level: float = 0.9) -> dict[str, Any]:
+def _stability(model: BayesVAR, rng: np.random.Generator, draws: int) -> dict[str, Any]:
+    radius = model.spectral_radius(draws, rng=rng)
+    q = np.quantile(radius, [0.05, 0.5, 0.95])
+    return {"draws": int(draws), "median": _num(q[1]), "q0.05": _num(q[0]),
+            "q0.95": _num(q[2]), "share_explosive": _num(np.mean(radius >= 1.0))}
+
+
+def summary_to_dict(
+    model: BayesVAR, level: float = 0.9, *, rng: np.random.Generator | None = None,
+    stability_draws: int = 500,
+) -> dict[str, Any]:
     """Posterior summary of a fitted model.
 
     Layout::
@@ -157,15 +169,19 @@ def summary_to_dict(model: BayesVAR, level: float = 0.9) -> dict[str, Any]:
          "lag_search": [{"lags", "score", "tightness", "criterion"}, ...],
          "coefficients": [{"equation", "regressor", "mean", "sd", "lower", "upper"}, ...],
          "sigma": {"names": [...], "mean": [[...], ...]},
-         "span": {"start": str, "end": str, "observations": int}}
+         "span": {"start": str, "end": str, "observations": int},
+         "spectral_radius": {"draws", "median", "q0.05", "q0.95", "share_explosive"}}
 
     ``lower``/``upper`` bound the central ``level`` credible interval; ``lag_search`` is
     empty unless the lag order was chosen by ``lags="auto"``; ``span`` is the estimation
     sample (the data minus presample rows, and the row lost to differencing if any).
+    ``spectral_radius`` summarises the companion matrix's spectral radius over
+    ``stability_draws`` posterior draws (values >= 1 are explosive); it is present only
+    when ``rng`` is given.
     """
     coefs = model.coefficients(level)
     sigma = model.sigma_mean()
-    return {
+    out: dict[str, Any] = {
         "lags": int(model.lags_),
         "hyperparameters": _hyperparameters(model),
         "log_marginal_likelihood": _num(model.log_ml_),
@@ -183,3 +199,6 @@ def summary_to_dict(model: BayesVAR, level: float = 0.9) -> dict[str, Any]:
         "sigma": {"names": [str(c) for c in sigma.columns], "mean": _nums(sigma.to_numpy())},
         "span": _span(model),
     }
+    if rng is not None:
+        out["spectral_radius"] = _stability(model, rng, stability_draws)
+    return out

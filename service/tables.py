@@ -68,6 +68,9 @@ def format_forecast(payload: dict[str, Any]) -> str:
         _hyper_line(payload["hyperparameters"]),
         _log_ml_line(payload["log_marginal_likelihood"]),
     ]
+    share = payload.get("rejected_explosive_share")
+    if share is not None:
+        out.append(f"explosive parameter draws rejected: {100 * share:.1f}%")
     for name, fc in forecasts.items():
         columns = {"mean": fc["mean"], "median": fc["median"]}
         columns.update({f"q{k}": v for k, v in fc["quantiles"].items()})
@@ -123,4 +126,9 @@ def format_fit(payload: dict[str, Any], *, prior: str, level: float, summary: bo
     rows = [[nm, *(_g(v) for v in row)] for nm, row in
             zip(names, payload["sigma"]["mean"], strict=True)]
     out += ["", "error covariance Sigma (posterior mean):", render_table(["", *names], rows)]
+    if "spectral_radius" in payload:
+        r = payload["spectral_radius"]
+        out += ["", f"spectral radius of the companion matrix ({r['draws']} draws): median "
+                f"{_g(r['median'])}, 90% interval {_g(r['q0.05'])} to {_g(r['q0.95'])}, "
+                f"share explosive (>= 1) {_g(r['share_explosive'])}"]
     return "\n".join(out)

@@ -43,7 +43,8 @@ def _forecast_json(run, *extra: object) -> dict:
 def test_forecast_json_layout(run) -> None:
     out = _forecast_json(run, "--seed", 1)
     assert set(out) == {"forecasts", "lags", "hyperparameters", "log_marginal_likelihood",
-                        "seed", "draws", "horizon"}
+                        "seed", "draws", "horizon",
+                        "rejected_explosive_share"}
     assert (out["lags"], out["seed"], out["draws"], out["horizon"]) == (2, 1, 200, 3)
     assert set(out["hyperparameters"]) == {"tightness", "decay", "det_scale", "sum_coef",
                                            "initial"}
@@ -126,7 +127,7 @@ def test_fit_json_layout_with_lag_search(run) -> None:
     assert code == 0, err
     fit = json.loads(out)
     assert set(fit) == {"lags", "hyperparameters", "log_marginal_likelihood", "lag_search",
-                        "coefficients", "sigma", "span"}
+                        "coefficients", "sigma", "span", "spectral_radius"}
     assert [c["lags"] for c in fit["lag_search"]] == [1, 2, 3]
     assert set(fit["lag_search"][0]) == {"lags", "score", "tightness", "criterion"}
     best = max(fit["lag_search"], key=lambda c: c["score"])
@@ -305,3 +306,19 @@ def test_command_help_states_defaults(run, command: str, defaults: list[str]) ->
     assert code == 0
     for default in defaults:
         assert default in text
+
+
+def test_dummy_priors_hyperprior_and_explosive_screening_options(run) -> None:
+    code, out, err = run("fit", DEMO, "--lags", 2, "--sum-coef", "auto", "--initial", "0.5",
+                         "--hyperprior", "--decay", "2", "--json")
+    assert code == 0, err
+    hp = json.loads(out)["hyperparameters"]
+    assert hp["initial"] == 0.5 and hp["decay"] == 2.0 and hp["sum_coef"] > 0
+    radius = json.loads(out)["spectral_radius"]
+    assert 0 < radius["q0.05"] <= radius["median"] <= radius["q0.95"]
+    code, out, err = run("forecast", DEMO, "--horizon", 2, "--draws", 200, "--seed", 3,
+                         "--lags", 1, "--reject-explosive", "--json")
+    assert code == 0, err
+    assert 0.0 <= json.loads(out)["rejected_explosive_share"] < 1.0
+    code, _, err = run("fit", DEMO, "--sum-coef", "-1")
+    assert code == 2 and "--sum-coef" in err

@@ -57,7 +57,8 @@ def test_forecast_dict_layout(model: BayesVAR) -> None:
     out = forecast_to_dict(model, fc, quantiles=QUANTILES, seed=7, draws=200)
 
     assert list(out) == ["forecasts", "lags", "hyperparameters", "log_marginal_likelihood",
-                         "seed", "draws", "horizon"]
+                         "seed", "draws", "horizon",
+                         "rejected_explosive_share"]
     assert list(out["forecasts"]) == list(model.series_.names)
     assert (out["lags"], out["seed"], out["draws"], out["horizon"]) == (2, 7, 200, 4)
     assert "lags" not in out["hyperparameters"]

@@ -100,13 +100,23 @@ def _chol_logdet(S: FloatArray, what: str) -> float:
 def _update(prior: NIWPrior, X: FloatArray, Y: FloatArray) -> NIWPosterior:
     """NIW update on data (X, Y) without dummies; log_ml of exactly these rows."""
     T, n = Y.shape
+    k = X.shape[1]
     root = 1.0 / np.sqrt(prior.omega)
-    A = np.vstack([X, np.diag(root)])
-    b = np.vstack([Y, prior.B0 * root[:, None]])
-    R, Qtb = _qr_r(A, b)
+    # one QR of [A, b] without Q: its R is [[R, Q'b], [0, R22]] with R22'R22 = E'E of
+    # the stacked rows (Golub & Van Loan 5.3), so Q, Q'b and the residuals are not formed
+    Rab = np.linalg.qr(np.vstack([np.hstack([X, Y]),
+                                  np.hstack([np.diag(root), prior.B0 * root[:, None]])]),
+                       mode="r")
+    sign = np.where(np.diag(Rab)[:k] < 0, -1.0, 1.0)[:, None]
+    R, Qtb, R22 = Rab[:k, :k] * sign, Rab[:k, k:] * sign, Rab[k:, k:]
+    d = np.diag(R)
+    if d.size and (not np.all(np.isfinite(d)) or d.min() <= 1e-13 * d.max()):
+        raise NotPositiveDefiniteError(
+            "the regressors are collinear (posterior precision is singular); remove "
+            "duplicate series or deterministic terms, or use a proper prior"
+        )
     B = _solve_upper(R, Qtb)
-    resid = b - A @ B
-    S = prior.S0 + resid.T @ resid
+    S = prior.S0 + R22.T @ R22
     S = 0.5 * (S + S.T)
     df = prior.df + T
     logdet_P = 2.0 * float(np.sum(np.log(np.diag(R))))

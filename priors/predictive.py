@@ -1,16 +1,21 @@
 """Simulated predictive paths of a VAR under an NIW posterior.
 
-Two samplers of the same distribution:
+:func:`simulate_paths` draws from the posterior predictive with one of two exact
+samplers of the same distribution, whichever is cheaper for the model's size:
 
-- :func:`simulate_paths` never forms B. The forecast needs B only through ``B'x_h``
+- "projection" never forms B. The forecast needs B only through ``B'x_h``
   and, with ``B = B_bar + R^-1 Z M'``, ``B'x_h = B_bar'x_h + M Z'v_h`` where
   ``v_h = R^-T x_h``. The vectors ``Z'v_1, ..., Z'v_H`` are jointly normal with
   ``Cov(Z'v_g, Z'v_h) = (v_g'v_h) I_n``, so they can be drawn step by step by
   orthogonalising the v_h as they appear (Gram-Schmidt, twice for stability): O(k^2)
   flops and 2n normals per draw and step instead of O(k^2 n) flops and k*n normals per
   draw.
-- :func:`simulate_paths_from_draws` uses explicit (B, Sigma) draws; needed when draws are
-  screened (explosive-draw rejection) or come from another sampler.
+- "explicit" draws (B, Sigma) and runs the recursion: O(k^2 n) per draw once, then
+  O(k n) per step. It is the cheaper one when n < h (measured in
+  tests/benchmarks: 2.7x faster at n=3, 1.6x at n=7; 1.9x slower at n=20, h=12).
+
+:func:`simulate_paths_from_draws` runs the recursion for given draws, e.g. draws screened
+for explosive dynamics or drawn by another sampler.
 
 Shapes: ``history`` is (p, n), oldest row first; ``exog_rows`` is (h, m); paths are
 (S, h, n) in model units.
@@ -23,9 +28,15 @@ from scipy.linalg import solve_triangular
 
 from ._types import FloatArray
 from .conjugate import NIWPosterior
-from .sampling import Draws, check_size, draw_sigma_roots
+from .errors import SpecificationError
+from .sampling import Draws, check_size, draw_coefficients, draw_sigma_roots
 
-__all__ = ["companion_spectral_radius", "simulate_paths", "simulate_paths_from_draws"]
+__all__ = [
+    "METHODS",
+    "companion_spectral_radius",
+    "simulate_paths",
+    "simulate_paths_from_draws",
+]
 
 
 def _regressors(exog_row: FloatArray, lagbuf: FloatArray) -> FloatArray:
@@ -40,66 +51,129 @@ def _start_lags(history: FloatArray, size: int) -> FloatArray:
     return np.repeat(history[::-1][None], size, axis=0)
 
 
+#: draws per block in :func:`simulate_paths`: keeps the (block, h, k) basis in cache
+_BLOCK_DOUBLES = 2_000_000
+
+
+METHODS = ("auto", "projection", "explicit")
+
+
 def simulate_paths(
     rng: np.random.Generator,
     post: NIWPosterior,
     history: FloatArray,
     exog_rows: FloatArray,
     size: int,
+    *,
+    method: str = "auto",
 ) -> FloatArray:
-    """Draw ``size`` predictive paths of ``h = len(exog_rows)`` steps, (S, h, n)."""
+    """Draw ``size`` predictive paths of ``h = len(exog_rows)`` steps, (S, h, n).
+
+    ``method``: "projection", "explicit" or "auto" (explicit when n < h). Both are
+    exact; the same seed gives the same paths for the same method.
+    """
+    if method not in METHODS:
+        raise SpecificationError(f"method must be one of {', '.join(METHODS)}; got {method!r}")
     size = check_size(size)
-    h = exog_rows.shape[0]
+    n, h = post.B.shape[1], exog_rows.shape[0]
+    if method == "explicit" or (method == "auto" and n < h):
+        M = draw_sigma_roots(rng, post.S, post.df, size)
+        B = draw_coefficients(rng, post, M)
+        return _recursion(rng, B, M, history, exog_rows)
+    return _simulate_projected(rng, post, history, exog_rows, size)
+
+
+def _simulate_projected(
+    rng: np.random.Generator,
+    post: NIWPosterior,
+    history: FloatArray,
+    exog_rows: FloatArray,
+    size: int,
+) -> FloatArray:
+    """The projection sampler, (S, h, n).
+
+    Only numpy's BLAS runs inside the step loop (R^-1 is formed once), and draws are
+    processed in blocks so the Gram-Schmidt basis stays in cache. Only the lags already
+    simulated differ between draws, so ``x_h' B_bar`` and ``R^-T x_h`` are a shared part
+    plus a product over the ``n * min(step, p)`` simulated entries.
+    """
+    size = check_size(size)
+    h, m = exog_rows.shape
     k, n = post.B.shape
+    p = history.shape[0]
     M = draw_sigma_roots(rng, post.S, post.df, size)
-    lagbuf = _start_lags(history, size)
-    Q = np.empty((size, h, k))
-    coef = np.zeros((size, h))
-    W = np.empty((size, h, n))
+    # every path normal at once, in the order the step loop used to draw them
+    normals = rng.standard_normal((h, 2, size, n))
+    Rinv = solve_triangular(post.R, np.eye(k), lower=False, check_finite=False)
+    past = history[::-1].reshape(-1)  # lag 1 first, (p n,)
     paths = np.empty((size, h, n))
-    for step in range(h):
-        x = _regressors(exog_rows[step], lagbuf)
-        mean = x @ post.B
-        v = solve_triangular(post.R, x.T, lower=False, trans=1, check_finite=False).T
-        r = v
-        coef[:] = 0.0
-        if step:
-            Qp = Q[:, :step]
-            for _ in range(2):  # classical Gram-Schmidt, repeated once
-                c = np.einsum("sgk,sk->sg", Qp, r)
-                r = r - np.einsum("sg,sgk->sk", c, Qp)
-                coef[:, :step] += c
-        rho = np.linalg.norm(r, axis=1)
-        # once h > k the v_h are linearly dependent: no new direction, no new normal
-        rho = np.where(rho > 1e-9 * np.linalg.norm(v, axis=1), rho, 0.0)
-        Q[:, step] = r / np.where(rho > 0, rho, 1.0)[:, None] * (rho > 0)[:, None]
-        coef[:, step] = rho
-        W[:, step] = rng.standard_normal((size, n))
-        ztv = np.einsum("sg,sgn->sn", coef[:, : step + 1], W[:, : step + 1])
-        e = ztv + rng.standard_normal((size, n))
-        y = mean + np.einsum("sij,sj->si", M, e)
-        paths[:, step] = y
-        lagbuf = np.concatenate([y[:, None], lagbuf[:, :-1]], axis=1)
+    nblocks = -(-size * h * k // _BLOCK_DOUBLES)  # ceil: blocks of equal size
+    block = -(-size // nblocks)
+    Q = np.empty((block, h, k))
+    coef = np.zeros((block, h))
+    for lo in range(0, size, block):
+        hi = min(lo + block, size)
+        s = hi - lo
+        Qb, cb, Mb, out = Q[:s], coef[:s], M[lo:hi], paths[lo:hi]
+        for step in range(h):
+            lags = min(step, p)
+            w = n * lags  # entries of x simulated in this block
+            x_fix = np.concatenate([exog_rows[step], np.zeros(w), past[: n * p - w]])
+            mean = np.broadcast_to(x_fix @ post.B, (s, n))
+            v = np.broadcast_to(x_fix @ Rinv, (s, k))
+            if w:
+                x_sim = out[:, step - lags : step][:, ::-1].reshape(s, w)
+                mean = mean + x_sim @ post.B[m : m + w]
+                v = v.copy()
+                v[:, m:] += x_sim @ Rinv[m : m + w, m:]  # R^-1 is upper triangular
+            r = v
+            cb[:] = 0.0
+            if step:
+                Qp = Qb[:, :step]
+                for _ in range(2):  # classical Gram-Schmidt, repeated once
+                    c = np.einsum("sgk,sk->sg", Qp, r)
+                    r = r - np.einsum("sg,sgk->sk", c, Qp)
+                    cb[:, :step] += c
+            rho = np.linalg.norm(r, axis=1)
+            # once h > k the v_h are linearly dependent: no new direction, no new normal
+            rho = np.where(rho > 1e-9 * np.linalg.norm(v, axis=1), rho, 0.0)
+            scale = np.divide(1.0, rho, out=np.zeros_like(rho), where=rho > 0)
+            np.multiply(r, scale[:, None], out=Qb[:, step])
+            cb[:, step] = rho
+            e = np.einsum("sg,gsn->sn", cb[:, : step + 1], normals[: step + 1, 0, lo:hi])
+            e += normals[step, 1, lo:hi]
+            out[:, step] = mean + np.einsum("sij,sj->si", Mb, e)
     return paths
+
+
+def _recursion(
+    rng: np.random.Generator, B: FloatArray, M: FloatArray, history: FloatArray,
+    exog_rows: FloatArray,
+) -> FloatArray:
+    """y_h = B_s'x_h + M_s z_h for each draw s, feeding paths back as lags; (S, h, n).
+
+    The shocks M_s z_h and the deterministic part are formed for all steps at once;
+    each step then costs one batched (1 x k)(k x n) product per draw.
+    """
+    size, k, n = B.shape
+    h, m = exog_rows.shape
+    p = history.shape[0]
+    shocks = np.einsum("sij,hsj->hsi", M, rng.standard_normal((h, size, n)))
+    base = np.einsum("hm,smn->hsn", exog_rows, B[:, :m]) + shocks if m else shocks
+    buf = np.empty((size, p + h, n))  # history then paths, in time order
+    buf[:, :p] = history
+    B_lags = B[:, m:]
+    for step in range(h):
+        x = buf[:, step : step + p][:, ::-1].reshape(size, 1, p * n)  # lag 1 first
+        buf[:, p + step] = base[step] + (x @ B_lags)[:, 0]
+    return buf[:, p:].copy()
 
 
 def simulate_paths_from_draws(
     rng: np.random.Generator, draws: Draws, history: FloatArray, exog_rows: FloatArray
 ) -> FloatArray:
     """Predictive paths from explicit draws, one path per draw, (S, h, n)."""
-    size = draws.size
-    h = exog_rows.shape[0]
-    n = draws.Sigma.shape[1]
-    L = np.linalg.cholesky(draws.Sigma)
-    lagbuf = _start_lags(history, size)
-    paths = np.empty((size, h, n))
-    for step in range(h):
-        x = _regressors(exog_rows[step], lagbuf)
-        y = np.einsum("sk,skn->sn", x, draws.B)
-        y += np.einsum("sij,sj->si", L, rng.standard_normal((size, n)))
-        paths[:, step] = y
-        lagbuf = np.concatenate([y[:, None], lagbuf[:, :-1]], axis=1)
-    return paths
+    return _recursion(rng, draws.B, np.linalg.cholesky(draws.Sigma), history, exog_rows)
 
 
 def companion_spectral_radius(B: FloatArray, n_det: int, lags: int) -> FloatArray:

@@ -18,7 +18,7 @@ from ._types import FloatArray
 from .conjugate import NIWPosterior
 from .errors import NotPositiveDefiniteError, SpecificationError
 
-__all__ = ["Draws", "draw_sigma_roots", "sample_posterior"]
+__all__ = ["Draws", "draw_coefficients", "draw_sigma_roots", "sample_posterior"]
 
 
 @dataclass(frozen=True)
@@ -51,23 +51,39 @@ def draw_sigma_roots(rng: np.random.Generator, S: FloatArray, df: float, size: i
     A = np.zeros((size, n, n))
     chi_df = df - np.arange(n)
     A[:, np.arange(n), np.arange(n)] = np.sqrt(rng.chisquare(chi_df, size=(size, n)))
-    rows, cols = np.tril_indices(n, k=-1)
-    if rows.size:
-        A[:, rows, cols] = rng.standard_normal((size, rows.size))
+    if n > 1:
+        below = rng.standard_normal((size, n * (n - 1) // 2))  # row-major lower triangle
+        for i in range(1, n):
+            A[:, i, :i] = below[:, i * (i - 1) // 2 : i * (i + 1) // 2]
     # M = L_S A^-T, i.e. M' = A^-1 L_S'. A is lower triangular: solve A M' = L_S'.
-    Mt = np.linalg.solve(A, np.broadcast_to(L_S.T, (size, n, n)))
+    Lt = L_S.T
+    if n >= 32:  # scipy batches solve_triangular over the leading axis in one call
+        Mt = solve_triangular(A, np.broadcast_to(Lt, (size, n, n)), lower=True,
+                              check_finite=False)
+    else:  # forward substitution, row by row, vectorised over the draws
+        Mt = np.empty((size, n, n))
+        Mt[:, 0] = Lt[0] / A[:, 0, :1]
+        for i in range(1, n):
+            Mt[:, i] = (Lt[i] - (A[:, i, None, :i] @ Mt[:, :i])[:, 0]) / A[:, i, i : i + 1]
     return np.swapaxes(Mt, 1, 2)
+
+
+def draw_coefficients(rng: np.random.Generator, post: NIWPosterior, M: FloatArray) -> FloatArray:
+    """B = B_bar + R^-1 Z M' for each root M (S, n, n); returns (S, k, n).
+
+    R^-1 acts on the rows and M' on the columns, so one triangular solve with S*n
+    right-hand sides serves all draws.
+    """
+    size = M.shape[0]
+    k, n = post.B.shape
+    Z = rng.standard_normal((k, size * n))
+    W = solve_triangular(post.R, Z, lower=False, check_finite=False).reshape(k, size, n)
+    return post.B[None] + np.matmul(W.transpose(1, 0, 2), np.swapaxes(M, 1, 2))
 
 
 def sample_posterior(rng: np.random.Generator, post: NIWPosterior, size: int) -> Draws:
     """``size`` exact i.i.d. draws of (B, Sigma) from the posterior."""
     size = check_size(size)
-    k, n = post.B.shape
     M = draw_sigma_roots(rng, post.S, post.df, size)
-    Z = rng.standard_normal((size, k, n))
-    ZM = Z @ np.swapaxes(M, 1, 2)  # (S, k, n)
-    flat = np.moveaxis(ZM, 0, 1).reshape(k, size * n)
-    dev = solve_triangular(post.R, flat, lower=False, check_finite=False)
-    B = post.B[None] + np.moveaxis(dev.reshape(k, size, n), 1, 0)
-    Sigma = M @ np.swapaxes(M, 1, 2)
-    return Draws(B, Sigma)
+    B = draw_coefficients(rng, post, M)
+    return Draws(B, M @ np.swapaxes(M, 1, 2))

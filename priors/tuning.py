@@ -157,7 +157,7 @@ def _objective_factory(
 ) -> Callable[[FloatArray], tuple[float, float]]:
     """Map log-hyperparameters to (objective, log_ml)."""
     profile = None
-    moments = Moments.of(design)
+    moments = None  # cross-products only for the general (non-profile) path
     if names == ("tightness",) and base.sum_coef is None and base.initial is None:
         profile = TightnessProfile(design, base, prior_mean, psi)
 
@@ -168,6 +168,9 @@ def _objective_factory(
         else:
             hyper = replace(base, **values)
             prior = minnesota_prior(design, hyper, prior_mean, psi)
+            nonlocal moments
+            if moments is None:
+                moments = Moments.of(design)
             try:
                 lml = log_marginal_likelihood_fast(moments, prior)
             except NotPositiveDefiniteError:

@@ -29,15 +29,18 @@ def _setup(known_var, rng, T=60, lags=1, n=2):
     return design, post, series
 
 
-def test_fast_paths_match_explicit_parameter_draws(known_var, rng):
+@pytest.mark.parametrize("lags", [1, 3])
+def test_projection_paths_match_explicit_parameter_draws(known_var, rng, lags):
     # The projection trick (draw Z'R^-T x_h by Gram-Schmidt) must give the same joint
-    # distribution as explicit (B, Sigma) draws. h = 8 > k = 3 also covers the steps
-    # where the projection vectors become linearly dependent.
-    design, post, series = _setup(known_var, rng)
+    # distribution as explicit (B, Sigma) draws. With lags=1, h = 8 > k = 3 also covers
+    # the steps where the projection vectors become linearly dependent; lags=3 covers
+    # steps that mix observed and simulated lags.
+    design, post, series = _setup(known_var, rng, lags=lags)
     h, S = 8, 40_000
     exog = future_exogenous_rows(series, Deterministics(), h)
-    history = series.values[-1:]
-    fast = simulate_paths(np.random.default_rng(1), post, history, exog, S)
+    history = series.values[-lags:]
+    fast = simulate_paths(np.random.default_rng(1), post, history, exog, S,
+                          method="projection")
     draws = sample_posterior(np.random.default_rng(2), post, S)
     slow = simulate_paths_from_draws(np.random.default_rng(3), draws, history, exog)
     se = np.sqrt(fast.var(0) / S + slow.var(0) / S)
@@ -56,7 +59,8 @@ def test_one_step_predictive_is_multivariate_t(known_var, rng):
     design, post, series = _setup(known_var, rng, lags=2)
     exog = future_exogenous_rows(series, Deterministics(), 1)
     history = series.values[-2:]
-    paths = simulate_paths(np.random.default_rng(4), post, history, exog, 30_000)[:, 0]
+    paths = simulate_paths(np.random.default_rng(4), post, history, exog, 30_000,
+                           method="projection")[:, 0]
     x = np.concatenate([exog[0], history[::-1].ravel()])
     v = np.linalg.solve(post.R.T, x)
     dof = post.df - post.n + 1
@@ -66,12 +70,27 @@ def test_one_step_predictive_is_multivariate_t(known_var, rng):
         assert stats.kstest(paths[:, i], ref.cdf).pvalue > ALPHA / post.n
 
 
-def test_same_seed_same_forecast_bit_for_bit(known_var, rng):
+@pytest.mark.parametrize("method", ["projection", "explicit", "auto"])
+def test_same_seed_same_forecast_bit_for_bit(known_var, rng, method):
     design, post, series = _setup(known_var, rng)
     exog = future_exogenous_rows(series, Deterministics(), 5)
-    a = simulate_paths(np.random.default_rng(9), post, series.values[-1:], exog, 100)
-    b = simulate_paths(np.random.default_rng(9), post, series.values[-1:], exog, 100)
+    a = simulate_paths(np.random.default_rng(9), post, series.values[-1:], exog, 100,
+                       method=method)
+    b = simulate_paths(np.random.default_rng(9), post, series.values[-1:], exog, 100,
+                       method=method)
     assert np.array_equal(a, b)
+
+
+def test_explicit_method_matches_closed_form_one_step_mean(known_var, rng):
+    # E[y_T+1 | Y] = B_bar'x_T+1 (methods sec. 7); z-test at alpha 1e-3 per series.
+    design, post, series = _setup(known_var, rng, lags=2)
+    exog = future_exogenous_rows(series, Deterministics(), 1)
+    history = series.values[-2:]
+    paths = simulate_paths(np.random.default_rng(6), post, history, exog, 20_000,
+                           method="explicit")[:, 0]
+    x = np.concatenate([exog[0], history[::-1].ravel()])
+    z = (paths.mean(0) - post.B.T @ x) / (paths.std(0) / np.sqrt(len(paths)))
+    assert np.all(np.abs(z) < stats.norm.ppf(1 - ALPHA / (2 * post.n)))
 
 
 def test_spectral_radius_matches_statsmodels_roots():

@@ -37,6 +37,7 @@ __all__ = ["MinnesotaHyper", "NIWPrior", "ar_residual_variances", "minnesota_pri
 #: accepted ranges: beyond them the prior variances under- or overflow
 _RANGES = {
     "tightness": (1e-6, 1e3),
+    "cross": (1e-6, 1e3),
     "det_scale": (1e-6, 1e8),
     "sum_coef": (1e-6, 1e6),
     "initial": (1e-6, 1e6),
@@ -48,6 +49,10 @@ class MinnesotaHyper:
     """Hyperparameters of the Minnesota prior.
 
     tightness : prior s.d. of a series' own first lag (lambda_1), > 0.
+    cross : cross-variable tightness (lambda_2): other series' lags get s.d. scaled by
+        this factor relative to own lags. The natural-conjugate form needs cross = 1
+        (its coefficient covariance is Sigma (x) Omega0, one profile for every
+        equation); other values need an independent prior.
     decay : lag decay exponent on the s.d. (1 = harmonic: s.d. ~ 1/l, variance ~ 1/l^2).
     det_scale : prior s.d. of deterministic/exogenous coefficients in units of the
         equation's residual s.d. (large = nearly flat).
@@ -56,6 +61,7 @@ class MinnesotaHyper:
     """
 
     tightness: float = 0.2
+    cross: float = 1.0
     decay: float = 1.0
     det_scale: float = 1000.0
     sum_coef: float | None = None
@@ -148,6 +154,13 @@ def minnesota_prior(
     psi : (n,) scales; default :func:`ar_residual_variances`.
     """
     n, m, k = design.n, design.n_det, design.k
+    if hyper.cross != 1.0:
+        raise SpecificationError(
+            f"the natural-conjugate Minnesota prior has cross-variable tightness 1 "
+            f"(got {hyper.cross:g}): its coefficient covariance Sigma (x) Omega0 gives every "
+            "equation the same shrinkage profile, so other series' lags cannot be shrunk "
+            "harder than own lags; use cross=1, or an independent Normal prior"
+        )
     prior_mean = np.asarray(prior_mean, dtype=np.float64)
     if prior_mean.shape != (n,):
         raise SpecificationError(f"prior_mean must have one value per series ({n})")

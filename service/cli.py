@@ -10,6 +10,7 @@ cannot be read or used (any other :class:`priors.PriorsError`).
 from __future__ import annotations
 
 import argparse
+import contextlib
 import json
 import math
 import os
@@ -196,6 +197,10 @@ def build_parser() -> argparse.ArgumentParser:
                      description="Bayesian VAR forecasts of monthly (or other regular) "
                                  "demand series from a CSV file.")
     parser.add_argument("--version", action="version", version=f"%(prog)s {_version()}")
+    parser.add_argument("--blas-threads", type=_seed, default=1, metavar="N",
+                        help="threads for linear algebra; 0 = the libraries' default. One "
+                             "thread was fastest at every model size on 2-core machines "
+                             "(see DEVELOPERS.md, benchmarks)")
     sub = parser.add_subparsers(dest="command", metavar="COMMAND", required=True)
     common = {"parents": [_model_options()], "formatter_class": _HelpFormatter}
     data_help = "CSV file: a header row, dates in the first column, one column per series"
@@ -285,13 +290,22 @@ def _fit(args: argparse.Namespace) -> str:
 
 def _run(args: argparse.Namespace) -> str:
     """Run the command; warnings (e.g. tuning at a bound) become one-line notes, each once."""
-    with warnings.catch_warnings(record=True) as caught:
+    with warnings.catch_warnings(record=True) as caught, _blas_threads(args.blas_threads):
         warnings.simplefilter("always", ConvergenceWarning)
         try:
             return args.run(args)
         finally:
             for message in dict.fromkeys(_one_line(w.message) for w in caught):
                 print(f"fanfold: warning: {message}", file=sys.stderr)
+
+
+def _blas_threads(limit: int) -> contextlib.AbstractContextManager[object]:
+    if limit == 0:
+        return contextlib.nullcontext()
+    import scipy.linalg  # noqa: F401 - load scipy's own BLAS so the limit reaches it
+    from threadpoolctl import threadpool_limits
+
+    return threadpool_limits(limits=limit, user_api="blas")
 
 
 def main(argv: Sequence[str] | None = None) -> int:

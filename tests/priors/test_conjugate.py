@@ -143,3 +143,19 @@ def test_fast_log_ml_equals_qr_route(known_var, rng, dummies):
     exact = log_marginal_likelihood(design, prior)
     fast = log_marginal_likelihood_fast(Moments.of(design), prior)
     assert fast == pytest.approx(exact, rel=1e-9)
+
+
+def test_cross_variable_tightness_other_than_one_is_refused(known_var, rng):
+    # Kadiyala & Karlsson (1997); Sims & Zha (1998): Cov(vec B | Sigma) = Sigma (x) Omega0
+    # makes the shrinkage profile common to all equations, so lambda_2 must be 1.
+    from priors.errors import SpecificationError
+    from priors.shrinkage import MinnesotaHyper, minnesota_prior
+
+    design, _ = design_and_prior(known_var.simulate(rng, 40), lags=1)
+    with pytest.raises(SpecificationError, match="cross-variable tightness 1"):
+        minnesota_prior(design, MinnesotaHyper(cross=0.5), np.ones(design.n))
+    prior = minnesota_prior(design, MinnesotaHyper(cross=1.0), np.ones(design.n))
+    # the implied prior s.d. ratio of a cross lag to an own lag is sigma_i / sigma_j
+    psi = np.diag(prior.S0)  # nu0 - n - 1 = 1, so S0 = diag(psi)
+    own, cross = prior.omega[1 + 0] * psi[0], prior.omega[1 + 1] * psi[0]
+    assert np.sqrt(cross / own) == pytest.approx(np.sqrt(psi[0] / psi[1]))

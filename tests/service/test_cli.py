@@ -322,3 +322,17 @@ def test_dummy_priors_hyperprior_and_explosive_screening_options(run) -> None:
     assert 0.0 <= json.loads(out)["rejected_explosive_share"] < 1.0
     code, _, err = run("fit", DEMO, "--sum-coef", "-1")
     assert code == 2 and "--sum-coef" in err
+
+
+def test_blas_threads_option(run) -> None:
+    a = run("--blas-threads", 0, "forecast", DEMO, "--horizon", 2, "--draws", 100,
+            "--seed", 4, "--lags", 1, "--json")
+    b = run("--blas-threads", 1, "forecast", DEMO, "--horizon", 2, "--draws", 100,
+            "--seed", 4, "--lags", 1, "--json")
+    assert a[0] == b[0] == 0
+    # thread count changes speed, not the numbers (to rounding in BLAS sums)
+    fa, fb = json.loads(a[1])["forecasts"], json.loads(b[1])["forecasts"]
+    for name in fa:
+        assert fa[name]["mean"] == pytest.approx(fb[name]["mean"], rel=1e-9)
+    code, _, err = run("--blas-threads", -1, "forecast", DEMO, "--horizon", 2)
+    assert code == 2 and "--blas-threads" in err

@@ -220,6 +220,9 @@ def build_parser() -> argparse.ArgumentParser:
     fc.add_argument("--out", metavar="FILE.csv",
                     help="also write a tidy CSV: series, date, step, mean, median, "
                          "q<level>... (default: no file)")
+    fc.add_argument("--cumulative", action="store_true",
+                    help="report running totals over steps 1..h (e.g. total demand up to each "
+                         "date), summed path by path so cross-period correlation counts")
     fc.add_argument("--reject-explosive", action="store_true",
                     help="drop parameter draws with explosive dynamics (companion spectral "
                          "radius >= 1) and report the share dropped")
@@ -269,6 +272,8 @@ def _forecast(args: argparse.Namespace) -> str:
     seed = secrets.randbits(32) if args.seed is None else args.seed
     fc = model.forecast(args.horizon, rng=np.random.default_rng(seed), draws=args.draws,
                         reject_explosive=args.reject_explosive)
+    if args.cumulative:
+        fc = fc.cumulative()
     if args.out:
         table = fc.to_frame(args.quantiles)
         try:
@@ -277,6 +282,7 @@ def _forecast(args: argparse.Namespace) -> str:
             raise InputError(f"cannot write {args.out!r}: {_one_line(exc)}") from exc
         print(f"fanfold: wrote {len(table)} rows to {args.out}", file=sys.stderr)
     payload = forecast_to_dict(model, fc, quantiles=args.quantiles, seed=seed, draws=args.draws)
+    payload["cumulative"] = bool(args.cumulative)
     return _json(payload) if args.json else format_forecast(payload)
 
 

@@ -68,6 +68,8 @@ def format_forecast(payload: dict[str, Any]) -> str:
         _hyper_line(payload["hyperparameters"]),
         _log_ml_line(payload["log_marginal_likelihood"]),
     ]
+    if payload.get("cumulative"):
+        out.append("values are running totals from the first forecast step")
     share = payload.get("rejected_explosive_share")
     if share is not None:
         out.append(f"explosive parameter draws rejected: {100 * share:.1f}%")

@@ -44,7 +44,7 @@ def test_forecast_json_layout(run) -> None:
     out = _forecast_json(run, "--seed", 1)
     assert set(out) == {"forecasts", "lags", "hyperparameters", "log_marginal_likelihood",
                         "seed", "draws", "horizon",
-                        "rejected_explosive_share"}
+                        "rejected_explosive_share", "cumulative"}
     assert (out["lags"], out["seed"], out["draws"], out["horizon"]) == (2, 1, 200, 3)
     assert set(out["hyperparameters"]) == {"tightness", "decay", "det_scale", "sum_coef",
                                            "initial"}
@@ -336,3 +336,16 @@ def test_blas_threads_option(run) -> None:
         assert fa[name]["mean"] == pytest.approx(fb[name]["mean"], rel=1e-9)
     code, _, err = run("--blas-threads", -1, "forecast", DEMO, "--horizon", 2)
     assert code == 2 and "--blas-threads" in err
+
+
+def test_cumulative_totals_are_sums_of_paths(run) -> None:
+    args = ("forecast", DEMO, "--horizon", 3, "--draws", 400, "--seed", 8, "--lags", 1,
+            "--json")
+    per = json.loads(run(*args)[1])
+    cum = json.loads(run(*args, "--cumulative")[1])
+    assert cum["cumulative"] is True and per["cumulative"] is False
+    for name, fc in per["forecasts"].items():
+        # means add up exactly (same seed, same paths); quantiles of a sum do not
+        assert cum["forecasts"][name]["mean"] == pytest.approx(np.cumsum(fc["mean"]).tolist())
+        q95 = cum["forecasts"][name]["quantiles"]["0.95"]
+        assert q95[2] < sum(fc["quantiles"]["0.95"])  # sum of 95% quantiles overshoots

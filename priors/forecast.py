@@ -19,6 +19,15 @@ from .errors import SpecificationError
 __all__ = ["Forecast", "band_levels", "check_quantiles", "fan_bands"]
 
 
+def draw_quantiles(paths: FloatArray, levels: FloatArray) -> FloatArray:
+    """np.quantile over the draws axis of (S, ...) paths, as (len(levels), ...).
+
+    The draws axis is moved last and made contiguous first: selecting along a
+    contiguous axis is several times faster than along axis 0 of (S, h, n).
+    """
+    return np.quantile(np.ascontiguousarray(np.moveaxis(paths, 0, -1)), levels, axis=-1)
+
+
 def check_quantiles(levels: Sequence[float]) -> FloatArray:
     """Validate quantile levels: each strictly inside (0, 1), sorted, no repeats."""
     q = np.asarray(list(levels), dtype=np.float64)
@@ -48,7 +57,7 @@ def fan_bands(paths: FloatArray, coverages: Sequence[float]) -> dict[float, Floa
     fracs = band_levels(pct)
     lows = (1.0 - fracs) / 2.0
     levels = np.concatenate([lows, 1.0 - lows])
-    qs = np.quantile(paths, levels, axis=0)
+    qs = draw_quantiles(paths, levels)
     m = fracs.size
     # keys are the coverages as given: 100 * (29 / 100) is 28.999999999999996
     return {float(c): np.stack([qs[i], qs[m + i]]) for i, c in enumerate(pct)}
@@ -78,11 +87,11 @@ class Forecast:
 
     def median(self) -> FloatArray:
         """(h, n) predictive median."""
-        return np.median(self.paths, axis=0)
+        return draw_quantiles(self.paths, np.array([0.5]))[0]
 
     def quantiles(self, levels: Sequence[float]) -> FloatArray:
         """(len(levels), h, n) predictive quantiles."""
-        return np.quantile(self.paths, check_quantiles(levels), axis=0)
+        return draw_quantiles(self.paths, check_quantiles(levels))
 
     def bands(self, coverages: Sequence[float] = (50, 80, 95)) -> dict[float, FloatArray]:
         """Nested central intervals, see :func:`fan_bands`."""

@@ -11,8 +11,8 @@ samplers of the same distribution, whichever is cheaper for the model's size:
   flops and 2n normals per draw and step instead of O(k^2 n) flops and k*n normals per
   draw.
 - "explicit" draws (B, Sigma) and runs the recursion: O(k^2 n) per draw once, then
-  O(k n) per step. It is the cheaper one when n < h (measured in
-  tests/benchmarks: 2.7x faster at n=3, 1.6x at n=7; 1.9x slower at n=20, h=12).
+  O(k n) per step. It is the cheaper one for small models (n < h and k < 2h; measured
+  2.6x faster at n=3, p=4, h=12).
 
 :func:`simulate_paths_from_draws` runs the recursion for given draws, e.g. draws screened
 for explosive dynamics or drawn by another sampler.
@@ -52,7 +52,7 @@ def _start_lags(history: FloatArray, size: int) -> FloatArray:
 
 
 #: draws per block in :func:`simulate_paths`: keeps the (block, h, k) basis in cache
-_BLOCK_DOUBLES = 2_000_000
+_BLOCK_DOUBLES = 8_000_000
 
 
 METHODS = ("auto", "projection", "explicit")
@@ -69,14 +69,16 @@ def simulate_paths(
 ) -> FloatArray:
     """Draw ``size`` predictive paths of ``h = len(exog_rows)`` steps, (S, h, n).
 
-    ``method``: "projection", "explicit" or "auto" (explicit when n < h). Both are
-    exact; the same seed gives the same paths for the same method.
+    ``method``: "projection", "explicit" or "auto" (explicit when n < h and h > k/2,
+    i.e. few series and few regressors; projection otherwise). Both are exact; the same
+    seed gives the same paths for the same method.
     """
     if method not in METHODS:
         raise SpecificationError(f"method must be one of {', '.join(METHODS)}; got {method!r}")
     size = check_size(size)
     n, h = post.B.shape[1], exog_rows.shape[0]
-    if method == "explicit" or (method == "auto" and n < h):
+    k = post.B.shape[0]
+    if method == "explicit" or (method == "auto" and n < h and 2 * h > k):
         M = draw_sigma_roots(rng, post.S, post.df, size)
         B = draw_coefficients(rng, post, M)
         return _recursion(rng, B, M, history, exog_rows)
@@ -109,12 +111,18 @@ def _simulate_projected(
     paths = np.empty((size, h, n))
     nblocks = -(-size * h * k // _BLOCK_DOUBLES)  # ceil: blocks of equal size
     block = -(-size // nblocks)
-    Q = np.empty((block, h, k))
+    # h <= k/2: update the Cholesky factor of the Gram matrix of the v_h (one pass over
+    # the stored v_h per step); otherwise the v_h may become dependent and classical
+    # Gram-Schmidt, repeated once, is kept for its accuracy.
+    gram = 2 * h <= k
+    Q = np.empty((h, block, k))  # step-major: batched dot products run faster
+    Lg = np.zeros((block, h, h)) if gram else None
     coef = np.zeros((block, h))
     for lo in range(0, size, block):
         hi = min(lo + block, size)
         s = hi - lo
-        Qb, cb, Mb, out = Q[:s], coef[:s], M[lo:hi], paths[lo:hi]
+        Qb, cb, Mb, out = Q[:, :s], coef[:s], M[lo:hi], paths[lo:hi]
+        Lb = Lg
         for step in range(h):
             lags = min(step, p)
             w = n * lags  # entries of x simulated in this block
@@ -126,24 +134,61 @@ def _simulate_projected(
                 mean = mean + x_sim @ post.B[m : m + w]
                 v = v.copy()
                 v[:, m:] += x_sim @ Rinv[m : m + w, m:]  # R^-1 is upper triangular
-            r = v
             cb[:] = 0.0
-            if step:
-                Qp = Qb[:, :step]
-                for _ in range(2):  # classical Gram-Schmidt, repeated once
-                    c = np.einsum("sgk,sk->sg", Qp, r)
-                    r = r - np.einsum("sg,sgk->sk", c, Qp)
-                    cb[:, :step] += c
-            rho = np.linalg.norm(r, axis=1)
-            # once h > k the v_h are linearly dependent: no new direction, no new normal
-            rho = np.where(rho > 1e-9 * np.linalg.norm(v, axis=1), rho, 0.0)
-            scale = np.divide(1.0, rho, out=np.zeros_like(rho), where=rho > 0)
-            np.multiply(r, scale[:, None], out=Qb[:, step])
-            cb[:, step] = rho
+            if gram:
+                _gram_step(Qb, Lb[:s], cb, v, step)
+            else:
+                _gram_schmidt_step(Qb, cb, v, step)
             e = np.einsum("sg,gsn->sn", cb[:, : step + 1], normals[: step + 1, 0, lo:hi])
             e += normals[step, 1, lo:hi]
             out[:, step] = mean + np.einsum("sij,sj->si", Mb, e)
     return paths
+
+
+def _gram_schmidt_step(Q: FloatArray, coef: FloatArray, v: FloatArray, step: int) -> None:
+    """Orthonormalise v (s, k) against Q[:step] (Q is (h, s, k)); write Q[step] and
+    coef[:, :step+1].
+
+    coef[:, g] = q_g'v for g < step and coef[:, step] = the norm of the remainder, so
+    Z'v = sum_g coef_g Z'q_g with independent N(0, I_n) vectors Z'q_g.
+    """
+    r = v
+    if step:
+        Qp = Q[:step]
+        for _ in range(2):  # classical Gram-Schmidt, repeated once
+            c = np.einsum("gsk,sk->sg", Qp, r)
+            r = r - np.einsum("sg,gsk->sk", c, Qp)
+            coef[:, :step] += c
+    rho = np.linalg.norm(r, axis=1)
+    # once h > k the v_h are linearly dependent: no new direction, no new normal
+    rho = np.where(rho > 1e-9 * np.linalg.norm(v, axis=1), rho, 0.0)
+    scale = np.divide(1.0, rho, out=np.zeros_like(rho), where=rho > 0)
+    np.multiply(r, scale[:, None], out=Q[step])
+    coef[:, step] = rho
+
+
+def _gram_step(V: FloatArray, L: FloatArray, coef: FloatArray, v: FloatArray,
+               step: int) -> None:
+    """The same coefficients from the Cholesky factor L of the Gram matrix of V.
+
+    V is (h, s, k). Row ``step`` of L solves L[:step, :step] l = V[:step] v (forward
+    substitution, vectorised over draws); the diagonal is sqrt(v'v - l'l). Stores v in
+    V[step].
+    """
+    if step:
+        g = np.einsum("gsk,sk->sg", V[:step], v)
+        ell = coef[:, :step]
+        for j in range(step):
+            acc = g[:, j] - np.einsum("si,si->s", L[:, j, :j], ell[:, :j]) if j else g[:, j]
+            d = L[:, j, j]
+            ell[:, j] = np.divide(acc, d, out=np.zeros_like(acc), where=d > 0)
+        L[:, step, :step] = ell
+    vv = np.einsum("sk,sk->s", v, v)
+    rho2 = vv - np.einsum("sg,sg->s", coef[:, :step], coef[:, :step])
+    rho = np.sqrt(np.where(rho2 > 1e-12 * vv, rho2, 0.0))
+    L[:, step, step] = rho
+    coef[:, step] = rho
+    V[step] = v
 
 
 def _recursion(
@@ -152,21 +197,23 @@ def _recursion(
 ) -> FloatArray:
     """y_h = B_s'x_h + M_s z_h for each draw s, feeding paths back as lags; (S, h, n).
 
-    The shocks M_s z_h and the deterministic part are formed for all steps at once;
-    each step then costs one batched (1 x k)(k x n) product per draw.
+    The shocks M_s z_h and the deterministic part are formed for all steps at once.
+    Values are stored newest first, so the p lags of every step are one contiguous
+    window (lag 1 first) and each step costs one batched (n x np)(np) product.
     """
     size, k, n = B.shape
     h, m = exog_rows.shape
     p = history.shape[0]
-    shocks = np.einsum("sij,hsj->hsi", M, rng.standard_normal((h, size, n)))
-    base = np.einsum("hm,smn->hsn", exog_rows, B[:, :m]) + shocks if m else shocks
-    buf = np.empty((size, p + h, n))  # history then paths, in time order
-    buf[:, :p] = history
-    B_lags = B[:, m:]
+    base = np.matmul(M, rng.standard_normal((size, n, h))).transpose(0, 2, 1)  # (S, h, n)
+    if m:
+        base = base + np.matmul(exog_rows[None], B[:, :m])
+    buf = np.empty((size, h + p, n))  # position h - 1 - step holds step's value
+    buf[:, h:] = history[::-1]
+    B_lags_t = np.ascontiguousarray(B[:, m:].transpose(0, 2, 1))  # (S, n, np)
     for step in range(h):
-        x = buf[:, step : step + p][:, ::-1].reshape(size, 1, p * n)  # lag 1 first
-        buf[:, p + step] = base[step] + (x @ B_lags)[:, 0]
-    return buf[:, p:].copy()
+        x = buf[:, h - step : h - step + p].reshape(size, p * n)
+        buf[:, h - 1 - step] = base[:, step] + np.einsum("snk,sk->sn", B_lags_t, x)
+    return np.ascontiguousarray(buf[:, h - 1 :: -1]) if h else buf[:, :0]
 
 
 def simulate_paths_from_draws(

@@ -29,14 +29,15 @@ def _setup(known_var, rng, T=60, lags=1, n=2):
     return design, post, series
 
 
-@pytest.mark.parametrize("lags", [1, 3])
-def test_projection_paths_match_explicit_parameter_draws(known_var, rng, lags):
+@pytest.mark.parametrize(("lags", "h"), [(1, 8), (3, 8), (6, 6)])
+def test_projection_paths_match_explicit_parameter_draws(known_var, rng, lags, h):
     # The projection trick (draw Z'R^-T x_h by Gram-Schmidt) must give the same joint
     # distribution as explicit (B, Sigma) draws. With lags=1, h = 8 > k = 3 also covers
     # the steps where the projection vectors become linearly dependent; lags=3 covers
-    # steps that mix observed and simulated lags.
+    # steps that mix observed and simulated lags; lags=6, h=6 <= k/2 = 6.5 takes the
+    # Gram-matrix Cholesky route instead of Gram-Schmidt.
     design, post, series = _setup(known_var, rng, lags=lags)
-    h, S = 8, 40_000
+    S = 40_000
     exog = future_exogenous_rows(series, Deterministics(), h)
     history = series.values[-lags:]
     fast = simulate_paths(np.random.default_rng(1), post, history, exog, S,

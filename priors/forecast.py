@@ -20,12 +20,8 @@ __all__ = ["Forecast", "band_levels", "check_quantiles", "fan_bands"]
 
 
 def draw_quantiles(paths: FloatArray, levels: FloatArray) -> FloatArray:
-    """np.quantile over the draws axis of (S, ...) paths, as (len(levels), ...).
-
-    The draws axis is moved last and made contiguous first: selecting along a
-    contiguous axis is several times faster than along axis 0 of (S, h, n).
-    """
-    return np.quantile(np.ascontiguousarray(np.moveaxis(paths, 0, -1)), levels, axis=-1)
+    """np.quantile over the draws axis of (S, ...) paths, as (len(levels), ...)."""
+    return np.quantile(paths, levels, axis=0)
 
 
 def check_quantiles(levels: Sequence[float]) -> FloatArray:

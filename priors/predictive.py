@@ -108,7 +108,7 @@ def _simulate_projected(
     normals = rng.standard_normal((h, 2, size, n))
     Rinv = solve_triangular(post.R, np.eye(k), lower=False, check_finite=False)
     past = history[::-1].reshape(-1)  # lag 1 first, (p n,)
-    paths = np.empty((size, h, n))
+    rev = np.empty((size, h, n))  # paths newest first: step t at position h - 1 - t
     nblocks = -(-size * h * k // _BLOCK_DOUBLES)  # ceil: blocks of equal size
     block = -(-size // nblocks)
     # h <= k/2: update the Cholesky factor of the Gram matrix of the v_h (one pass over
@@ -116,13 +116,12 @@ def _simulate_projected(
     # Gram-Schmidt, repeated once, is kept for its accuracy.
     gram = 2 * h <= k
     Q = np.empty((h, block, k))  # step-major: batched dot products run faster
-    Lg = np.zeros((block, h, h)) if gram else None
+    Lg = np.zeros((block, h, h)) if gram else None  # inverse Cholesky factor of the Gram
     coef = np.zeros((block, h))
     for lo in range(0, size, block):
         hi = min(lo + block, size)
         s = hi - lo
-        Qb, cb, Mb, out = Q[:, :s], coef[:s], M[lo:hi], paths[lo:hi]
-        Lb = Lg
+        Qb, cb, Mb, out = Q[:, :s], coef[:s], M[lo:hi], rev[lo:hi]
         for step in range(h):
             lags = min(step, p)
             w = n * lags  # entries of x simulated in this block
@@ -130,19 +129,19 @@ def _simulate_projected(
             mean = np.broadcast_to(x_fix @ post.B, (s, n))
             v = np.broadcast_to(x_fix @ Rinv, (s, k))
             if w:
-                x_sim = out[:, step - lags : step][:, ::-1].reshape(s, w)
+                x_sim = out[:, h - step : h - step + lags].reshape(s, w)  # lag 1 first
                 mean = mean + x_sim @ post.B[m : m + w]
                 v = v.copy()
                 v[:, m:] += x_sim @ Rinv[m : m + w, m:]  # R^-1 is upper triangular
             cb[:] = 0.0
             if gram:
-                _gram_step(Qb, Lb[:s], cb, v, step)
+                _gram_step(Qb, Lg[:s], cb, v, step)
             else:
                 _gram_schmidt_step(Qb, cb, v, step)
             e = np.einsum("sg,gsn->sn", cb[:, : step + 1], normals[: step + 1, 0, lo:hi])
             e += normals[step, 1, lo:hi]
-            out[:, step] = mean + np.einsum("sij,sj->si", Mb, e)
-    return paths
+            out[:, h - 1 - step] = mean + np.einsum("sij,sj->si", Mb, e)
+    return np.ascontiguousarray(rev[:, ::-1])
 
 
 def _gram_schmidt_step(Q: FloatArray, coef: FloatArray, v: FloatArray, step: int) -> None:
@@ -167,26 +166,26 @@ def _gram_schmidt_step(Q: FloatArray, coef: FloatArray, v: FloatArray, step: int
     coef[:, step] = rho
 
 
-def _gram_step(V: FloatArray, L: FloatArray, coef: FloatArray, v: FloatArray,
+def _gram_step(V: FloatArray, Linv: FloatArray, coef: FloatArray, v: FloatArray,
                step: int) -> None:
     """The same coefficients from the Cholesky factor L of the Gram matrix of V.
 
-    V is (h, s, k). Row ``step`` of L solves L[:step, :step] l = V[:step] v (forward
-    substitution, vectorised over draws); the diagonal is sqrt(v'v - l'l). Stores v in
-    V[step].
+    V is (h, s, k); ``Linv`` holds L^-1 (lower triangular, per draw). The new row of L
+    is l = L^-1 V[:step] v with diagonal rho = sqrt(v'v - l'l), and the new row of
+    L^-1 is (-l' L^-1 / rho, 1 / rho), so no triangular solve is needed. A direction
+    with rho = 0 (v dependent on earlier ones) gets a zero row. Stores v in V[step].
     """
+    ell = coef[:, :step]
     if step:
         g = np.einsum("gsk,sk->sg", V[:step], v)
-        ell = coef[:, :step]
-        for j in range(step):
-            acc = g[:, j] - np.einsum("si,si->s", L[:, j, :j], ell[:, :j]) if j else g[:, j]
-            d = L[:, j, j]
-            ell[:, j] = np.divide(acc, d, out=np.zeros_like(acc), where=d > 0)
-        L[:, step, :step] = ell
+        np.einsum("sij,sj->si", Linv[:, :step, :step], g, out=ell)
     vv = np.einsum("sk,sk->s", v, v)
-    rho2 = vv - np.einsum("sg,sg->s", coef[:, :step], coef[:, :step])
+    rho2 = vv - np.einsum("sg,sg->s", ell, ell)
     rho = np.sqrt(np.where(rho2 > 1e-12 * vv, rho2, 0.0))
-    L[:, step, step] = rho
+    inv = np.divide(1.0, rho, out=np.zeros_like(rho), where=rho > 0)
+    if step:
+        Linv[:, step, :step] = -np.einsum("sj,sji->si", ell, Linv[:, :step, :step]) * inv[:, None]
+    Linv[:, step, step] = inv
     coef[:, step] = rho
     V[step] = v
 

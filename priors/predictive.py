@@ -7,9 +7,10 @@ samplers of the same distribution, whichever is cheaper for the model's size:
   and, with ``B = B_bar + R^-1 Z M'``, ``B'x_h = B_bar'x_h + M Z'v_h`` where
   ``v_h = R^-T x_h``. The vectors ``Z'v_1, ..., Z'v_H`` are jointly normal with
   ``Cov(Z'v_g, Z'v_h) = (v_g'v_h) I_n``, so they can be drawn step by step by
-  orthogonalising the v_h as they appear (Gram-Schmidt, twice for stability): O(k^2)
-  flops and 2n normals per draw and step instead of O(k^2 n) flops and k*n normals per
-  draw.
+  orthogonalising the v_h as they appear (classical Gram-Schmidt, twice for
+  stability; for h <= k/2 an update of the inverse Cholesky factor of their Gram
+  matrix, which needs one pass over the stored vectors): O(k^2) flops and 2n normals per
+  draw and step instead of O(k^2 n) flops and k*n normals per draw.
 - "explicit" draws (B, Sigma) and runs the recursion: O(k^2 n) per draw once, then
   O(k n) per step. It is the cheaper one for small models (n < h and k < 2h; measured
   2.6x faster at n=3, p=4, h=12).

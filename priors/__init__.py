@@ -1,7 +1,7 @@
 """Fanfold's model: data -> Minnesota prior -> NIW posterior -> predictive paths.
 
 Pure numerics over numpy arrays (plus pandas at the data edge); no web, database or
-environment access. The estimator facade is :class:`BayesVAR`.
+environment access. The estimator facade is :class:`FanfoldVAR`.
 """
 
 from .calendar import Calendar
@@ -31,7 +31,7 @@ from .errors import (
     TooFewObservationsError,
 )
 from .forecast import Forecast, fan_bands
-from .model import BayesVAR, LagChoice
+from .model import FanfoldVAR, LagChoice
 from .predictive import companion_spectral_radius, simulate_paths, simulate_paths_from_draws
 from .sampling import Draws, sample_posterior
 from .shrinkage import MinnesotaHyper, NIWPrior, minnesota_prior
@@ -40,7 +40,6 @@ from .tuning import TightnessProfile, TuningResult, tune_hyperparameters
 
 __all__ = [
     "TRANSFORMS",
-    "BayesVAR",
     "Calendar",
     "ConstantSeriesError",
     "ConvergenceWarning",
@@ -50,6 +49,7 @@ __all__ = [
     "Draws",
     "DuplicateNameError",
     "ExogenousError",
+    "FanfoldVAR",
     "Forecast",
     "LagChoice",
     "MinnesotaHyper",

@@ -1,4 +1,4 @@
-"""Estimator facade: ``BayesVAR(...).fit(data)`` then ``.forecast(h, rng=...)``.
+"""Estimator facade: ``FanfoldVAR(...).fit(data)`` then ``.forecast(h, rng=...)``.
 
 ``__init__`` only stores settings; ``fit`` validates, chooses lags and hyperparameters,
 computes the closed-form posterior and sets the fitted attributes (names ending in ``_``).
@@ -31,7 +31,7 @@ from .shrinkage import MinnesotaHyper, NIWPrior, ar_residual_variances, minnesot
 from .transforms import default_prior_mean, inverse_paths
 from .tuning import tune_hyperparameters
 
-__all__ = ["BayesVAR", "LagChoice", "default_max_lags"]
+__all__ = ["FanfoldVAR", "LagChoice", "default_max_lags"]
 
 PRIORS = ("minnesota", "flat")
 _MAX_LAGS = {"monthly": 13, "quarterly": 5, "weekly": 8, "daily": 14}
@@ -66,7 +66,7 @@ def _bic(design: Design) -> float:
     return float(logdet + np.log(T) / T * design.n * design.k)
 
 
-class BayesVAR:
+class FanfoldVAR:
     """Bayesian VAR with a natural-conjugate Minnesota prior.
 
     Parameters
@@ -229,7 +229,7 @@ class BayesVAR:
         exog: pd.DataFrame | FloatArray | None = None,
         names: Sequence[str] | None = None,
         period: int | None = None,
-    ) -> BayesVAR:
+    ) -> FanfoldVAR:
         """Fit to ``data`` (T, n): a DataFrame with a regular DatetimeIndex or an array."""
         self._check_settings()
         series = load_series(data, transforms=self.transforms, exog=exog, names=names,
@@ -259,7 +259,7 @@ class BayesVAR:
 
     def _check_fitted(self) -> None:
         if not hasattr(self, "posterior_"):
-            raise NotFittedError("this BayesVAR is not fitted yet; call fit(data) first")
+            raise NotFittedError("this FanfoldVAR is not fitted yet; call fit(data) first")
 
     # ------------------------------------------------------------------ results
     def sample(self, draws: int, *, rng: np.random.Generator) -> Draws:

@@ -1,6 +1,6 @@
 """Command line: ``fanfold forecast DATA.csv --horizon 12`` and ``fanfold fit DATA.csv``.
 
-Parses the arguments, reads the CSV, calls :class:`priors.BayesVAR` and prints text
+Parses the arguments, reads the CSV, calls :class:`priors.FanfoldVAR` and prints text
 (:mod:`service.tables`) or JSON (:mod:`service.serialization`). Every expected failure
 is one line ``fanfold: error: <message>`` on stderr, with exit status 2 for a bad command
 line or model settings (:class:`priors.SpecificationError`) and 1 for a data file that
@@ -24,7 +24,7 @@ from typing import Any, NoReturn
 import numpy as np
 import pandas as pd
 
-from priors import TRANSFORMS, BayesVAR, ConvergenceWarning, PriorsError, SpecificationError
+from priors import TRANSFORMS, ConvergenceWarning, FanfoldVAR, PriorsError, SpecificationError
 from priors.model import default_max_lags
 
 from .serialization import forecast_to_dict, frame_from_csv, quantile_key, summary_to_dict
@@ -33,7 +33,7 @@ from .tables import format_fit, format_forecast
 __all__ = ["InputError", "UsageError", "build_parser", "main", "read_data"]
 
 EXIT_DATA, EXIT_USAGE = 1, 2
-PRIORS = ("minnesota", "flat")  # as accepted by BayesVAR(prior=...)
+PRIORS = ("minnesota", "flat")  # as accepted by FanfoldVAR(prior=...)
 
 
 class UsageError(Exception):
@@ -254,8 +254,8 @@ def _version() -> str:
 
 
 # ---------------------------------------------------------------------- commands
-def _fitted(args: argparse.Namespace) -> BayesVAR:
-    model = BayesVAR(lags=args.lags, max_lags=args.max_lags, prior=args.prior,
+def _fitted(args: argparse.Namespace) -> FanfoldVAR:
+    model = FanfoldVAR(lags=args.lags, max_lags=args.max_lags, prior=args.prior,
                      tightness=args.tightness, decay=args.decay, sum_coef=args.sum_coef,
                      initial=args.initial, hyperprior=args.hyperprior,
                      constant=args.constant, trend=args.trend, seasonal=args.seasonal,

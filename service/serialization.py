@@ -1,8 +1,8 @@
 """Wire formats: CSV data in, plain JSON-ready dicts out.
 
 Pure functions shared by the CLI and the HTTP API. :func:`frame_from_csv` turns the text
-of a data file into the DataFrame :meth:`priors.BayesVAR.fit` takes. The ``*_to_dict``
-functions read a fitted :class:`priors.BayesVAR` and its :class:`priors.Forecast`: numpy
+of a data file into the DataFrame :meth:`priors.FanfoldVAR.fit` takes. The ``*_to_dict``
+functions read a fitted :class:`priors.FanfoldVAR` and its :class:`priors.Forecast`: numpy
 scalars and arrays become ``int``, ``float`` and nested ``list``, and every NaN or
 infinite number becomes ``None`` (JSON ``null``), so ``json.dumps(..., allow_nan=False)``
 always succeeds.
@@ -20,7 +20,7 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
-from priors import BayesVAR, DataError, Forecast, TimeIndexError
+from priors import DataError, FanfoldVAR, Forecast, TimeIndexError
 from priors.forecast import check_quantiles
 
 __all__ = ["forecast_to_dict", "frame_from_csv", "quantile_key", "summary_to_dict"]
@@ -31,7 +31,7 @@ _DATE_HINT = "write dates like 2016-01-01 in the first column"
 def frame_from_csv(text: str) -> pd.DataFrame:
     """Series from CSV text: a header row, dates in the first column, one column per series.
 
-    Returns a DataFrame indexed by the dates; :meth:`priors.BayesVAR.fit` checks the rest
+    Returns a DataFrame indexed by the dates; :meth:`priors.FanfoldVAR.fit` checks the rest
     (numbers, gaps, missing values...). Raises :class:`priors.DataError` (unreadable CSV,
     no series column) or :class:`priors.TimeIndexError` (first column not dates).
     """
@@ -91,12 +91,12 @@ def _nums(values: Any) -> list[Any]:
     return out.tolist()
 
 
-def _hyperparameters(model: BayesVAR) -> dict[str, float | None]:
+def _hyperparameters(model: FanfoldVAR) -> dict[str, float | None]:
     return {k: _num(v) for k, v in model.hyperparameters().items() if k != "lags"}
 
 
 def forecast_to_dict(
-    model: BayesVAR, forecast: Forecast, *, quantiles: Sequence[float], seed: int, draws: int
+    model: FanfoldVAR, forecast: Forecast, *, quantiles: Sequence[float], seed: int, draws: int
 ) -> dict[str, Any]:
     """The one-shot forecast answer shared by the CLI (``--json``) and the HTTP API.
 
@@ -138,7 +138,7 @@ def forecast_to_dict(
     }
 
 
-def _span(model: BayesVAR) -> dict[str, Any]:
+def _span(model: FanfoldVAR) -> dict[str, Any]:
     """The estimation sample: dates of the first and last rows of Y, and their count."""
     index = model.series_.calendar.index
     nobs = int(model.design_.nobs)
@@ -150,7 +150,7 @@ def _span(model: BayesVAR) -> dict[str, Any]:
             "observations": nobs}
 
 
-def _stability(model: BayesVAR, rng: np.random.Generator, draws: int) -> dict[str, Any]:
+def _stability(model: FanfoldVAR, rng: np.random.Generator, draws: int) -> dict[str, Any]:
     radius = model.spectral_radius(draws, rng=rng)
     q = np.quantile(radius, [0.05, 0.5, 0.95])
     return {"draws": int(draws), "median": _num(q[1]), "q0.05": _num(q[0]),
@@ -158,7 +158,7 @@ def _stability(model: BayesVAR, rng: np.random.Generator, draws: int) -> dict[st
 
 
 def summary_to_dict(
-    model: BayesVAR, level: float = 0.9, *, rng: np.random.Generator | None = None,
+    model: FanfoldVAR, level: float = 0.9, *, rng: np.random.Generator | None = None,
     stability_draws: int = 500,
 ) -> dict[str, Any]:
     """Posterior summary of a fitted model.

@@ -8,7 +8,7 @@ Usage::
 Each scenario simulates data from a known stationary VAR(p) with a constant (fixed seed,
 companion spectral radius 0.8) and times, in a fresh subprocess per scenario and library:
 
-- Fanfold: ``BayesVAR(lags=p, tightness="auto").fit(Y)`` (marginal-likelihood tuning of
+- Fanfold: ``FanfoldVAR(lags=p, tightness="auto").fit(Y)`` (marginal-likelihood tuning of
   the tightness at fixed p), ``.forecast(12, draws=2000, rng=default_rng(0))`` and
   ``.quantiles([0.05, 0.5, 0.95])``, each piece timed on its own;
 - statsmodels: ``VAR(Y).fit(p)`` and ``.forecast_interval(Y[-p:], 12, alpha=0.1)``.
@@ -108,13 +108,13 @@ def _maxrss_bytes() -> int:
 
 
 def _fanfold_once(Y: np.ndarray, p: int) -> tuple[dict[str, float], list[str]]:
-    from priors import BayesVAR
+    from priors import FanfoldVAR
 
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always")
         c0 = time.process_time()
         t0 = time.perf_counter()
-        model = BayesVAR(lags=p, tightness="auto").fit(Y)
+        model = FanfoldVAR(lags=p, tightness="auto").fit(Y)
         t1 = time.perf_counter()
         fc = model.forecast(HORIZON, draws=DRAWS, rng=np.random.default_rng(0))
         t2 = time.perf_counter()
@@ -132,14 +132,14 @@ def _fanfold_once(Y: np.ndarray, p: int) -> tuple[dict[str, float], list[str]]:
 def _fit_breakdown(Y: np.ndarray, p: int) -> dict[str, float]:
     """Time the parts of fit through internal functions (best effort: they may change)."""
     try:
-        from priors import BayesVAR
+        from priors import FanfoldVAR
         from priors.conjugate import posterior
         from priors.data import Deterministics, build_design, load_series
         from priors.shrinkage import ar_residual_variances, minnesota_prior
         from priors.transforms import default_prior_mean
         from priors.tuning import tune_hyperparameters
 
-        base, tune = BayesVAR(lags=p, tightness="auto")._base_hyper()
+        base, tune = FanfoldVAR(lags=p, tightness="auto")._base_hyper()
         t0 = time.perf_counter()
         series = load_series(Y)
         design = build_design(series, p, Deterministics())

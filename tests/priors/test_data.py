@@ -6,7 +6,7 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from priors import BayesVAR
+from priors import FanfoldVAR
 from priors.data import Deterministics, build_design, future_exogenous_rows, load_series
 from priors.errors import (
     ConstantSeriesError,
@@ -72,7 +72,7 @@ def test_too_few_observations_mentions_differencing(rng):
 
 def test_too_few_observations_through_the_model(rng):
     with pytest.raises(TooFewObservationsError, match="use fewer lags or more data"):
-        BayesVAR(lags=12).fit(rng.standard_normal((15, 2)))
+        FanfoldVAR(lags=12).fit(rng.standard_normal((15, 2)))
 
 
 # ---------------------------------------------------------------- constant series
@@ -215,7 +215,7 @@ def test_future_exogenous_values_without_regressors(frame):
 
 
 def test_future_exogenous_values_through_the_model(frame, rng):
-    model = BayesVAR(lags=1, tightness=0.2).fit(frame, exog=rng.standard_normal((30, 1)))
+    model = FanfoldVAR(lags=1, tightness=0.2).fit(frame, exog=rng.standard_normal((30, 1)))
     with pytest.raises(ExogenousError, match="give their future values"):
         model.forecast(2, rng=rng)
 

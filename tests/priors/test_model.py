@@ -1,4 +1,4 @@
-"""The BayesVAR facade: demo-data sanity check, flat limit, reporting, ArviZ export."""
+"""The FanfoldVAR facade: demo-data sanity check, flat limit, reporting, ArviZ export."""
 
 from __future__ import annotations
 
@@ -10,7 +10,7 @@ import pandas as pd
 import pytest
 
 from priors.errors import NotFittedError, SpecificationError
-from priors.model import BayesVAR
+from priors.model import FanfoldVAR
 
 EXAMPLES = Path(__file__).resolve().parents[2] / "examples"
 
@@ -37,7 +37,7 @@ def test_demo_cross_effects_recovered_with_right_signs():
     # default model with seasonal dummies must recover each known lag-1 cross-effect's
     # sign, with a 90% credible interval that excludes zero.
     module, frame = _demo()
-    model = BayesVAR(seasonal=True).fit(frame)
+    model = FanfoldVAR(seasonal=True).fit(frame)
     table = model.coefficients(level=0.9).set_index(["equation", "regressor"])
     known = module.known_cross_effects()
     assert known
@@ -54,7 +54,7 @@ def test_flat_model_coefficients_equal_statsmodels_ols():
 
     data = sm.datasets.macrodata.load_pandas().data
     y = np.diff(np.log(data[["realgdp", "realcons", "realinv"]].to_numpy()), axis=0)
-    model = BayesVAR(lags=3, prior="flat").fit(y)
+    model = FanfoldVAR(lags=3, prior="flat").fit(y)
     ref = VAR(y).fit(3)
     np.testing.assert_allclose(model.posterior_.B, ref.params, rtol=1e-8, atol=1e-12)
     assert model.log_ml_ is None
@@ -68,13 +68,13 @@ def test_flat_auto_lags_uses_schwarz_criterion_like_statsmodels():
 
     data = sm.datasets.macrodata.load_pandas().data
     y = np.diff(np.log(data[["realgdp", "realcons", "realinv"]].to_numpy()), axis=0)
-    model = BayesVAR(lags="auto", max_lags=6, prior="flat").fit(y)
+    model = FanfoldVAR(lags="auto", max_lags=6, prior="flat").fit(y)
     assert model.lags_ == VAR(y).select_order(6).bic
 
 
 def test_forecast_on_dates_and_in_user_units():
     _, frame = _demo()
-    model = BayesVAR(lags=2, transforms={"tyres": "log", "chains": "logdiff"}).fit(frame)
+    model = FanfoldVAR(lags=2, transforms={"tyres": "log", "chains": "logdiff"}).fit(frame)
     fc = model.forecast(6, rng=np.random.default_rng(0), draws=300)
     assert list(fc.dates) == list(pd.date_range("2026-01-01", periods=6, freq="MS"))
     assert np.all(fc.paths[:, :, 0] > 0) and np.all(fc.paths[:, :, 3] > 0)
@@ -87,7 +87,7 @@ def test_exogenous_regressor_needs_future_values():
     rng = np.random.default_rng(1)
     promo = (rng.random(80) < 0.2).astype(float)
     y = np.column_stack([10 + 3 * promo + rng.standard_normal(80), rng.standard_normal(80)])
-    model = BayesVAR(lags=1).fit(y, exog=pd.DataFrame({"promo": promo}))
+    model = FanfoldVAR(lags=1).fit(y, exog=pd.DataFrame({"promo": promo}))
     assert "promo" in model.design_.labels
     coef = model.coefficients().set_index(["equation", "regressor"])
     assert coef.loc[("y1", "promo"), "lower"] > 2.0
@@ -101,19 +101,19 @@ def test_exogenous_regressor_needs_future_values():
 
 def test_unfitted_model_and_bad_settings():
     with pytest.raises(NotFittedError, match="fit"):
-        BayesVAR().forecast(3, rng=np.random.default_rng(0))
+        FanfoldVAR().forecast(3, rng=np.random.default_rng(0))
     y = np.random.default_rng(0).standard_normal((50, 2))
     with pytest.raises(SpecificationError, match="prior"):
-        BayesVAR(prior="wishful").fit(y)
+        FanfoldVAR(prior="wishful").fit(y)
     with pytest.raises(SpecificationError, match="lags"):
-        BayesVAR(lags=0).fit(y)
+        FanfoldVAR(lags=0).fit(y)
     with pytest.raises(SpecificationError, match="horizon"):
-        BayesVAR(lags=1).fit(y).forecast(0, rng=np.random.default_rng(0))
+        FanfoldVAR(lags=1).fit(y).forecast(0, rng=np.random.default_rng(0))
 
 
 def test_reported_hyperparameters_and_lag_search(known_var, rng):
     y = np.cumsum(known_var.simulate(rng, 120), axis=0) + 100.0  # random walks
-    model = BayesVAR(max_lags=4, sum_coef="auto").fit(y)
+    model = FanfoldVAR(max_lags=4, sum_coef="auto").fit(y)
     hp = model.hyperparameters()
     assert hp["lags"] == model.lags_ and 1 <= hp["lags"] <= 4
     assert hp["tightness"] > 0 and hp["sum_coef"] > 0 and hp["initial"] is None
@@ -126,7 +126,7 @@ def test_arviz_export_has_named_dimensions(known_var, rng):
 
     from priors.diagnostics import arviz_major_version, to_arviz
 
-    model = BayesVAR(lags=1).fit(known_var.simulate(rng, 80))
+    model = FanfoldVAR(lags=1).fit(known_var.simulate(rng, 80))
     draws = model.sample(400, rng=rng)
     data = to_arviz(draws, regressors=model.design_.labels, series=model.design_.names,
                     chains=4)

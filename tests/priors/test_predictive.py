@@ -8,7 +8,7 @@ from scipy import stats
 
 from priors.conjugate import posterior
 from priors.data import Deterministics, future_exogenous_rows, load_series
-from priors.model import BayesVAR
+from priors.model import FanfoldVAR
 from priors.predictive import (
     companion_spectral_radius,
     simulate_paths,
@@ -110,7 +110,7 @@ def test_spectral_radius_matches_statsmodels_roots():
 def test_reject_explosive_keeps_only_stable_draws():
     rng = np.random.default_rng(5)
     y = np.cumsum(rng.standard_normal((40, 2)), axis=0)  # random walks: radius near 1
-    model = BayesVAR(lags=1, tightness=0.5).fit(y)
+    model = FanfoldVAR(lags=1, tightness=0.5).fit(y)
     fc = model.forecast(6, rng=np.random.default_rng(1), draws=500, reject_explosive=True)
     assert fc.paths.shape == (500, 6, 2)
     assert fc.rejected_share is not None and 0.0 < fc.rejected_share < 1.0
@@ -131,7 +131,7 @@ def test_interval_coverage_near_nominal_on_known_var(known_var):
     hits = {80: np.zeros((reps, h, 3)), 95: np.zeros((reps, h, 3))}
     for r in range(reps):
         y = known_var.simulate(rng, T + h)
-        model = BayesVAR(lags=2).fit(y[:T])
+        model = FanfoldVAR(lags=2).fit(y[:T])
         fc = model.forecast(h, rng=rng, draws=400)
         for cov, band in fc.bands((80, 95)).items():
             hits[int(cov)][r] = (band[0] <= y[T:]) & (y[T:] <= band[1])

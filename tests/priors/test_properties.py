@@ -14,7 +14,7 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 from hypothesis.extra.numpy import arrays
 
-from priors import BayesVAR, ConvergenceWarning, Forecast
+from priors import ConvergenceWarning, FanfoldVAR, Forecast
 
 FAST = settings(max_examples=25, deadline=None)
 LEVELS = (0.025, 0.1, 0.25, 0.5, 0.75, 0.9, 0.975)
@@ -36,11 +36,11 @@ def var_data(draw) -> np.ndarray:
     return y[50:]
 
 
-def _fit(y: np.ndarray, lags: int, **kwargs) -> BayesVAR:
+def _fit(y: np.ndarray, lags: int, **kwargs) -> FanfoldVAR:
     """Fit with the default prior; the tightness may legitimately end at its search bound."""
     with warnings.catch_warnings():
         warnings.simplefilter("ignore", ConvergenceWarning)
-        return BayesVAR(lags=lags, **kwargs).fit(y)
+        return FanfoldVAR(lags=lags, **kwargs).fit(y)
 
 
 paths_strategy = arrays(
@@ -71,8 +71,8 @@ def test_permuting_series_permutes_the_posterior(y, lags, data):
     n = y.shape[1]
     perm = np.array(data.draw(st.permutations(range(n))), dtype=int)
     # a fixed tightness keeps the comparison exact (tuning stops at a tolerance)
-    base = BayesVAR(lags=lags, tightness=0.2).fit(y)
-    swapped = BayesVAR(lags=lags, tightness=0.2).fit(y[:, perm])
+    base = FanfoldVAR(lags=lags, tightness=0.2).fit(y)
+    swapped = FanfoldVAR(lags=lags, tightness=0.2).fit(y[:, perm])
     # rows of B: const, then lag blocks of n series each
     rows = np.concatenate([[0], 1 + (np.arange(lags)[:, None] * n + perm).ravel()])
     np.testing.assert_allclose(swapped.posterior_.B, base.posterior_.B[rows][:, perm],

@@ -10,7 +10,7 @@ import pytest
 from priors.conjugate import log_marginal_likelihood
 from priors.data import Deterministics, build_design, load_series
 from priors.errors import ConvergenceWarning
-from priors.model import BayesVAR
+from priors.model import FanfoldVAR
 from priors.shrinkage import MinnesotaHyper, ar_residual_variances, minnesota_prior
 from priors.tuning import (
     TightnessProfile,
@@ -106,7 +106,7 @@ def test_lag_order_chosen_by_marginal_likelihood_finds_true_order():
         y[t] = 0.2 * y[t - 1] + A3 @ y[t - 3] + rng.standard_normal(2)
     with warnings.catch_warnings():
         warnings.simplefilter("ignore", ConvergenceWarning)
-        model = BayesVAR(lags="auto", max_lags=6, prior_mean=[0.0, 0.0]).fit(y[200:])
+        model = FanfoldVAR(lags="auto", max_lags=6, prior_mean=[0.0, 0.0]).fit(y[200:])
     assert model.lags_ == 3
     assert [c.lags for c in model.lag_search_] == list(range(1, 7))
     scores = {c.lags: c.score for c in model.lag_search_}

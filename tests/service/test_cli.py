@@ -12,7 +12,7 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from priors import BayesVAR, ConvergenceWarning
+from priors import ConvergenceWarning, FanfoldVAR
 from service.cli import main
 
 ROOT = Path(__file__).resolve().parents[2]
@@ -268,14 +268,14 @@ def test_bad_options_exit_2(run, args: list[object]) -> None:
 
 
 def test_warnings_become_one_line_notes(run, monkeypatch: pytest.MonkeyPatch) -> None:
-    fit = BayesVAR.fit
+    fit = FanfoldVAR.fit
 
     def warn_then_fit(self, *args, **kwargs):
         warnings.warn("tightness stopped at its upper bound 5", ConvergenceWarning,
                       stacklevel=2)
         return fit(self, *args, **kwargs)
 
-    monkeypatch.setattr(BayesVAR, "fit", warn_then_fit)
+    monkeypatch.setattr(FanfoldVAR, "fit", warn_then_fit)
     code, out, err = run("fit", DEMO, "--lags", 1)
     assert code == 0 and "VAR(1)" in out
     assert err == "fanfold: warning: tightness stopped at its upper bound 5\n"

@@ -9,7 +9,7 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from priors import BayesVAR, DataError, Forecast, SpecificationError, TimeIndexError
+from priors import DataError, FanfoldVAR, Forecast, SpecificationError, TimeIndexError
 from service.serialization import (
     forecast_to_dict,
     frame_from_csv,
@@ -27,8 +27,8 @@ def demo() -> pd.DataFrame:
 
 
 @pytest.fixture(scope="module")
-def model(demo: pd.DataFrame) -> BayesVAR:
-    return BayesVAR(lags=2, tightness=0.3).fit(demo)
+def model(demo: pd.DataFrame) -> FanfoldVAR:
+    return FanfoldVAR(lags=2, tightness=0.3).fit(demo)
 
 
 def _plain(obj: object) -> None:
@@ -52,7 +52,7 @@ def test_quantile_key_is_short(level: float, key: str) -> None:
     assert quantile_key(level) == key
 
 
-def test_forecast_dict_layout(model: BayesVAR) -> None:
+def test_forecast_dict_layout(model: FanfoldVAR) -> None:
     fc = model.forecast(4, rng=np.random.default_rng(0), draws=200)
     out = forecast_to_dict(model, fc, quantiles=QUANTILES, seed=7, draws=200)
 
@@ -73,7 +73,7 @@ def test_forecast_dict_layout(model: BayesVAR) -> None:
     json.dumps(out, allow_nan=False)
 
 
-def test_forecast_dict_turns_non_finite_into_none(model: BayesVAR) -> None:
+def test_forecast_dict_turns_non_finite_into_none(model: FanfoldVAR) -> None:
     paths = np.ones((10, 2, 1))
     paths[:, 1, 0] = np.inf
     fc = Forecast(paths, ("a",), pd.date_range("2026-01-01", periods=2, freq="MS"))
@@ -84,13 +84,13 @@ def test_forecast_dict_turns_non_finite_into_none(model: BayesVAR) -> None:
     json.dumps(out, allow_nan=False)
 
 
-def test_forecast_dict_rejects_bad_quantiles(model: BayesVAR) -> None:
+def test_forecast_dict_rejects_bad_quantiles(model: FanfoldVAR) -> None:
     fc = model.forecast(1, rng=np.random.default_rng(0), draws=20)
     with pytest.raises(SpecificationError, match="between 0 and 1"):
         forecast_to_dict(model, fc, quantiles=[0.5, 1.5], seed=1, draws=20)
 
 
-def test_summary_dict_layout(model: BayesVAR) -> None:
+def test_summary_dict_layout(model: FanfoldVAR) -> None:
     out = summary_to_dict(model, 0.8)
     n, k = 5, 1 + 5 * 2
     assert list(out) == ["lags", "hyperparameters", "log_marginal_likelihood", "lag_search",
@@ -109,14 +109,14 @@ def test_summary_dict_layout(model: BayesVAR) -> None:
     json.dumps(out, allow_nan=False)
 
 
-def test_summary_level_widens_intervals(model: BayesVAR) -> None:
+def test_summary_level_widens_intervals(model: FanfoldVAR) -> None:
     narrow = summary_to_dict(model, 0.5)["coefficients"][0]
     wide = summary_to_dict(model, 0.99)["coefficients"][0]
     assert wide["lower"] < narrow["lower"] < narrow["upper"] < wide["upper"]
 
 
 def test_summary_dict_lag_search_and_flat(demo: pd.DataFrame) -> None:
-    auto = summary_to_dict(BayesVAR(lags="auto", max_lags=3, prior="flat").fit(demo))
+    auto = summary_to_dict(FanfoldVAR(lags="auto", max_lags=3, prior="flat").fit(demo))
     assert [c["lags"] for c in auto["lag_search"]] == [1, 2, 3]
     assert {c["criterion"] for c in auto["lag_search"]} == {"bic"}
     assert all(c["tightness"] is None for c in auto["lag_search"])
@@ -127,7 +127,7 @@ def test_summary_dict_lag_search_and_flat(demo: pd.DataFrame) -> None:
 
 def test_summary_span_without_dates() -> None:
     y = np.random.default_rng(3).standard_normal((40, 2))
-    out = summary_to_dict(BayesVAR(lags=3, tightness=0.2).fit(y))
+    out = summary_to_dict(FanfoldVAR(lags=3, tightness=0.2).fit(y))
     assert out["span"] == {"start": "4", "end": "40", "observations": 37}
 
 

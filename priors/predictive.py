@@ -30,7 +30,7 @@ from scipy.linalg import solve_triangular
 from ._types import FloatArray
 from .conjugate import NIWPosterior
 from .errors import SpecificationError
-from .sampling import Draws, check_size, draw_coefficients, draw_sigma_roots
+from .sampling import Draws, check_size, draw_sigma_roots
 
 __all__ = [
     "METHODS",
@@ -80,9 +80,7 @@ def simulate_paths(
     n, h = post.B.shape[1], exog_rows.shape[0]
     k = post.B.shape[0]
     if method == "explicit" or (method == "auto" and n < h and 2 * h > k):
-        M = draw_sigma_roots(rng, post.S, post.df, size)
-        B = draw_coefficients(rng, post, M)
-        return _recursion(rng, B, M, history, exog_rows)
+        return _simulate_explicit(rng, post, history, exog_rows, size)
     return _simulate_projected(rng, post, history, exog_rows, size)
 
 
@@ -189,6 +187,40 @@ def _gram_step(V: FloatArray, Linv: FloatArray, coef: FloatArray, v: FloatArray,
     Linv[:, step, step] = inv
     coef[:, step] = rho
     V[step] = v
+
+
+def _simulate_explicit(
+    rng: np.random.Generator,
+    post: NIWPosterior,
+    history: FloatArray,
+    exog_rows: FloatArray,
+    size: int,
+) -> FloatArray:
+    """Explicit draws without forming B: B_s'x = B_bar'x + M_s W_s'x, W_s = R^-1 Z_s.
+
+    Same distribution as drawing B_s = B_bar + W_s M_s' (see
+    :func:`priors.sampling.draw_coefficients`) and running the recursion, with M_s
+    applied to n-vectors per step instead of to every (k, n) draw; (S, h, n).
+    """
+    k, n = post.B.shape
+    h, m = exog_rows.shape
+    p = history.shape[0]
+    M = draw_sigma_roots(rng, post.S, post.df, size)
+    Rinv = solve_triangular(post.R, np.eye(k), lower=False, check_finite=False)
+    W = (Rinv @ rng.standard_normal((k, size * n))).reshape(k, size, n)
+    W_lags_t = np.ascontiguousarray(W[m:].transpose(1, 2, 0))  # (S, n, n p)
+    shocks = rng.standard_normal((h, size, n))
+    if m:
+        shocks += np.einsum("hm,msn->hsn", exog_rows, W[:m])
+    det_mean = exog_rows @ post.B[:m]  # (h, n)
+    B_lags = post.B[m:]
+    buf = np.empty((size, h + p, n))  # position h - 1 - step holds step's value
+    buf[:, h:] = history[::-1]
+    for step in range(h):
+        x = buf[:, h - step : h - step + p].reshape(size, p * n)  # lag 1 first
+        u = np.einsum("snk,sk->sn", W_lags_t, x) + shocks[step]
+        buf[:, h - 1 - step] = det_mean[step] + x @ B_lags + np.einsum("sij,sj->si", M, u)
+    return np.ascontiguousarray(buf[:, h - 1 :: -1]) if h else buf[:, :0]
 
 
 def _recursion(

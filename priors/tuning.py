@@ -216,7 +216,7 @@ def tune_hyperparameters(
 
     if len(names) == 1:
         # coarse grid then bounded Brent, so a multimodal profile does not trap us
-        grid = np.linspace(lo[0], hi[0], 25)
+        grid = np.linspace(lo[0], hi[0], 15)  # neighbours 2.2x apart
         vals = [negative(np.array([g])) for g in grid]
         i = int(np.argmin(vals))
         a, b = grid[max(i - 1, 0)], grid[min(i + 1, len(grid) - 1)]

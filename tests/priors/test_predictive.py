@@ -29,19 +29,21 @@ def _setup(known_var, rng, T=60, lags=1, n=2):
     return design, post, series
 
 
-@pytest.mark.parametrize(("lags", "h"), [(1, 8), (3, 8), (6, 6)])
-def test_projection_paths_match_explicit_parameter_draws(known_var, rng, lags, h):
+@pytest.mark.parametrize(("lags", "h", "method"), [
+    (1, 8, "projection"), (3, 8, "projection"), (6, 6, "projection"), (3, 8, "explicit"),
+])
+def test_samplers_match_explicit_parameter_draws(known_var, rng, lags, h, method):
     # The projection trick (draw Z'R^-T x_h by Gram-Schmidt) must give the same joint
     # distribution as explicit (B, Sigma) draws. With lags=1, h = 8 > k = 3 also covers
     # the steps where the projection vectors become linearly dependent; lags=3 covers
     # steps that mix observed and simulated lags; lags=6, h=6 <= k/2 = 6.5 takes the
-    # Gram-matrix Cholesky route instead of Gram-Schmidt.
+    # Gram-matrix Cholesky route instead of Gram-Schmidt. "explicit" applies M_s per
+    # step instead of forming B_s, which must not change the distribution either.
     design, post, series = _setup(known_var, rng, lags=lags)
     S = 40_000
     exog = future_exogenous_rows(series, Deterministics(), h)
     history = series.values[-lags:]
-    fast = simulate_paths(np.random.default_rng(1), post, history, exog, S,
-                          method="projection")
+    fast = simulate_paths(np.random.default_rng(1), post, history, exog, S, method=method)
     draws = sample_posterior(np.random.default_rng(2), post, S)
     slow = simulate_paths_from_draws(np.random.default_rng(3), draws, history, exog)
     se = np.sqrt(fast.var(0) / S + slow.var(0) / S)

@@ -10,7 +10,6 @@ cannot be read or used (any other :class:`priors.PriorsError`).
 from __future__ import annotations
 
 import argparse
-import contextlib
 import json
 import math
 import os
@@ -27,6 +26,7 @@ import pandas as pd
 from priors import TRANSFORMS, ConvergenceWarning, FanfoldVAR, PriorsError, SpecificationError
 from priors.model import default_max_lags
 
+from .engine import blas_threads
 from .serialization import forecast_to_dict, frame_from_csv, quantile_key, summary_to_dict
 from .tables import format_fit, format_forecast
 
@@ -243,6 +243,17 @@ def build_parser() -> argparse.ArgumentParser:
     fit.add_argument("--json", action="store_true",
                      help="print the full summary as JSON (implies --summary)")
     fit.set_defaults(run=_fit)
+
+    serve = sub.add_parser("serve", help="run the HTTP service",
+                           description="Run the HTTP API (uvicorn). Settings come from "
+                                       "FANFOLD_* environment variables; see DEVELOPERS.md.",
+                           formatter_class=_HelpFormatter)
+    serve.add_argument("--host", default="127.0.0.1",
+                       help="address to bind; only loopback while API keys are not configured")
+    serve.add_argument("--port", type=_positive_int, default=8000, help="port to listen on")
+    serve.add_argument("--workers", type=_positive_int, default=1,
+                       help="worker processes")
+    serve.set_defaults(run=_serve)
     return parser
 
 
@@ -294,9 +305,28 @@ def _fit(args: argparse.Namespace) -> str:
     return format_fit(payload, prior=args.prior, level=args.level, summary=args.summary)
 
 
+def _serve(args: argparse.Namespace) -> str:
+    import ipaddress
+
+    import uvicorn
+
+    try:
+        loopback = args.host == "localhost" or ipaddress.ip_address(args.host).is_loopback
+    except ValueError:
+        loopback = False
+    if not loopback:
+        raise UsageError(f"refusing to bind {args.host}: API keys are not configured yet, so "
+                         "the service listens on loopback only (e.g. --host 127.0.0.1)")
+    print(f"fanfold: serving on http://{args.host}:{args.port} (loopback only: no API keys "
+          f"configured); docs at /docs", file=sys.stderr, flush=True)
+    uvicorn.run("service.app:create_app", factory=True, host=args.host, port=args.port,
+                workers=args.workers, log_level="warning", timeout_graceful_shutdown=20)
+    return ""
+
+
 def _run(args: argparse.Namespace) -> str:
     """Run the command; warnings (e.g. tuning at a bound) become one-line notes, each once."""
-    with warnings.catch_warnings(record=True) as caught, _blas_threads(args.blas_threads):
+    with warnings.catch_warnings(record=True) as caught, blas_threads(args.blas_threads):
         warnings.simplefilter("always", ConvergenceWarning)
         try:
             return args.run(args)
@@ -305,20 +335,13 @@ def _run(args: argparse.Namespace) -> str:
                 print(f"fanfold: warning: {message}", file=sys.stderr)
 
 
-def _blas_threads(limit: int) -> contextlib.AbstractContextManager[object]:
-    if limit == 0:
-        return contextlib.nullcontext()
-    import scipy.linalg  # noqa: F401 - load scipy's own BLAS so the limit reaches it
-    from threadpoolctl import threadpool_limits
-
-    return threadpool_limits(limits=limit, user_api="blas")
-
-
 def main(argv: Sequence[str] | None = None) -> int:
     """Entry point of the ``fanfold`` command; returns the exit status."""
     try:
         args = build_parser().parse_args(argv)
-        print(_run(args))
+        out = _run(args)
+        if out:
+            print(out)
     except SystemExit as exc:  # --help and --version
         return exc.code if isinstance(exc.code, int) else 0
     except BrokenPipeError:  # e.g. piped into `head`: stop quietly

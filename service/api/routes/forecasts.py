@@ -1,0 +1,109 @@
+"""``POST /v1/forecasts``: one-shot, stateless forecasts from JSON or CSV."""
+
+from __future__ import annotations
+
+import asyncio
+import time
+from typing import Any
+
+from fastapi import APIRouter, Request
+from fastapi.concurrency import run_in_threadpool
+from fastapi.exceptions import RequestValidationError
+from fastapi.responses import JSONResponse
+from pydantic import ValidationError
+
+from ...engine import frame_from_spec, run_forecast
+from ...errors import PROBLEM_JSON, problem
+from ...schemas import ForecastCreate, ForecastPublic, ForecastSettings
+from ...serialization import frame_from_csv
+from ..deps import MetricsDep, SettingsDep
+
+router = APIRouter(prefix="/v1", tags=["forecasts"])
+
+_CSV_EXAMPLE = ("date,tyres,inner_tubes\n2016-01-01,1256,1986\n2016-02-01,1279,2074\n"
+                "2016-03-01,1329,2216\n...")
+_PROBLEMS: dict[int | str, dict[str, Any]] = {
+    code: {"description": text, "content": {PROBLEM_JSON: {}}}
+    for code, text in ((413, "body over the size limit"), (415, "not JSON or CSV"),
+                       (422, "invalid input, unusable data or a limit exceeded"),
+                       (503, "the forecast took longer than the request timeout"))
+}
+_BODY = {
+    "requestBody": {
+        "required": True,
+        "content": {
+            "application/json": {"schema": {"$ref": "#/components/schemas/ForecastCreate"}},
+            "text/csv": {
+                "schema": {"type": "string"},
+                "example": _CSV_EXAMPLE,
+                "description": "dates in the first column, one column per series; the "
+                               "settings of ForecastCreate (all but series, start, "
+                               "frequency, dates) as query parameters",
+            },
+        },
+    }
+}
+
+
+def _query_settings(request: Request) -> ForecastSettings:
+    raw: dict[str, Any] = dict(request.query_params)
+    if "quantiles" in raw:
+        raw["quantiles"] = [q for q in raw["quantiles"].split(",") if q.strip()]
+    for key in ("sum_coef", "initial"):
+        if raw.get(key) in ("", "off", "null"):
+            raw[key] = None
+    try:
+        return ForecastSettings.model_validate(raw)
+    except ValidationError as exc:
+        raise RequestValidationError([{**e, "loc": ("query", *e["loc"])}
+                                      for e in exc.errors()]) from None
+
+
+async def _spec_and_frame(request: Request) -> tuple[ForecastSettings, Any]:
+    ctype = request.headers.get("content-type", "").split(";")[0].strip().lower()
+    body = await request.body()
+    if ctype in ("application/json", ""):
+        try:
+            spec = ForecastCreate.model_validate_json(body or b"{}")
+        except ValidationError as exc:
+            raise RequestValidationError(exc.errors()) from None
+        return spec, frame_from_spec(spec)
+    if ctype in ("text/csv", "application/csv"):
+        return _query_settings(request), frame_from_csv(body.decode("utf-8-sig", "replace"))
+    raise _Unsupported(ctype)
+
+
+class _Unsupported(Exception):
+    def __init__(self, ctype: str) -> None:
+        self.ctype = ctype
+
+
+@router.post(
+    "/forecasts",
+    summary="Forecast several related series in one call",
+    description="Fits a Bayesian VAR with a Minnesota prior to the series sent and returns "
+                "the predictive distribution per series and step: mean, median and the "
+                "quantiles asked for. Nothing is stored. The same request with the same "
+                "seed returns the same bytes.",
+    response_model=ForecastPublic,
+    responses=_PROBLEMS,
+    openapi_extra=_BODY,
+)
+async def create_forecast(request: Request, settings: SettingsDep,
+                          metrics: MetricsDep) -> JSONResponse:
+    try:
+        spec, frame = await _spec_and_frame(request)
+    except _Unsupported as exc:
+        return problem(415, f"content type {exc.ctype!r} is not supported; send "
+                            "application/json or text/csv", request=request)
+    start = time.perf_counter()
+    try:
+        payload = await asyncio.wait_for(
+            run_in_threadpool(run_forecast, spec, frame, settings),
+            timeout=settings.request_timeout_s)
+    except TimeoutError:
+        return problem(503, f"the forecast took longer than {settings.request_timeout_s:g} s; "
+                            "lower draws, lags or horizon", request=request,
+                       headers={"Retry-After": "5"})
+    metrics.forecast.observe(time.perf_counter() - start)
+    return JSONResponse(payload)

@@ -1,0 +1,73 @@
+"""``create_app(settings)``: the FastAPI application. Nothing runs at import time."""
+
+from __future__ import annotations
+
+from collections.abc import AsyncIterator
+from contextlib import asynccontextmanager
+
+from fastapi import FastAPI
+from fastapi.middleware.cors import CORSMiddleware
+from fastapi.openapi.utils import get_openapi
+
+from .api.routes import forecasts, health
+from .config import Settings, get_settings
+from .errors import register_error_handlers
+from .metrics import Metrics, MetricsMiddleware
+from .middleware import BodyLimitMiddleware, RequestIdMiddleware
+from .schemas import ForecastCreate
+
+__all__ = ["create_app"]
+
+_EXPOSED = ["ETag", "Location", "Retry-After", "Link", "X-Request-ID"]
+
+
+def create_app(settings: Settings | None = None) -> FastAPI:
+    """Build the service for ``settings`` (default: from the environment)."""
+    settings = settings or get_settings()
+
+    @asynccontextmanager
+    async def lifespan(app: FastAPI) -> AsyncIterator[None]:
+        app.state.ready = True
+        yield
+        app.state.ready = False
+
+    app = FastAPI(
+        title="Fanfold",
+        version="0.1.0",
+        summary="Probabilistic forecasts of related demand series (Bayesian VAR)",
+        lifespan=lifespan,
+        docs_url="/docs" if settings.docs_enabled else None,
+        redoc_url=None,
+        openapi_url="/openapi.json" if settings.docs_enabled else None,
+    )
+    app.state.settings = settings
+    app.state.metrics = Metrics()
+    app.state.ready = False
+    register_error_handlers(app)
+    app.include_router(health.router)
+    app.include_router(forecasts.router)
+    # added last = outermost: ids first, then limits, then metrics around the routes
+    app.add_middleware(MetricsMiddleware, metrics=app.state.metrics)
+    app.add_middleware(BodyLimitMiddleware, max_bytes=settings.max_body_bytes)
+    if settings.cors_origins:
+        app.add_middleware(CORSMiddleware, allow_origins=settings.cors_origins,
+                           allow_methods=["GET", "POST", "DELETE"],
+                           allow_headers=["X-API-Key", "If-None-Match", "Idempotency-Key",
+                                          "Content-Type", "X-Request-ID"],
+                           expose_headers=_EXPOSED)
+    app.add_middleware(RequestIdMiddleware)
+    app.openapi = lambda: _openapi(app)  # type: ignore[method-assign]
+    return app
+
+
+def _openapi(app: FastAPI) -> dict[str, object]:
+    """FastAPI's document plus the request schemas that routes read from the raw body."""
+    if app.openapi_schema is None:
+        schema = get_openapi(title=app.title, version=app.version, summary=app.summary,
+                             routes=app.routes)
+        extra = ForecastCreate.model_json_schema(ref_template="#/components/schemas/{model}")
+        components = schema.setdefault("components", {}).setdefault("schemas", {})
+        components.update(extra.pop("$defs", {}))
+        components["ForecastCreate"] = extra
+        app.openapi_schema = schema
+    return app.openapi_schema

@@ -1,0 +1,46 @@
+"""Service settings: one pydantic-settings object, read from ``FANFOLD_*`` variables.
+
+Nothing reads the environment at import time; :func:`get_settings` builds the object on
+first use and ``create_app(settings)`` accepts one explicitly (tests do that).
+"""
+
+from __future__ import annotations
+
+from functools import lru_cache
+
+from pydantic import Field
+from pydantic_settings import BaseSettings, SettingsConfigDict
+
+__all__ = ["Settings", "get_settings"]
+
+
+class Settings(BaseSettings):
+    """Configuration of the HTTP service. Environment variable = ``FANFOLD_`` + name."""
+
+    model_config = SettingsConfigDict(env_prefix="FANFOLD_", extra="ignore", frozen=True)
+
+    database_url: str = "sqlite:///./fanfold.db"
+    host: str = "127.0.0.1"
+    port: int = Field(8000, ge=1, le=65535)
+
+    # request limits (OWASP API4): exceeding one gives 413 (body) or 422 (the rest)
+    max_body_bytes: int = Field(1_048_576, ge=1024)
+    max_series: int = Field(20, ge=1)
+    max_observations: int = Field(10_000, ge=10)
+    max_lags: int = Field(13, ge=1)  # a year and a month of monthly data
+    max_draws: int = Field(10_000, ge=1)
+    max_horizon: int = Field(104, ge=1)
+    max_quantiles: int = Field(25, ge=1)
+    max_coefficients: int = Field(5_000, ge=1)  # n * (n * p + m) per model
+    max_path_values: int = Field(50_000_000, ge=1)  # draws * horizon * series
+    request_timeout_s: float = Field(60.0, gt=0)
+
+    docs_enabled: bool = True
+    cors_origins: list[str] = []
+    blas_threads: int = Field(1, ge=0)  # 0 = the libraries' default
+
+
+@lru_cache(maxsize=1)
+def get_settings() -> Settings:
+    """The settings from the environment, built once."""
+    return Settings()

@@ -1,0 +1,103 @@
+"""Errors as RFC 9457 problem details, in one place.
+
+Every error response is ``application/problem+json`` with ``type``, ``title``,
+``status``, ``detail``, ``instance`` and the extensions ``request_id`` and (for invalid
+input) ``errors: [{field, message}]``. Engine exceptions (:mod:`priors.errors`) map to
+4xx with the engine's message; anything unexpected is a 500 without internals.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Sequence
+from http import HTTPStatus
+from typing import Any
+
+from fastapi import FastAPI, Request
+from fastapi.exceptions import RequestValidationError
+from fastapi.responses import JSONResponse
+from starlette.exceptions import HTTPException as StarletteHTTPException
+
+from priors.errors import NotFittedError, PriorsError
+
+from .context import request_id
+
+__all__ = ["PROBLEM_JSON", "LimitExceeded", "problem", "register_error_handlers"]
+
+PROBLEM_JSON = "application/problem+json"
+
+
+class LimitExceeded(Exception):
+    """A request over one of the configured limits (422, names the field)."""
+
+    def __init__(self, field: str, message: str) -> None:
+        super().__init__(message)
+        self.field = field
+        self.message = message
+
+
+def problem(
+    status: int,
+    detail: str,
+    *,
+    request: Request | None = None,
+    title: str | None = None,
+    type_: str = "about:blank",
+    errors: Sequence[dict[str, str]] | None = None,
+    headers: dict[str, str] | None = None,
+) -> JSONResponse:
+    """A problem-details response."""
+    body: dict[str, Any] = {
+        "type": type_,
+        "title": title or HTTPStatus(status).phrase,
+        "status": status,
+        "detail": detail,
+    }
+    if request is not None:
+        body["instance"] = request.url.path
+    rid = request_id.get()
+    if rid:
+        body["request_id"] = rid
+    if errors:
+        body["errors"] = list(errors)
+    return JSONResponse(body, status_code=status, media_type=PROBLEM_JSON, headers=headers)
+
+
+def _field(loc: Sequence[Any]) -> str:
+    parts = [str(p) for p in loc if p not in ("body", "query")]
+    return ".".join(parts) or "body"
+
+
+async def _validation(request: Request, exc: RequestValidationError) -> JSONResponse:
+    errors = [{"field": _field(e.get("loc", ())), "message": str(e.get("msg", "invalid"))}
+              for e in exc.errors()]
+    fields = ", ".join(sorted({e["field"] for e in errors}))
+    return problem(422, f"the request is invalid: check {fields}", request=request,
+                   title="Invalid request", errors=errors)
+
+
+async def _http(request: Request, exc: StarletteHTTPException) -> JSONResponse:
+    detail = exc.detail if isinstance(exc.detail, str) else HTTPStatus(exc.status_code).phrase
+    return problem(exc.status_code, detail, request=request, headers=exc.headers)
+
+
+async def _limit(request: Request, exc: LimitExceeded) -> JSONResponse:
+    return problem(422, exc.message, request=request, title="Limit exceeded",
+                   errors=[{"field": exc.field, "message": exc.message}])
+
+
+async def _engine(request: Request, exc: PriorsError) -> JSONResponse:
+    status = 409 if isinstance(exc, NotFittedError) else 422
+    name = type(exc).__name__
+    return problem(status, str(exc), request=request, title="The model cannot use this input",
+                   type_=f"urn:fanfold:problem:{name}")
+
+
+def register_error_handlers(app: FastAPI) -> None:
+    """Install the handlers: validation, HTTP, limits, engine errors.
+
+    Anything else becomes a 500 problem in :class:`service.middleware.RequestIdMiddleware`.
+    """
+    app.add_exception_handler(RequestValidationError, _validation)  # type: ignore[arg-type]
+    app.add_exception_handler(StarletteHTTPException, _http)  # type: ignore[arg-type]
+    app.add_exception_handler(LimitExceeded, _limit)  # type: ignore[arg-type]
+    app.add_exception_handler(PriorsError, _engine)  # type: ignore[arg-type]

@@ -1,0 +1,124 @@
+"""Request and response bodies of the HTTP API (pydantic), with demo-scenario examples.
+
+Inputs forbid unknown fields and non-finite numbers. The static bounds below are the
+defaults of :class:`service.config.Settings`; the configured values are enforced per
+request as well (:func:`service.engine.check_limits`).
+"""
+
+from __future__ import annotations
+
+import datetime as dt
+from typing import Annotated, Literal
+
+from pydantic import BaseModel, ConfigDict, Field, field_validator
+
+from priors.transforms import TRANSFORMS
+
+__all__ = ["ForecastCreate", "ForecastPublic", "ForecastSettings", "SeriesForecast"]
+
+Number = Annotated[float, Field(allow_inf_nan=False)]
+Positive = Annotated[float, Field(gt=0, allow_inf_nan=False)]
+Transform = Literal["none", "log", "log1p", "diff", "logdiff"]
+assert set(Transform.__args__) == set(TRANSFORMS)  # type: ignore[attr-defined]
+
+_DEMO = {
+    "tyres": [1256, 1279, 1329, 1236, 1355, 1499, 1510, 1366, 1321, 1334, 1182, 1081,
+              1136, 1235, 1200, 1327, 1344, 1519, 1581, 1469, 1316, 1222, 1096, 1209,
+              1114, 1140, 1294, 1181, 1228, 1405, 1421, 1389, 1340, 1127, 994, 1063],
+    "inner_tubes": [1986, 2074, 2216, 2364, 2342, 2408, 2654, 2514, 2462, 2415, 2196, 2099,
+                    2089, 2141, 2107, 2120, 2171, 2382, 2492, 2484, 2535, 2399, 2208, 2071,
+                    1916, 1819, 2042, 1920, 1969, 1965, 2153, 2471, 2369, 2171, 2051, 1993],
+}
+
+
+class ForecastSettings(BaseModel):
+    """Model and output settings of a forecast (also the query parameters for CSV)."""
+
+    model_config = ConfigDict(extra="forbid")
+
+    horizon: int = Field(12, ge=1, le=104, description="periods ahead")
+    lags: int | Literal["auto"] = Field(
+        "auto", description="lag order, or 'auto' to choose it by marginal likelihood")
+    max_lags: int | None = Field(None, ge=1, le=13, description="largest order for 'auto'")
+    prior: Literal["minnesota", "flat"] = "minnesota"
+    tightness: Positive | Literal["auto"] = Field(
+        "auto", description="prior s.d. of own first lags, or 'auto' (marginal likelihood)")
+    decay: float = Field(1.0, ge=0, le=10, description="prior s.d. of lag l ~ 1 / l**decay")
+    sum_coef: Positive | Literal["auto"] | None = Field(
+        None, description="sum-of-coefficients weight (smaller = tighter); null = off")
+    initial: Positive | Literal["auto"] | None = Field(
+        None, description="dummy-initial-observation weight; null = off")
+    hyperprior: bool = Field(False, description="tune under Gamma hyperpriors")
+    transforms: Transform | dict[str, Transform] | None = Field(
+        None, description="one transform for all series or one per series name")
+    seasonal: bool = Field(False, description="seasonal dummies by the data's frequency")
+    trend: bool = False
+    constant: bool = True
+    quantiles: list[Annotated[float, Field(gt=0, lt=1)]] = Field(
+        [0.05, 0.5, 0.95], min_length=1, max_length=25)
+    draws: int = Field(2000, ge=1, le=10_000, description="simulated paths")
+    seed: int | None = Field(None, ge=0, lt=2**63, description="default: a fresh seed")
+    cumulative: bool = Field(False, description="running totals over steps 1..horizon")
+    reject_explosive: bool = False
+
+    @field_validator("lags")
+    @classmethod
+    def _lags(cls, v: int | str) -> int | str:
+        if isinstance(v, int) and not 1 <= v <= 13:
+            raise ValueError("lags must be 'auto' or an integer from 1 to 13")
+        return v
+
+    @field_validator("quantiles")
+    @classmethod
+    def _quantiles(cls, v: list[float]) -> list[float]:
+        if any(b <= a for a, b in zip(v, v[1:], strict=False)):
+            raise ValueError("quantile levels must be increasing with no repeats")
+        return v
+
+    @field_validator("transforms", mode="before")
+    @classmethod
+    def _transforms(cls, v: object) -> object:
+        # query-string form: "tyres=log,chains=diff"
+        if isinstance(v, str) and "=" in v:
+            pairs = (item.partition("=") for item in v.split(","))
+            return {k.strip(): t.strip() for k, _, t in pairs}
+        return v
+
+
+class ForecastCreate(ForecastSettings):
+    """A one-shot forecast request: the series and the settings."""
+
+    model_config = ConfigDict(extra="forbid", json_schema_extra={"examples": [{
+        "series": _DEMO, "start": "2016-01-01", "frequency": "MS", "horizon": 6,
+        "quantiles": [0.05, 0.5, 0.95], "draws": 1000, "seed": 7,
+    }]})
+
+    series: dict[str, list[Number]] = Field(
+        ..., min_length=1, description="values per series name, oldest first, equal lengths")
+    start: dt.date | None = Field(None, description="date of the first value")
+    frequency: str | None = Field(
+        None, description="pandas frequency of the dates, e.g. MS (month start), QS, W, D")
+    dates: list[dt.date] | None = Field(None, description="explicit dates instead")
+
+
+class SeriesForecast(BaseModel):
+    """One series' forecast, one value per step."""
+
+    dates: list[str]
+    mean: list[float | None]
+    median: list[float | None]
+    quantiles: dict[str, list[float | None]]
+
+
+class ForecastPublic(BaseModel):
+    """The one-shot forecast answer (the CLI's ``forecast --json`` has the same layout)."""
+
+    forecasts: dict[str, SeriesForecast]
+    lags: int
+    hyperparameters: dict[str, float | None]
+    log_marginal_likelihood: float | None
+    seed: int
+    draws: int
+    horizon: int
+    rejected_explosive_share: float | None
+    cumulative: bool

@@ -1,0 +1,39 @@
+"""Fixtures for the HTTP tests: an app on default settings and the demo data."""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+import pandas as pd
+import pytest
+from fastapi.testclient import TestClient
+
+from service.app import create_app
+from service.config import Settings
+
+DEMO_CSV = Path(__file__).resolve().parents[2] / "examples" / "bike_parts_demand.csv"
+
+
+@pytest.fixture
+def settings() -> Settings:
+    return Settings(database_url="sqlite://")
+
+
+@pytest.fixture
+def client(settings: Settings):
+    with TestClient(create_app(settings)) as c:
+        yield c
+
+
+@pytest.fixture(scope="session")
+def demo() -> pd.DataFrame:
+    return pd.read_csv(DEMO_CSV, index_col=0, parse_dates=True)
+
+
+@pytest.fixture
+def demo_body(demo: pd.DataFrame) -> dict:
+    """The first 4 years of three demo series as a JSON forecast request."""
+    part = demo.iloc[:48][["tyres", "inner_tubes", "brake_pads"]]
+    return {"series": {c: part[c].astype(float).tolist() for c in part},
+            "start": "2016-01-01", "frequency": "MS", "horizon": 4, "draws": 300, "seed": 11,
+            "lags": 2}

@@ -1,0 +1,170 @@
+"""POST /v1/forecasts: JSON and CSV in, the CLI's JSON layout out, problems for errors."""
+
+from __future__ import annotations
+
+import json
+
+import numpy as np
+import pytest
+from fastapi.testclient import TestClient
+
+from service.app import create_app
+from service.cli import main
+from service.config import Settings
+
+from .conftest import DEMO_CSV
+
+
+def test_json_forecast_layout_and_values(client, demo_body):
+    r = client.post("/v1/forecasts", json=demo_body)
+    assert r.status_code == 200, r.text
+    out = r.json()
+    assert set(out) == {"forecasts", "lags", "hyperparameters", "log_marginal_likelihood",
+                        "seed", "draws", "horizon", "rejected_explosive_share", "cumulative"}
+    assert (out["lags"], out["seed"], out["draws"], out["horizon"]) == (2, 11, 300, 4)
+    tyres = out["forecasts"]["tyres"]
+    assert tyres["dates"] == ["2020-01-01", "2020-02-01", "2020-03-01", "2020-04-01"]
+    q = np.array([tyres["quantiles"][k] for k in ("0.05", "0.5", "0.95")])
+    assert np.all(np.diff(q, axis=0) >= 0)
+    assert tyres["quantiles"]["0.5"] == tyres["median"]
+
+
+def test_same_seed_same_bytes(client, demo_body):
+    a = client.post("/v1/forecasts", json=demo_body)
+    b = client.post("/v1/forecasts", json=demo_body)
+    assert a.content == b.content
+
+
+def test_csv_body_with_query_settings_matches_the_cli(client, capsys):
+    # The CLI's `forecast --json` and the API give the same layout and numbers.
+    args = {"horizon": 3, "draws": 200, "seed": 5, "lags": 1, "quantiles": "0.1,0.9"}
+    r = client.post("/v1/forecasts", params=args, content=DEMO_CSV.read_bytes(),
+                    headers={"content-type": "text/csv"})
+    assert r.status_code == 200, r.text
+    code = main(["forecast", str(DEMO_CSV), "--horizon", "3", "--draws", "200", "--seed", "5",
+                 "--lags", "1", "--quantiles", "0.1,0.9", "--json"])
+    assert code == 0
+    assert r.json() == json.loads(capsys.readouterr().out)
+
+
+@pytest.mark.parametrize(("change", "field"), [
+    ({"horizonx": 3}, "horizonx"),
+    ({"horizon": 0}, "horizon"),
+    ({"horizon": 105}, "horizon"),
+    ({"draws": 0}, "draws"),
+    ({"lags": 0}, "lags"),
+    ({"quantiles": [0.5, 0.1]}, "quantiles"),
+    ({"quantiles": [0.0, 0.5]}, "quantiles.0"),
+    ({"transforms": "cube"}, "transforms"),
+    ({"tightness": -1}, "tightness"),
+])
+def test_invalid_settings_are_422_problems_naming_the_field(client, demo_body, change, field):
+    r = client.post("/v1/forecasts", json={**demo_body, **change})
+    assert r.status_code == 422
+    assert r.headers["content-type"] == "application/problem+json"
+    body = r.json()
+    assert body["status"] == 422 and body["request_id"]
+    assert any(e["field"].startswith(field) for e in body["errors"]), body
+
+
+def test_non_finite_and_missing_values_are_rejected(client, demo_body):
+    text = json.dumps(demo_body).replace("1256.0", "NaN", 1)
+    assert "NaN" in text
+    r = client.post("/v1/forecasts", content=text, headers={"content-type": "application/json"})
+    assert r.status_code == 422 and r.json()["errors"][0]["field"].startswith("series.tyres")
+    body = json.loads(json.dumps(demo_body))
+    body["series"]["tyres"][3] = None
+    assert client.post("/v1/forecasts", json=body).status_code == 422
+
+
+@pytest.mark.parametrize(("mutate", "kind", "words"), [
+    (lambda b: b["series"].update(tyres=[5.0] * 48), "ConstantSeriesError", "no variation"),
+    (lambda b: b["series"].update(tyres=b["series"]["tyres"][:-1]), "DataError",
+     "different lengths"),
+    (lambda b: b.update(transforms={"pedals": "log"}), "SpecificationError", "unknown series"),
+    (lambda b: b.update(lags=13, horizon=2), "TooFewObservationsError", "fewer lags"),
+    (lambda b: b.update(frequency="fortnightly"), "TimeIndexError", "frequency"),
+])
+def test_engine_errors_become_422_with_the_engine_message(client, demo_body, mutate, kind,
+                                                          words):
+    body = json.loads(json.dumps(demo_body))
+    mutate(body)
+    if kind == "TooFewObservationsError":
+        for name in body["series"]:
+            body["series"][name] = body["series"][name][:20]
+    r = client.post("/v1/forecasts", json=body)
+    assert r.status_code == 422, r.text
+    problem = r.json()
+    assert problem["type"].endswith(kind) or kind == "DataError"
+    assert words in problem["detail"]
+    assert "Traceback" not in r.text
+
+
+def test_bad_csv_data_is_a_422_problem(client):
+    text = DEMO_CSV.read_text().replace("2016-02-01", "2016-01-01", 1)  # duplicate date
+    r = client.post("/v1/forecasts?horizon=2", content=text,
+                    headers={"content-type": "text/csv"})
+    assert r.status_code == 422 and "more than once" in r.json()["detail"]
+    r = client.post("/v1/forecasts?horizon=abc", content=DEMO_CSV.read_bytes(),
+                    headers={"content-type": "text/csv"})
+    assert r.status_code == 422 and r.json()["errors"][0]["field"] == "horizon"
+
+
+def test_configured_limits_are_enforced_and_named(demo_body):
+    settings = Settings(max_draws=100, max_series=2)
+    with TestClient(create_app(settings)) as c:
+        r = c.post("/v1/forecasts", json=demo_body)
+        assert r.status_code == 422 and r.json()["errors"][0]["field"] == "series"
+        body = {**demo_body, "series": dict(list(demo_body["series"].items())[:2])}
+        r = c.post("/v1/forecasts", json=body)
+        assert r.status_code == 422 and "draws: 300 is over" in r.json()["detail"]
+
+
+def test_body_size_limit_gives_413(demo_body):
+    with TestClient(create_app(Settings(max_body_bytes=1024))) as c:
+        assert len(json.dumps(demo_body)) > 1024
+        r = c.post("/v1/forecasts", json=demo_body)  # with Content-Length
+        assert r.status_code == 413
+        assert r.headers["content-type"] == "application/problem+json"
+
+        def chunks():  # streamed without Content-Length
+            yield b'{"series": {"a": ['
+            for _ in range(400):
+                yield b"1.0, "
+            yield b"1.0]}}"
+
+        r = c.post("/v1/forecasts", content=chunks(),
+                   headers={"content-type": "application/json"})
+        assert r.status_code == 413
+
+
+def test_unsupported_content_type_gives_415(client):
+    r = client.post("/v1/forecasts", content=b"tyres 1 2 3",
+                    headers={"content-type": "text/plain"})
+    assert r.status_code == 415 and r.json()["status"] == 415
+
+
+def test_unexpected_errors_are_500_problems_without_internals(monkeypatch, settings,
+                                                              demo_body):
+    import service.api.routes.forecasts as route
+
+    def boom(*args, **kwargs):
+        raise RuntimeError("secret internals")
+
+    monkeypatch.setattr(route, "run_forecast", boom)
+    with TestClient(create_app(settings), raise_server_exceptions=False) as c:
+        r = c.post("/v1/forecasts", json=demo_body, headers={"X-Request-ID": "abc-123"})
+    assert r.status_code == 500
+    assert "secret" not in r.text and "Traceback" not in r.text
+    assert r.json()["request_id"] == "abc-123" == r.headers["x-request-id"]
+
+
+def test_openapi_documents_both_media_types_and_limits(client):
+    spec = client.get("/openapi.json").json()
+    op = spec["paths"]["/v1/forecasts"]["post"]
+    assert set(op["requestBody"]["content"]) == {"application/json", "text/csv"}
+    schema = spec["components"]["schemas"]["ForecastCreate"]
+    assert schema["properties"]["draws"]["maximum"] == 10_000
+    assert schema["properties"]["horizon"]["maximum"] == 104
+    assert schema["examples"][0]["series"]["tyres"][0] == 1256
+    assert {"413", "415", "422"} <= set(op["responses"])

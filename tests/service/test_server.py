@@ -18,6 +18,8 @@ from service.app import create_app
 from service.cli import main
 from service.config import Settings
 
+EXAMPLES = Path(__file__).resolve().parents[2] / "examples"
+
 
 def _free_port() -> int:
     with socket.socket() as s:
@@ -65,6 +67,12 @@ def test_real_server_answers_like_the_app_and_across_restarts(demo_body, tmp_pat
         bad = httpx.post(url, json={**demo_body, "horizon": -1}, timeout=60)
         assert bad.status_code == 422
         assert bad.headers["content-type"] == "application/problem+json"
+        # the example an inventory system would run, against the live server
+        example = subprocess.run(
+            [sys.executable, str(EXAMPLES / "inventory_forecast.py"), "--url",
+             f"http://127.0.0.1:{port}"], capture_output=True, text=True, timeout=120)
+        assert example.returncode == 0, example.stderr
+        assert "lead time" in example.stdout and "inner_tubes" in example.stdout
     finally:
         assert _stop(proc) in (0, -signal.SIGTERM)
     proc = _start(port, log)  # a new process: same seed, same bytes

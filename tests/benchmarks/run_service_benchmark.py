@@ -1,0 +1,517 @@
+"""Fanfold HTTP service latency vs a bare FastAPI "floor" (not a pytest module).
+
+Usage::
+
+    python tests/benchmarks/run_service_benchmark.py [--requests 400] [--concurrency 8]
+        [--workers 1] [--out tests/benchmarks/results/service.md]
+
+Workload: scenario S of run_benchmarks.py (n=3 series, p=4 lags, T=120 monthly values,
+simulated from a known stationary VAR with a fixed seed) sent as JSON to
+``POST /v1/forecasts`` with horizon 12, lags 4, 1000 draws, seed 1 and quantiles
+0.05/0.5/0.95 (the tightness is tuned: the request leaves it at "auto").
+
+Two servers run in subprocesses on free 127.0.0.1 ports, with the same uvicorn settings
+and worker count:
+
+- Fanfold: ``python -m service serve --port P`` with ``FANFOLD_BLAS_THREADS=1``;
+- the floor: a bare FastAPI app whose one POST endpoint reads the body and returns the
+  bytes of Fanfold's answer to this request (fetched once, before the runs), i.e. the
+  cost of HTTP + ASGI + FastAPI routing + moving the same bytes, with no work.
+
+Each target gets 20 warm-up requests, then ``--requests`` timed requests from
+``--concurrency`` client threads sharing one httpx connection pool (the body is encoded
+once; latency = time.perf_counter around ``client.post``), and again with one client
+(sequential). The engine's own compute time is measured in this process, before the
+servers start: ``service.engine.run_forecast`` (fit + forecast + the answer dict, one
+BLAS thread as the service does) on the parsed request, best and median of 10 after one
+warm-up run.
+
+Target: Fanfold p50 < 3 x floor p50 + engine median. With concurrent clients and one
+worker process on a 2-core machine, the p50 includes queueing behind the other clients'
+requests (the engine runs in the worker's thread pool and holds the GIL for much of its
+time), and the client threads compete with the server for the same cores, so the bound is
+checked for the concurrent and for the sequential run, labelled as such.
+
+All traffic goes to 127.0.0.1. Every wait is bounded; both servers are stopped at the end
+(SIGTERM, then SIGKILL to their process group after 25 s), also on errors.
+"""
+
+from __future__ import annotations
+
+import argparse
+import datetime as _dt
+import json
+import os
+import platform
+import signal
+import socket
+import statistics
+import subprocess
+import sys
+import tempfile
+import threading
+import time
+from collections.abc import Callable
+from pathlib import Path
+from typing import Any
+
+import httpx
+import numpy as np
+from run_benchmarks import SCENARIOS, simulate_var
+
+HERE = Path(__file__).resolve().parent
+REPO = HERE.parent.parent
+
+SCENARIO = "S"
+REQUEST_SETTINGS: dict[str, Any] = {
+    "start": "2016-01-01", "frequency": "MS", "horizon": 12, "lags": 4, "draws": 1000,
+    "seed": 1, "quantiles": [0.05, 0.5, 0.95],
+}
+PATH = "/v1/forecasts"
+WARMUP = 20
+ENGINE_REPEATS = 10
+FLOOR_FACTOR = 3.0
+READY_TIMEOUT_S = 60.0
+STOP_TIMEOUT_S = 25.0
+REQUEST_TIMEOUT_S = 60.0
+MAX_ERRORS = 20  # a run stops early after this many failed requests
+FLOOR_BODY_ENV = "FANFOLD_BENCH_FLOOR_BODY"
+
+
+# ---------------------------------------------------------------------------- request
+def build_request() -> dict[str, Any]:
+    """The JSON body: scenario S data on monthly dates from 2016-01-01."""
+    n, p, T = SCENARIOS[SCENARIO]
+    Y = simulate_var(n, p, T)
+    series = {f"s{j + 1}": [float(v) for v in Y[:, j]] for j in range(n)}
+    return {"series": series, **REQUEST_SETTINGS}
+
+
+# ---------------------------------------------------------------------------- floor app
+def floor_app_factory() -> Any:
+    """The floor: read the body, answer with precomputed bytes (uvicorn factory)."""
+    from fastapi import FastAPI, Request, Response
+
+    answer = Path(os.environ[FLOOR_BODY_ENV]).read_bytes()
+    app = FastAPI(docs_url=None, redoc_url=None, openapi_url=None)
+
+    @app.get("/readyz")
+    def readyz() -> Response:
+        return Response(b'{"status":"ready"}', media_type="application/json")
+
+    @app.post(PATH)
+    async def forecast(request: Request) -> Response:
+        await request.body()
+        return Response(answer, media_type="application/json")
+
+    return app
+
+
+def serve_floor(port: int, workers: int) -> int:
+    """Run the floor app with the uvicorn settings of ``fanfold serve``."""
+    import uvicorn
+
+    uvicorn.run(f"{Path(__file__).stem}:floor_app_factory", factory=True, app_dir=str(HERE),
+                host="127.0.0.1", port=port, workers=workers, log_level="warning",
+                timeout_graceful_shutdown=20)
+    return 0
+
+
+# ---------------------------------------------------------------------------- servers
+def free_port() -> int:
+    with socket.socket() as s:
+        s.bind(("127.0.0.1", 0))
+        return s.getsockname()[1]
+
+
+def _tail(log: Path, lines: int = 20) -> str:
+    try:
+        return "\n".join(log.read_text(errors="replace").splitlines()[-lines:])
+    except OSError:
+        return "(no log)"
+
+
+def start_server(cmd: list[str], port: int, log: Path, env: dict[str, str],
+                 procs: list[subprocess.Popen]) -> subprocess.Popen:
+    """Start ``cmd`` (appended to ``procs`` at once, for cleanup) and wait for /readyz."""
+    with log.open("ab") as err:
+        proc = subprocess.Popen(cmd, cwd=REPO, env=env, stdout=subprocess.DEVNULL,
+                                stderr=err, start_new_session=True)
+    procs.append(proc)
+    deadline = time.monotonic() + READY_TIMEOUT_S
+    while time.monotonic() < deadline:
+        if proc.poll() is not None:
+            raise RuntimeError(f"server exited with {proc.returncode}:\n{_tail(log)}")
+        try:
+            if httpx.get(f"http://127.0.0.1:{port}/readyz", timeout=1).status_code == 200:
+                return proc
+        except httpx.HTTPError:
+            pass
+        time.sleep(0.2)
+    raise RuntimeError(f"server not ready within {READY_TIMEOUT_S:g} s:\n{_tail(log)}")
+
+
+def stop_server(proc: subprocess.Popen) -> int | None:
+    """SIGTERM (uvicorn drains), then SIGKILL the process group after 25 s."""
+    if proc.poll() is None:
+        proc.send_signal(signal.SIGTERM)
+        try:
+            proc.wait(timeout=STOP_TIMEOUT_S)
+        except subprocess.TimeoutExpired:
+            pass
+    if proc.poll() is None:
+        try:
+            os.killpg(proc.pid, signal.SIGKILL)  # the group started for this server only
+        except ProcessLookupError:
+            pass
+        try:
+            proc.wait(timeout=5)
+        except subprocess.TimeoutExpired:
+            return None
+    return proc.returncode
+
+
+def server_cpu_seconds(pid: int) -> float | None:
+    """utime + stime of ``pid`` and its direct children (uvicorn workers), Linux only."""
+    tick = os.sysconf("SC_CLK_TCK")
+
+    def stat(path: Path) -> tuple[int, float] | None:
+        try:
+            fields = path.read_text().rsplit(")", 1)[1].split()
+        except (OSError, IndexError):
+            return None
+        return int(fields[1]), (int(fields[11]) + int(fields[12])) / tick  # ppid, cpu
+
+    own = stat(Path(f"/proc/{pid}/stat"))
+    if own is None:
+        return None
+    total = own[1]
+    for path in Path("/proc").glob("[0-9]*/stat"):
+        other = stat(path)
+        if other is not None and other[0] == pid:
+            total += other[1]
+    return total
+
+
+def scrape_metrics(base: str) -> dict[str, float]:
+    """Sums and counts of Fanfold's request and engine-duration histograms."""
+    wanted = {
+        'fanfold_http_request_duration_seconds_sum{method="POST",route="/v1/forecasts"}':
+            "http_sum",
+        'fanfold_http_request_duration_seconds_count{method="POST",route="/v1/forecasts"}':
+            "http_count",
+        "fanfold_forecast_duration_seconds_sum": "engine_sum",
+        "fanfold_forecast_duration_seconds_count": "engine_count",
+    }
+    out: dict[str, float] = {}
+    try:
+        text = httpx.get(f"{base}/metrics", timeout=5).text
+    except httpx.HTTPError:
+        return out
+    for line in text.splitlines():
+        key, _, value = line.rpartition(" ")
+        if key in wanted:
+            out[wanted[key]] = float(value)
+    return out
+
+
+# ---------------------------------------------------------------------------- load
+def run_load(url: str, body: bytes, total: int, concurrency: int,
+             expected: bytes | None) -> dict[str, Any]:
+    """``total`` POSTs from ``concurrency`` threads; latencies in seconds."""
+    latencies: list[float] = []
+    errors: list[str] = []
+    lock = threading.Lock()
+    issued = 0
+    headers = {"content-type": "application/json"}
+    limits = httpx.Limits(max_connections=concurrency, max_keepalive_connections=concurrency)
+
+    def next_slot() -> bool:
+        nonlocal issued
+        with lock:
+            if issued >= total or len(errors) >= MAX_ERRORS:
+                return False
+            issued += 1
+            return True
+
+    def worker(client: httpx.Client) -> None:
+        while next_slot():
+            t0 = time.perf_counter()
+            try:
+                r = client.post(url, content=body, headers=headers)
+                elapsed = time.perf_counter() - t0
+            except httpx.HTTPError as exc:
+                with lock:
+                    errors.append(f"{type(exc).__name__}: {exc}"[:120])
+                continue
+            if r.status_code != 200:
+                with lock:
+                    errors.append(f"HTTP {r.status_code}: {r.text[:80]}")
+            elif expected is not None and r.content != expected:
+                with lock:
+                    errors.append("answer differs from the reference answer")
+            else:
+                latencies.append(elapsed)
+
+    with httpx.Client(limits=limits, timeout=REQUEST_TIMEOUT_S) as client:
+        threads = [threading.Thread(target=worker, args=(client,), daemon=True)
+                   for _ in range(concurrency)]
+        wall0 = time.perf_counter()
+        for t in threads:
+            t.start()
+        for t in threads:
+            t.join(timeout=REQUEST_TIMEOUT_S * (total + 1))
+        wall = time.perf_counter() - wall0
+    return {"latencies": latencies, "errors": errors, "wall": wall,
+            "hung": sum(t.is_alive() for t in threads)}
+
+
+def measure_target(name: str, base: str, pid: int, body: bytes, total: int,
+                   concurrency: int, expected: bytes | None, metrics: bool) -> dict[str, Any]:
+    url = f"{base}{PATH}"
+    warm = run_load(url, body, WARMUP, concurrency, expected)
+    if warm["errors"]:
+        raise RuntimeError(f"{name}: warm-up failed: {warm['errors'][0]}")
+    before = scrape_metrics(base) if metrics else {}
+    cpu0 = server_cpu_seconds(pid)
+    res = run_load(url, body, total, concurrency, expected)
+    cpu1 = server_cpu_seconds(pid)
+    after = scrape_metrics(base) if metrics else {}
+    lat = np.asarray(res["latencies"]) * 1e3
+    p50, p95, p99 = (np.percentile(lat, [50, 95, 99]) if lat.size else (np.nan,) * 3)
+    done = lat.size
+    out = {"target": name, "concurrency": concurrency, "requests": total, "ok": done,
+           "errors": len(res["errors"]), "first_error": (res["errors"] or [""])[0],
+           "hung": res["hung"], "p50": float(p50), "p95": float(p95), "p99": float(p99),
+           "mean": float(lat.mean()) if done else float("nan"),
+           "rps": done / res["wall"] if res["wall"] > 0 else float("nan"),
+           "cpu_ms": (cpu1 - cpu0) * 1e3 / done if done and None not in (cpu0, cpu1)
+           else None}
+    for kind in ("http", "engine"):
+        count = after.get(f"{kind}_count", 0.0) - before.get(f"{kind}_count", 0.0)
+        if count > 0:
+            out[f"server_{kind}_ms"] = (after[f"{kind}_sum"] - before[f"{kind}_sum"]) / count * 1e3
+    return out
+
+
+# ---------------------------------------------------------------------------- engine
+def _repeat(fn: Callable[[], object], repeats: int) -> list[float]:
+    times = []
+    for _ in range(repeats):
+        t0 = time.perf_counter()
+        fn()
+        times.append(time.perf_counter() - t0)
+    return times
+
+
+def measure_engine(body: bytes, repeats: int) -> dict[str, list[float]]:
+    """In-process times (s) of the route's pieces; run_forecast is the engine."""
+    import warnings
+
+    from starlette.responses import JSONResponse
+
+    from service.config import Settings
+    from service.engine import frame_from_spec, run_forecast
+    from service.schemas import ForecastCreate
+
+    settings = Settings(blas_threads=1)
+    spec = ForecastCreate.model_validate_json(body)
+    frame = frame_from_spec(spec)
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        payload = run_forecast(spec, frame, settings)  # warm-up
+        out = {"engine": _repeat(lambda: run_forecast(spec, frame, settings), repeats)}
+    out["parse"] = _repeat(lambda: ForecastCreate.model_validate_json(body), repeats)
+    out["frame"] = _repeat(lambda: frame_from_spec(spec), repeats)
+    out["render"] = _repeat(lambda: JSONResponse(payload), repeats)
+    return out
+
+
+# ---------------------------------------------------------------------------- report
+def machine_info() -> list[str]:
+    import fastapi
+    import pydantic
+    import starlette
+    import uvicorn
+
+    cpu = "?"
+    try:
+        for line in Path("/proc/cpuinfo").read_text().splitlines():
+            if line.startswith("model name"):
+                cpu = line.split(":", 1)[1].strip()
+                break
+    except OSError:
+        pass
+    try:
+        commit = subprocess.run(["git", "rev-parse", "--short", "HEAD"], cwd=REPO,
+                                capture_output=True, text=True, check=False).stdout.strip()
+        dirty = subprocess.run(["git", "status", "--porcelain", "service", "priors"],
+                               cwd=REPO, capture_output=True, text=True,
+                               check=False).stdout.strip()
+        commit += " (service/ or priors/ has uncommitted changes)" if dirty else ""
+    except OSError:
+        commit = "?"
+
+    def have(module: str) -> str:
+        import importlib.util
+
+        return "yes" if importlib.util.find_spec(module) is not None else "no"
+
+    return [
+        f"- date: {_dt.datetime.now().isoformat(timespec='seconds')}; repo commit {commit}",
+        f"- machine: {platform.machine()} {cpu}; nproc {os.cpu_count()}; load average at "
+        f"start {os.getloadavg()[0]:.2f}",
+        f"- python {platform.python_version()}, numpy {np.__version__}, fastapi "
+        f"{fastapi.__version__}, starlette {starlette.__version__}, uvicorn "
+        f"{uvicorn.__version__}, pydantic {pydantic.__version__}, httpx {httpx.__version__}",
+        f"- uvicorn extras: uvloop {have('uvloop')}, httptools {have('httptools')} "
+        "(without them: asyncio loop and h11)",
+    ]
+
+
+def _ms(x: float | None, digits: int = 2) -> str:
+    return "n/a" if x is None or not np.isfinite(x) else f"{x:.{digits}f}"
+
+
+def build_report(header: list[str], settings: list[str], runs: list[dict[str, Any]],
+                 engine: dict[str, list[float]], body_len: int, answer_len: int) -> str:
+    eng_ms = {k: (min(v) * 1e3, statistics.median(v) * 1e3) for k, v in engine.items()}
+    engine_median = eng_ms["engine"][1]
+    out = ["# Fanfold service benchmark", "", *header, *settings,
+           f"- request body {body_len} bytes; answer {answer_len} bytes (the floor returns "
+           "the same bytes)", ""]
+    out += ["## Latency (client side, ms)", "",
+            "| run | target | clients | requests ok / errors | p50 | p95 | p99 | mean | "
+            "req/s | server CPU ms/req | in-app ms (mean) | engine ms in server (mean) |",
+            "|---|---|---|---|---|---|---|---|---|---|---|---|"]
+    for r in runs:
+        label = "sequential" if r["concurrency"] == 1 else "concurrent"
+        out.append(
+            f"| {label} | {r['target']} | {r['concurrency']} | {r['ok']} / {r['errors']} | "
+            f"{_ms(r['p50'])} | {_ms(r['p95'])} | {_ms(r['p99'])} | {_ms(r['mean'])} | "
+            f"{_ms(r['rps'], 1)} | {_ms(r['cpu_ms'])} | {_ms(r.get('server_http_ms'))} | "
+            f"{_ms(r.get('server_engine_ms'))} |")
+    out += ["", f"## Target: Fanfold p50 < {FLOOR_FACTOR:g} x floor p50 + engine median", "",
+            "| run | clients | floor p50 | engine median | bound | Fanfold p50 | "
+            "Fanfold p50 / bound | result |",
+            "|---|---|---|---|---|---|---|---|"]
+    verdicts = []
+    for conc in dict.fromkeys(r["concurrency"] for r in runs):
+        by = {r["target"]: r for r in runs if r["concurrency"] == conc}
+        ff, fl = by["fanfold"], by["floor"]
+        bound = FLOOR_FACTOR * fl["p50"] + engine_median
+        ok = ff["errors"] == 0 and fl["errors"] == 0 and ff["p50"] < bound
+        label = "sequential" if conc == 1 else "concurrent (includes queueing)"
+        verdicts.append(f"{label}: {'PASS' if ok else 'FAIL'}")
+        out.append(f"| {label} | {conc} | {_ms(fl['p50'])} | {_ms(engine_median)} | "
+                   f"{_ms(bound)} | {_ms(ff['p50'])} | {ff['p50'] / bound:.2f} | "
+                   f"{'PASS' if ok else 'FAIL'} |")
+    names = {"engine": "run_forecast: fit + forecast + answer dict (the engine)",
+             "parse": "ForecastCreate.model_validate_json(body)",
+             "frame": "frame_from_spec(spec)",
+             "render": "JSONResponse(payload) (json.dumps)"}
+    out += ["", f"## In-process times, one BLAS thread (ms, {ENGINE_REPEATS} runs after one "
+            "warm-up)", "", "| piece | best | median |", "|---|---|---|"]
+    for key, text in names.items():
+        best, med = eng_ms[key]
+        out.append(f"| {text} | {best:.3f} | {med:.3f} |")
+    total_med = sum(eng_ms[k][1] for k in names)
+    out += ["", f"Verdict: {'; '.join(verdicts)}.", "", "Notes:", "",
+            f"- Sum of the in-process medians above (parse + frame + engine + render): "
+            f"{total_med:.2f} ms.",
+            "- 'server CPU ms/req' is the server process's user+system CPU time "
+            "(/proc/PID/stat, with its worker children) over the timed run divided by the "
+            "requests; it includes the engine's BLAS thread(s).",
+            "- 'in-app ms' and 'engine ms in server' are means from Fanfold's /metrics "
+            "histograms over the timed run: the request inside the ASGI app (after uvicorn "
+            "parsed it) and the engine call including the hop to the thread pool.",
+            "- The client threads run in this process on the same cores as the server; the "
+            "same client runs against both targets, so its cost is in the floor too.",
+            "- The concurrent p50 contains queueing: with one worker process the requests "
+            "in flight share one GIL, so a request waits for the compute of the others.",
+            f"- load average at end: {os.getloadavg()[0]:.2f}", ""]
+    return "\n".join(out)
+
+
+# ---------------------------------------------------------------------------- main
+def main(argv: list[str] | None = None) -> int:
+    ap = argparse.ArgumentParser(description=__doc__.split("\n\n")[0])
+    ap.add_argument("--requests", type=int, default=400,
+                    help="timed requests per target and run (after 20 warm-up requests)")
+    ap.add_argument("--concurrency", type=int, default=8, help="concurrent client threads")
+    ap.add_argument("--workers", type=int, default=1,
+                    help="uvicorn worker processes of both servers (fanfold serve default: 1)")
+    ap.add_argument("--out", default=str(HERE / "results" / "service.md"))
+    ap.add_argument("--floor-server", type=int, metavar="PORT", help=argparse.SUPPRESS)
+    args = ap.parse_args(argv)
+    if args.requests < 1 or args.concurrency < 1 or args.workers < 1:
+        ap.error("--requests, --concurrency and --workers must be >= 1")
+    if args.floor_server:
+        return serve_floor(args.floor_server, args.workers)
+
+    sys.path.insert(0, str(REPO))  # this checkout's service/ and priors/
+    request = build_request()
+    body = json.dumps(request).encode()
+    header = machine_info()
+    print("measuring the engine in-process ...", file=sys.stderr, flush=True)
+    engine = measure_engine(body, ENGINE_REPEATS)
+    concurrencies = list(dict.fromkeys([args.concurrency, 1]))
+    settings = [
+        f"- scenario {SCENARIO} (n, p, T = {SCENARIOS[SCENARIO]}), request settings "
+        f"{json.dumps(REQUEST_SETTINGS)}",
+        f"- {args.requests} timed requests per target and run after {WARMUP} warm-up "
+        f"requests; runs with {' and '.join(map(str, concurrencies))} client thread(s) "
+        "(one shared httpx pool); uvicorn workers per server: "
+        f"{args.workers}; FANFOLD_BLAS_THREADS=1",
+    ]
+
+    runs: list[dict[str, Any]] = []
+    procs: list[subprocess.Popen] = []
+    with tempfile.TemporaryDirectory(prefix="fanfold-bench-") as tmp:
+        tmpdir = Path(tmp)
+        env = {**os.environ, "FANFOLD_BLAS_THREADS": "1"}
+        try:
+            ff_port = free_port()
+            ff_base = f"http://127.0.0.1:{ff_port}"
+            print(f"starting fanfold on {ff_base} ...", file=sys.stderr, flush=True)
+            ff = start_server([sys.executable, "-m", "service", "serve", "--port",
+                               str(ff_port), "--workers", str(args.workers)],
+                              ff_port, tmpdir / "fanfold.log", env, procs)
+            first = httpx.post(f"{ff_base}{PATH}", content=body, timeout=REQUEST_TIMEOUT_S,
+                               headers={"content-type": "application/json"})
+            if first.status_code != 200:
+                raise RuntimeError(f"fanfold answered {first.status_code}: {first.text[:200]}")
+            answer = first.content
+            (tmpdir / "answer.json").write_bytes(answer)
+
+            fl_port = free_port()
+            fl_base = f"http://127.0.0.1:{fl_port}"
+            print(f"starting the floor on {fl_base} ...", file=sys.stderr, flush=True)
+            fl = start_server([sys.executable, str(Path(__file__).resolve()),
+                               "--floor-server", str(fl_port), "--workers", str(args.workers)],
+                              fl_port, tmpdir / "floor.log",
+                              {**env, FLOOR_BODY_ENV: str(tmpdir / "answer.json")}, procs)
+            for conc in concurrencies:
+                for name, base, proc, expected, metrics in (
+                        ("fanfold", ff_base, ff, answer, True),
+                        ("floor", fl_base, fl, answer, False)):
+                    print(f"{name}: {args.requests} requests, {conc} client(s) ...",
+                          file=sys.stderr, flush=True)
+                    runs.append(measure_target(name, base, proc.pid, body, args.requests,
+                                               conc, expected, metrics))
+        finally:
+            for proc in procs:
+                code = stop_server(proc)
+                print(f"stopped server pid {proc.pid}: exit {code}", file=sys.stderr)
+
+    report = build_report(header, settings, runs, engine, len(body), len(answer))
+    print(report)
+    out = Path(args.out)
+    out.parent.mkdir(parents=True, exist_ok=True)
+    out.write_text(report)
+    print(f"written to {out}", file=sys.stderr)
+    return 0
+
+
+if __name__ == "__main__":
+    raise SystemExit(main())

@@ -1,0 +1,42 @@
+"""service.client against the app in-process (ASGI transport)."""
+
+from __future__ import annotations
+
+import httpx
+import pytest
+from fastapi.testclient import TestClient
+
+from service.app import create_app
+from service.client import FanfoldAPIError, FanfoldClient
+from service.config import Settings
+
+
+@pytest.fixture
+def fanfold():
+    """The client over httpx.MockTransport, handing each request to the app in-process."""
+    with TestClient(create_app(Settings())) as app:
+
+        def handler(request: httpx.Request) -> httpx.Response:
+            r = app.request(request.method, request.url.raw_path.decode(),
+                            content=request.content, headers=dict(request.headers))
+            return httpx.Response(r.status_code, headers=dict(r.headers), content=r.content)
+
+        with FanfoldClient("http://testserver", transport=httpx.MockTransport(handler)) as c:
+            yield c
+
+
+def test_forecast_table(fanfold, demo):
+    table = fanfold.forecast(demo[["tyres", "chains"]], horizon=3, draws=200, seed=2,
+                             quantiles=[0.1, 0.9])
+    assert list(table.columns) == ["series", "date", "step", "mean", "median", "q0.1", "q0.9"]
+    assert len(table) == 2 * 3
+    assert (table["q0.1"] <= table["median"]).all() and (table["median"] <= table["q0.9"]).all()
+    assert table["date"].iloc[0] == "2026-01-01"
+
+
+def test_errors_carry_the_problem_document(fanfold, demo):
+    with pytest.raises(FanfoldAPIError) as info:
+        fanfold.forecast(demo[["tyres"]], horizon=0)
+    assert info.value.status == 422
+    assert info.value.problem["errors"][0]["field"] == "horizon"
+    assert "horizon" in str(info.value)

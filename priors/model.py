@@ -6,6 +6,7 @@ computes the closed-form posterior and sets the fitted attributes (names ending 
 
 from __future__ import annotations
 
+import inspect
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
 
@@ -256,6 +257,55 @@ class FanfoldVAR:
         self.posterior_ = post
         self.log_ml_ = post.log_ml
         return self
+
+    def get_params(self) -> dict[str, object]:
+        """The settings given to ``__init__`` (enough to build an identical model)."""
+        names = [p for p in inspect.signature(type(self).__init__).parameters if p != "self"]
+        return {name: getattr(self, name) for name in names}
+
+    @classmethod
+    def restore(
+        cls,
+        params: Mapping[str, object],
+        data: pd.DataFrame | FloatArray,
+        *,
+        lags: int,
+        hyper: MinnesotaHyper | None,
+        posterior: NIWPosterior,
+        exog: pd.DataFrame | FloatArray | None = None,
+        names: Sequence[str] | None = None,
+        period: int | None = None,
+    ) -> FanfoldVAR:
+        """A fitted model from stored parts, without tuning or fitting again.
+
+        ``params`` are :meth:`get_params` of the original; ``lags``, ``hyper`` and
+        ``posterior`` its fitted ``lags_``, ``hyper_`` and ``posterior_``. The data are
+        validated and the design rebuilt (cheap and deterministic); the posterior is
+        taken as given, so forecasts equal those of the original model.
+        """
+        model = cls(**params)  # type: ignore[arg-type]
+        model._check_settings()
+        series = load_series(data, transforms=model.transforms, exog=exog, names=names,
+                             period=period)
+        det = Deterministics(model.constant, model.trend, model.seasonal)
+        design = build_design(series, int(lags), det)
+        if posterior.B.shape != (design.k, design.n):
+            raise SpecificationError(
+                f"stored posterior has shape {posterior.B.shape} but the data and settings "
+                f"give {(design.k, design.n)}; the stored model does not match its data")
+        prior_mean = model._prior_mean(series)
+        prior = None if hyper is None else minnesota_prior(design, hyper, prior_mean)
+        model.series_ = series
+        model.deterministics_ = det
+        model.prior_mean_ = prior_mean
+        model.design_ = design
+        model.lags_ = int(lags)
+        model.lag_search_ = []
+        model.hyper_ = hyper
+        model.prior_ = prior
+        model.posterior_ = posterior
+        model.log_ml_ = posterior.log_ml
+        return model
 
     def _check_fitted(self) -> None:
         if not hasattr(self, "posterior_"):

@@ -9,11 +9,13 @@ from fastapi import FastAPI
 from fastapi.middleware.cors import CORSMiddleware
 from fastapi.openapi.utils import get_openapi
 
-from .api.routes import forecasts, health
+from .api.routes import forecasts, health, models
 from .config import Settings, get_settings
+from .db import make_engine, make_session_factory
 from .errors import register_error_handlers
 from .metrics import Metrics, MetricsMiddleware
 from .middleware import BodyLimitMiddleware, RequestIdMiddleware
+from .migrate import upgrade
 from .schemas import ForecastCreate
 
 __all__ = ["create_app"]
@@ -27,9 +29,11 @@ def create_app(settings: Settings | None = None) -> FastAPI:
 
     @asynccontextmanager
     async def lifespan(app: FastAPI) -> AsyncIterator[None]:
+        upgrade(app.state.engine)  # schema at the newest revision before taking requests
         app.state.ready = True
         yield
         app.state.ready = False
+        app.state.engine.dispose()
 
     app = FastAPI(
         title="Fanfold",
@@ -43,9 +47,12 @@ def create_app(settings: Settings | None = None) -> FastAPI:
     app.state.settings = settings
     app.state.metrics = Metrics()
     app.state.ready = False
+    app.state.engine = make_engine(settings.database_url)
+    app.state.sessions = make_session_factory(app.state.engine)
     register_error_handlers(app)
     app.include_router(health.router)
     app.include_router(forecasts.router)
+    app.include_router(models.router)
     # added last = outermost: ids first, then limits, then metrics around the routes
     app.add_middleware(MetricsMiddleware, metrics=app.state.metrics)
     app.add_middleware(BodyLimitMiddleware, max_bytes=settings.max_body_bytes)

@@ -17,13 +17,23 @@ from priors.model import default_max_lags
 
 from .config import Settings
 from .errors import LimitExceeded
-from .schemas import ForecastCreate, ForecastSettings
+from .schemas import ForecastSettings, ModelSettings, OutputSettings, SeriesData
 from .serialization import forecast_to_dict
 
-__all__ = ["blas_threads", "check_limits", "frame_from_spec", "run_forecast"]
+__all__ = [
+    "blas_threads",
+    "check_model_limits",
+    "check_output_limits",
+    "fan_chart",
+    "fit_model",
+    "forecast_answer",
+    "frame_from_spec",
+    "model_params",
+    "run_forecast",
+]
 
 
-def frame_from_spec(spec: ForecastCreate) -> pd.DataFrame:
+def frame_from_spec(spec: SeriesData) -> pd.DataFrame:
     """The series of a JSON request as a DataFrame on its dates."""
     lengths = {name: len(values) for name, values in spec.series.items()}
     if len(set(lengths.values())) > 1:
@@ -56,40 +66,39 @@ def frame_from_spec(spec: ForecastCreate) -> pd.DataFrame:
     return frame
 
 
-def check_limits(
-    settings: ForecastSettings, n: int, T: int, m_guess: int, limits: Settings
-) -> None:
-    """Raise :class:`LimitExceeded` (422) naming the first limit the request exceeds."""
-    p = (
-        settings.lags
-        if isinstance(settings.lags, int)
-        else (settings.max_lags or default_max_lags("monthly"))
+def _over(field: str, value: int, limit: int, advice: str) -> None:
+    if value > limit:
+        raise LimitExceeded(
+            field, f"{field}: {value} is over this server's limit of {limit}; {advice}"
+        )
+
+
+def check_model_limits(spec: ModelSettings, n: int, T: int, limits: Settings) -> None:
+    """Raise :class:`LimitExceeded` (422) naming the first model limit the data exceed."""
+    p = spec.lags if isinstance(spec.lags, int) else (spec.max_lags or default_max_lags("monthly"))
+    m = int(spec.constant) + int(spec.trend) + (11 if spec.seasonal else 0)
+    _over("series", n, limits.max_series, "send fewer series")
+    _over("series", T, limits.max_observations, "send fewer observations per series")
+    _over("lags", p, limits.max_lags, "lower lags or max_lags")
+    _over(
+        "lags",
+        n * (n * p + m),
+        limits.max_coefficients,
+        "lower lags or send fewer series (coefficients = series x (series x lags + terms))",
     )
-    checks = [
-        ("series", n, limits.max_series, "send fewer series"),
-        ("series", T, limits.max_observations, "send fewer observations per series"),
-        ("lags", p, limits.max_lags, "lower lags or max_lags"),
-        ("draws", settings.draws, limits.max_draws, "lower draws"),
-        ("horizon", settings.horizon, limits.max_horizon, "lower horizon"),
-        ("quantiles", len(settings.quantiles), limits.max_quantiles, "ask for fewer quantiles"),
-        (
-            "lags",
-            n * (n * p + m_guess),
-            limits.max_coefficients,
-            "lower lags or send fewer series (coefficients = series x (series x lags + terms))",
-        ),
-        (
-            "draws",
-            settings.draws * settings.horizon * n,
-            limits.max_path_values,
-            "lower draws or horizon (draws x horizon x series)",
-        ),
-    ]
-    for field, value, limit, advice in checks:
-        if value > limit:
-            raise LimitExceeded(
-                field, f"{field}: {value} is over this server's limit of {limit}; {advice}"
-            )
+
+
+def check_output_limits(spec: OutputSettings, n: int, limits: Settings) -> None:
+    """Raise :class:`LimitExceeded` (422) naming the first output limit exceeded."""
+    _over("draws", spec.draws, limits.max_draws, "lower draws")
+    _over("horizon", spec.horizon, limits.max_horizon, "lower horizon")
+    _over("quantiles", len(spec.quantiles), limits.max_quantiles, "ask for fewer quantiles")
+    _over(
+        "draws",
+        spec.draws * spec.horizon * n,
+        limits.max_path_values,
+        "lower draws or horizon (draws x horizon x series)",
+    )
 
 
 @contextlib.contextmanager
@@ -105,28 +114,36 @@ def blas_threads(limit: int):  # type: ignore[no-untyped-def]
         yield
 
 
-def run_forecast(spec: ForecastSettings, frame: pd.DataFrame, limits: Settings) -> dict[str, Any]:
-    """Fit and forecast; the answer in the layout of :func:`forecast_to_dict`."""
-    m_guess = int(spec.constant) + int(spec.trend) + (11 if spec.seasonal else 0)
-    check_limits(spec, frame.shape[1], frame.shape[0], m_guess, limits)
-    seed = secrets.randbits(32) if spec.seed is None else spec.seed
-    model = FanfoldVAR(
-        lags=spec.lags,
-        max_lags=spec.max_lags,
-        prior=spec.prior,
-        tightness=spec.tightness,
-        decay=spec.decay,
-        sum_coef=spec.sum_coef,
-        initial=spec.initial,
-        hyperprior=spec.hyperprior,
-        constant=spec.constant,
-        trend=spec.trend,
-        seasonal=spec.seasonal,
-        transforms=spec.transforms,
-    )
+def model_params(spec: ModelSettings) -> dict[str, Any]:
+    """FanfoldVAR's settings from a request."""
+    return {
+        "lags": spec.lags,
+        "max_lags": spec.max_lags,
+        "prior": spec.prior,
+        "tightness": spec.tightness,
+        "decay": spec.decay,
+        "sum_coef": spec.sum_coef,
+        "initial": spec.initial,
+        "hyperprior": spec.hyperprior,
+        "constant": spec.constant,
+        "trend": spec.trend,
+        "seasonal": spec.seasonal,
+        "transforms": spec.transforms,
+    }
 
+
+def fit_model(spec: ModelSettings, frame: pd.DataFrame, limits: Settings) -> FanfoldVAR:
+    """Check the limits, then fit."""
+    check_model_limits(spec, frame.shape[1], frame.shape[0], limits)
     with blas_threads(limits.blas_threads):
-        model.fit(frame)
+        return FanfoldVAR(**model_params(spec)).fit(frame)
+
+
+def forecast_answer(model: FanfoldVAR, spec: OutputSettings, limits: Settings) -> dict[str, Any]:
+    """Forecast from a fitted model; the answer in the layout of :func:`forecast_to_dict`."""
+    check_output_limits(spec, model.design_.n, limits)
+    seed = secrets.randbits(32) if spec.seed is None else spec.seed
+    with blas_threads(limits.blas_threads):
         fc = model.forecast(
             spec.horizon,
             rng=np.random.default_rng(seed),
@@ -138,3 +155,51 @@ def run_forecast(spec: ForecastSettings, frame: pd.DataFrame, limits: Settings) 
     payload = forecast_to_dict(model, fc, quantiles=spec.quantiles, seed=seed, draws=spec.draws)
     payload["cumulative"] = spec.cumulative
     return payload
+
+
+def run_forecast(spec: ForecastSettings, frame: pd.DataFrame, limits: Settings) -> dict[str, Any]:
+    """One-shot: check every limit first, then fit and forecast."""
+    check_model_limits(spec, frame.shape[1], frame.shape[0], limits)
+    check_output_limits(spec, frame.shape[1], limits)
+    return forecast_answer(fit_model(spec, frame, limits), spec, limits)
+
+
+def fan_chart(
+    model: FanfoldVAR,
+    *,
+    horizon: int,
+    bands: list[float],
+    draws: int,
+    seed: int,
+    history: int,
+    limits: Settings,
+) -> dict[str, Any]:
+    """Nested central bands, the median and the last ``history`` observations."""
+    out = OutputSettings(horizon=horizon, draws=draws, seed=seed)
+    check_output_limits(out, model.design_.n, limits)
+    with blas_threads(limits.blas_threads):
+        fc = model.forecast(horizon, rng=np.random.default_rng(seed), draws=draws)
+    median, band = fc.median(), fc.bands(bands)
+    levels = model.series_.levels[-history:]
+    index = model.series_.calendar.index
+    past = (
+        [d.date().isoformat() for d in index[-history:]]
+        if index is not None
+        else [str(i) for i in range(-len(levels) + 1, 1)]
+    )
+    names = model.series_.names
+    return {
+        "history": {
+            "dates": past,
+            "values": {nm: levels[:, j].tolist() for j, nm in enumerate(names)},
+        },
+        "dates": fc.steps(),
+        "median": {nm: median[:, j].tolist() for j, nm in enumerate(names)},
+        "bands": {
+            format(c, "g"): {
+                nm: {"lower": b[0, :, j].tolist(), "upper": b[1, :, j].tolist()}
+                for j, nm in enumerate(names)
+            }
+            for c, b in band.items()
+        },
+    }

@@ -14,7 +14,20 @@ from pydantic import BaseModel, ConfigDict, Field, field_validator
 
 from priors.transforms import TRANSFORMS
 
-__all__ = ["ForecastCreate", "ForecastPublic", "ForecastSettings", "SeriesForecast"]
+__all__ = [
+    "FanChartPublic",
+    "ForecastCreate",
+    "ForecastPublic",
+    "ForecastSettings",
+    "ModelCreate",
+    "ModelForecastCreate",
+    "ModelPublic",
+    "ModelSettings",
+    "ModelsPublic",
+    "OutputSettings",
+    "SeriesData",
+    "SeriesForecast",
+]
 
 Number = Annotated[float, Field(allow_inf_nan=False)]
 Positive = Annotated[float, Field(gt=0, allow_inf_nan=False)]
@@ -31,12 +44,11 @@ _DEMO = {
 }
 
 
-class ForecastSettings(BaseModel):
-    """Model and output settings of a forecast (also the query parameters for CSV)."""
+class ModelSettings(BaseModel):
+    """How the model is built: lags, prior, transforms, deterministic terms."""
 
     model_config = ConfigDict(extra="forbid")
 
-    horizon: int = Field(12, ge=1, le=104, description="periods ahead")
     lags: int | Literal["auto"] = Field(
         "auto", description="lag order, or 'auto' to choose it by marginal likelihood")
     max_lags: int | None = Field(None, ge=1, le=13, description="largest order for 'auto'")
@@ -54,25 +66,12 @@ class ForecastSettings(BaseModel):
     seasonal: bool = Field(False, description="seasonal dummies by the data's frequency")
     trend: bool = False
     constant: bool = True
-    quantiles: list[Annotated[float, Field(gt=0, lt=1)]] = Field(
-        [0.05, 0.5, 0.95], min_length=1, max_length=25)
-    draws: int = Field(2000, ge=1, le=10_000, description="simulated paths")
-    seed: int | None = Field(None, ge=0, lt=2**63, description="default: a fresh seed")
-    cumulative: bool = Field(False, description="running totals over steps 1..horizon")
-    reject_explosive: bool = False
 
     @field_validator("lags")
     @classmethod
     def _lags(cls, v: int | str) -> int | str:
         if isinstance(v, int) and not 1 <= v <= 13:
             raise ValueError("lags must be 'auto' or an integer from 1 to 13")
-        return v
-
-    @field_validator("quantiles")
-    @classmethod
-    def _quantiles(cls, v: list[float]) -> list[float]:
-        if any(b <= a for a, b in zip(v, v[1:], strict=False)):
-            raise ValueError("quantile levels must be increasing with no repeats")
         return v
 
     @field_validator("transforms", mode="before")
@@ -85,13 +84,37 @@ class ForecastSettings(BaseModel):
         return v
 
 
-class ForecastCreate(ForecastSettings):
-    """A one-shot forecast request: the series and the settings."""
+class OutputSettings(BaseModel):
+    """What to simulate and report: horizon, draws, quantiles, seed."""
 
-    model_config = ConfigDict(extra="forbid", json_schema_extra={"examples": [{
-        "series": _DEMO, "start": "2016-01-01", "frequency": "MS", "horizon": 6,
-        "quantiles": [0.05, 0.5, 0.95], "draws": 1000, "seed": 7,
-    }]})
+    model_config = ConfigDict(extra="forbid")
+
+    horizon: int = Field(12, ge=1, le=104, description="periods ahead")
+    quantiles: list[Annotated[float, Field(gt=0, lt=1)]] = Field(
+        [0.05, 0.5, 0.95], min_length=1, max_length=25)
+    draws: int = Field(2000, ge=1, le=10_000, description="simulated paths")
+    seed: int | None = Field(None, ge=0, lt=2**63, description="default: a fresh seed")
+    cumulative: bool = Field(False, description="running totals over steps 1..horizon")
+    reject_explosive: bool = False
+
+    @field_validator("quantiles")
+    @classmethod
+    def _quantiles(cls, v: list[float]) -> list[float]:
+        if any(b <= a for a, b in zip(v, v[1:], strict=False)):
+            raise ValueError("quantile levels must be increasing with no repeats")
+        return v
+
+
+class ForecastSettings(ModelSettings, OutputSettings):
+    """Model and output settings of a one-shot forecast (query parameters for CSV)."""
+
+    model_config = ConfigDict(extra="forbid")
+
+
+class SeriesData(BaseModel):
+    """The series and their dates: explicit ``dates``, or ``start`` and ``frequency``."""
+
+    model_config = ConfigDict(extra="forbid")
 
     series: dict[str, list[Number]] = Field(
         ..., min_length=1, description="values per series name, oldest first, equal lengths")
@@ -99,6 +122,33 @@ class ForecastCreate(ForecastSettings):
     frequency: str | None = Field(
         None, description="pandas frequency of the dates, e.g. MS (month start), QS, W, D")
     dates: list[dt.date] | None = Field(None, description="explicit dates instead")
+
+
+class ForecastCreate(SeriesData, ForecastSettings):
+    """A one-shot forecast request: the series and the settings."""
+
+    model_config = ConfigDict(extra="forbid", json_schema_extra={"examples": [{
+        "series": _DEMO, "start": "2016-01-01", "frequency": "MS", "horizon": 6,
+        "quantiles": [0.05, 0.5, 0.95], "draws": 1000, "seed": 7,
+    }]})
+
+
+class ModelCreate(SeriesData, ModelSettings):
+    """Fit and store a model."""
+
+    model_config = ConfigDict(extra="forbid", json_schema_extra={"examples": [{
+        "name": "bike parts, monthly", "series": _DEMO, "start": "2016-01-01",
+        "frequency": "MS", "seasonal": True,
+    }]})
+
+    name: str | None = Field(None, max_length=200, description="a label for people")
+
+
+class ModelForecastCreate(OutputSettings):
+    """Forecast from a stored model (no refit)."""
+
+    model_config = ConfigDict(extra="forbid", json_schema_extra={"examples": [{
+        "horizon": 6, "quantiles": [0.05, 0.5, 0.95], "draws": 1000, "seed": 7}]})
 
 
 class SeriesForecast(BaseModel):
@@ -122,3 +172,72 @@ class ForecastPublic(BaseModel):
     horizon: int
     rejected_explosive_share: float | None
     cumulative: bool
+
+
+class Coefficient(BaseModel):
+    equation: str
+    regressor: str
+    mean: float | None
+    sd: float | None
+    lower: float | None
+    upper: float | None
+
+
+class Span(BaseModel):
+    start: str
+    end: str
+    observations: int
+
+
+class ModelPublic(BaseModel):
+    """A stored model: settings, data span, chosen hyperparameters and the posterior."""
+
+    id: str
+    name: str | None
+    status: str
+    created_at: dt.datetime
+    updated_at: dt.datetime
+    version: int
+    series: list[str]
+    settings: dict[str, object]
+    span: Span
+    lags: int
+    hyperparameters: dict[str, float | None]
+    log_marginal_likelihood: float | None
+    coefficients: list[Coefficient]
+    sigma: dict[str, object]
+
+
+class ModelSummary(BaseModel):
+    """A stored model in a list."""
+
+    id: str
+    name: str | None
+    status: str
+    created_at: dt.datetime
+    version: int
+    series: list[str]
+    lags: int
+
+
+class ModelsPublic(BaseModel):
+    """A page of models; ``next`` is the cursor of the following page (or null)."""
+
+    data: list[ModelSummary]
+    next: str | None
+
+
+class Band(BaseModel):
+    lower: list[float | None]
+    upper: list[float | None]
+
+
+class FanChartPublic(BaseModel):
+    """What a dashboard needs to draw nested bands after the history."""
+
+    model_id: str
+    version: int
+    history: dict[str, object]
+    dates: list[str]
+    median: dict[str, list[float | None]]
+    bands: dict[str, dict[str, Band]]

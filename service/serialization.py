@@ -11,19 +11,41 @@ always succeeds.
 from __future__ import annotations
 
 import csv
+import dataclasses
+import hashlib
 import io
 import math
 import warnings
+import zlib
 from collections.abc import Sequence
 from typing import Any
 
 import numpy as np
 import pandas as pd
 
-from priors import DataError, FanfoldVAR, Forecast, TimeIndexError
+from priors import (
+    DataError,
+    FanfoldVAR,
+    Forecast,
+    MinnesotaHyper,
+    NIWPosterior,
+    TimeIndexError,
+)
 from priors.forecast import check_quantiles
 
-__all__ = ["forecast_to_dict", "frame_from_csv", "quantile_key", "summary_to_dict"]
+__all__ = [
+    "CorruptBlobError",
+    "data_from_dict",
+    "data_to_dict",
+    "forecast_to_dict",
+    "frame_from_csv",
+    "hyper_from_dict",
+    "hyper_to_dict",
+    "posterior_from_blob",
+    "posterior_to_blob",
+    "quantile_key",
+    "summary_to_dict",
+]
 
 _DATE_HINT = "write dates like 2016-01-01 in the first column"
 
@@ -202,3 +224,71 @@ def summary_to_dict(
     if rng is not None:
         out["spectral_radius"] = _stability(model, rng, stability_draws)
     return out
+
+
+# ---------------------------------------------------------------------- stored models
+_POSTERIOR_FORMAT = "fanfold-niw-1"
+
+
+class CorruptBlobError(ValueError):
+    """A stored posterior whose bytes do not match their checksum or shapes."""
+
+
+def posterior_to_blob(post: NIWPosterior) -> tuple[bytes, dict[str, Any]]:
+    """The posterior as zlib-compressed little-endian float64 bytes plus metadata.
+
+    Metadata: format, the arrays' shapes, df, log_ml and the SHA-256 of the raw bytes.
+    No pickle: the bytes are numbers only.
+    """
+    arrays = {"B": post.B, "R": post.R, "S": post.S}
+    raw = b"".join(np.ascontiguousarray(a, dtype="<f8").tobytes() for a in arrays.values())
+    meta = {"format": _POSTERIOR_FORMAT,
+            "shapes": {k: list(a.shape) for k, a in arrays.items()},
+            "df": float(post.df), "log_ml": _num(post.log_ml),
+            "sha256": hashlib.sha256(raw).hexdigest()}
+    return zlib.compress(raw, 6), meta
+
+
+def posterior_from_blob(blob: bytes, meta: dict[str, Any]) -> NIWPosterior:
+    """Inverse of :func:`posterior_to_blob`; checks the format and the checksum."""
+    if meta.get("format") != _POSTERIOR_FORMAT:
+        raise CorruptBlobError(f"unknown posterior format {meta.get('format')!r}")
+    try:
+        raw = zlib.decompress(blob)
+    except zlib.error as exc:
+        raise CorruptBlobError("stored posterior is not valid compressed data") from exc
+    if hashlib.sha256(raw).hexdigest() != meta["sha256"]:
+        raise CorruptBlobError("stored posterior does not match its checksum")
+    out, offset = {}, 0
+    for key in ("B", "R", "S"):
+        shape = tuple(meta["shapes"][key])
+        size = int(np.prod(shape)) * 8
+        out[key] = np.frombuffer(raw, dtype="<f8", count=size // 8, offset=offset
+                                 ).reshape(shape).astype(np.float64)
+        offset += size
+    if offset != len(raw):
+        raise CorruptBlobError("stored posterior has a different size than its shapes")
+    return NIWPosterior(out["B"], out["R"], out["S"], float(meta["df"]), meta["log_ml"])
+
+
+def hyper_to_dict(hyper: MinnesotaHyper | None) -> dict[str, Any]:
+    return {} if hyper is None else dataclasses.asdict(hyper)
+
+
+def hyper_from_dict(values: dict[str, Any]) -> MinnesotaHyper | None:
+    return MinnesotaHyper(**values) if values else None
+
+
+def data_to_dict(frame: pd.DataFrame) -> dict[str, Any]:
+    """A dated frame as JSON: ISO dates and values per series (floats round-trip exactly)."""
+    dates = ([d.date().isoformat() for d in frame.index]
+             if isinstance(frame.index, pd.DatetimeIndex) else None)
+    return {"dates": dates,
+            "series": {str(c): [float(v) for v in frame[c].to_numpy()] for c in frame}}
+
+
+def data_from_dict(data: dict[str, Any]) -> pd.DataFrame:
+    frame = pd.DataFrame(data["series"])
+    if data.get("dates") is not None:
+        frame.index = pd.DatetimeIndex(pd.to_datetime(data["dates"]), name="date")
+    return frame

@@ -2,9 +2,11 @@
 
 from __future__ import annotations
 
+from collections.abc import Iterator
 from typing import Annotated
 
 from fastapi import Depends, Request
+from sqlalchemy.orm import Session
 
 from ..config import Settings
 from ..metrics import Metrics
@@ -20,3 +22,19 @@ def get_metrics(request: Request) -> Metrics:
 
 SettingsDep = Annotated[Settings, Depends(get_app_settings)]
 MetricsDep = Annotated[Metrics, Depends(get_metrics)]
+
+
+def get_session(request: Request) -> Iterator[Session]:
+    with request.app.state.sessions() as session:
+        yield session
+
+
+def get_tenant() -> str:
+    """The caller's tenant. One shared tenant until API keys exist (each key will map
+    to its own tenant, and every query already filters on it)."""
+    return PUBLIC_TENANT
+
+
+PUBLIC_TENANT = "public"
+SessionDep = Annotated[Session, Depends(get_session)]
+TenantDep = Annotated[str, Depends(get_tenant)]

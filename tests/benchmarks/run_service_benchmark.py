@@ -57,6 +57,7 @@ from typing import Any
 
 import httpx
 import numpy as np
+from fastapi import FastAPI, Request, Response
 from run_benchmarks import SCENARIOS, simulate_var
 
 HERE = Path(__file__).resolve().parent
@@ -88,10 +89,8 @@ def build_request() -> dict[str, Any]:
 
 
 # ---------------------------------------------------------------------------- floor app
-def floor_app_factory() -> Any:
+def floor_app_factory() -> FastAPI:
     """The floor: read the body, answer with precomputed bytes (uvicorn factory)."""
-    from fastapi import FastAPI, Request, Response
-
     answer = Path(os.environ[FLOOR_BODY_ENV]).read_bytes()
     app = FastAPI(docs_url=None, redoc_url=None, openapi_url=None)
 
@@ -462,14 +461,17 @@ def main(argv: list[str] | None = None) -> int:
         f"- {args.requests} timed requests per target and run after {WARMUP} warm-up "
         f"requests; runs with {' and '.join(map(str, concurrencies))} client thread(s) "
         "(one shared httpx pool); uvicorn workers per server: "
-        f"{args.workers}; FANFOLD_BLAS_THREADS=1",
+        f"{args.workers}; FANFOLD_BLAS_THREADS=1; FANFOLD_DATABASE_URL: a temporary "
+        "SQLite file",
     ]
 
     runs: list[dict[str, Any]] = []
     procs: list[subprocess.Popen] = []
     with tempfile.TemporaryDirectory(prefix="fanfold-bench-") as tmp:
         tmpdir = Path(tmp)
-        env = {**os.environ, "FANFOLD_BLAS_THREADS": "1"}
+        # the service opens its database at start-up: keep it out of the checkout
+        env = {**os.environ, "FANFOLD_BLAS_THREADS": "1",
+               "FANFOLD_DATABASE_URL": f"sqlite:///{tmpdir / 'fanfold.db'}"}
         try:
             ff_port = free_port()
             ff_base = f"http://127.0.0.1:{ff_port}"

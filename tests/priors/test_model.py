@@ -134,3 +134,17 @@ def test_arviz_export_has_named_dimensions(known_var, rng):
     assert dict(post["B"].sizes) == {"chain": 4, "draw": 100, "regressor": 4, "equation": 3}
     rhat = arviz.rhat(data)
     assert float(rhat["B"].max()) < 1.05  # i.i.d. draws split into chains
+
+
+def test_restore_from_stored_parts_forecasts_like_the_original():
+    _, frame = _demo()
+    model = FanfoldVAR(seasonal=True, transforms={"tyres": "log"}, max_lags=3).fit(frame)
+    again = FanfoldVAR.restore(model.get_params(), frame, lags=model.lags_,
+                               hyper=model.hyper_, posterior=model.posterior_)
+    a = model.forecast(4, rng=np.random.default_rng(3), draws=200)
+    b = again.forecast(4, rng=np.random.default_rng(3), draws=200)
+    assert np.array_equal(a.paths, b.paths)
+    pd.testing.assert_frame_equal(model.coefficients(), again.coefficients())
+    with pytest.raises(SpecificationError, match="does not match"):
+        FanfoldVAR.restore(model.get_params(), frame, lags=model.lags_ + 1,
+                           hyper=model.hyper_, posterior=model.posterior_)

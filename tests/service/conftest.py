@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import os
 from pathlib import Path
 
 import pandas as pd
@@ -12,6 +13,14 @@ from service.app import create_app
 from service.config import Settings
 
 DEMO_CSV = Path(__file__).resolve().parents[2] / "examples" / "bike_parts_demand.csv"
+
+
+@pytest.fixture(autouse=True)
+def _isolated_environment(monkeypatch, tmp_path):
+    """No FANFOLD_* variable leaks in, and a default Settings() uses a temporary file."""
+    for key in [k for k in os.environ if k.startswith("FANFOLD_")]:
+        monkeypatch.delenv(key)
+    monkeypatch.setenv("FANFOLD_DATABASE_URL", f"sqlite:///{tmp_path / 'fanfold.db'}")
 
 
 @pytest.fixture

@@ -1,0 +1,158 @@
+"""Stored models: fit and keep, list, read, delete, forecast, fan-chart data."""
+
+from __future__ import annotations
+
+import asyncio
+import hashlib
+import uuid
+from typing import Annotated, Any
+
+from fastapi import APIRouter, Query, Request, Response
+from fastapi.concurrency import run_in_threadpool
+from fastapi.responses import JSONResponse
+from starlette.exceptions import HTTPException
+
+from ...engine import fan_chart, fit_model, forecast_answer, frame_from_spec, model_params
+from ...errors import PROBLEM_JSON
+from ...orm import StoredModel
+from ...schemas import (
+    FanChartPublic,
+    ForecastPublic,
+    ModelCreate,
+    ModelForecastCreate,
+    ModelPublic,
+    ModelsPublic,
+)
+from ...serialization import summary_to_dict
+from ...store import BadCursor, delete_model, get_model, list_models, load_fitted, save_model
+from ..deps import SessionDep, SettingsDep, TenantDep
+
+router = APIRouter(prefix="/v1/models", tags=["models"])
+
+_NOT_FOUND = {404: {"description": "no such model for this caller",
+                    "content": {PROBLEM_JSON: {}}}}
+_INVALID = {422: {"description": "invalid input or a limit exceeded",
+                  "content": {PROBLEM_JSON: {}}}}
+
+
+def _row_or_404(session: Any, tenant: str, model_id: uuid.UUID) -> StoredModel:
+    row = get_model(session=session, tenant=tenant, model_id=str(model_id))
+    if row is None:
+        raise HTTPException(404, f"model {model_id} not found")
+    return row
+
+
+def _public(row: StoredModel) -> dict[str, Any]:
+    model = load_fitted(row)
+    summary = summary_to_dict(model, 0.9)
+    return {
+        "id": row.id, "name": row.name, "status": row.status,
+        "created_at": row.created_at, "updated_at": row.updated_at, "version": row.version,
+        "series": list(model.design_.names), "settings": row.settings,
+        "span": summary["span"], "lags": row.lags,
+        "hyperparameters": summary["hyperparameters"],
+        "log_marginal_likelihood": summary["log_marginal_likelihood"],
+        "coefficients": summary["coefficients"], "sigma": summary["sigma"],
+    }
+
+
+async def _timed(settings: Any, fn: Any, *args: Any) -> Any:
+    return await asyncio.wait_for(run_in_threadpool(fn, *args),
+                                  timeout=settings.request_timeout_s)
+
+
+@router.post("", status_code=201, response_model=ModelPublic, responses=_INVALID,
+             summary="Fit a model to the series and store it")
+async def create_model(body: ModelCreate, request: Request, response: Response,
+                       session: SessionDep, settings: SettingsDep,
+                       tenant: TenantDep) -> dict[str, Any]:
+    def work() -> dict[str, Any]:
+        frame = frame_from_spec(body)
+        params = model_params(body)
+        model = fit_model(body, frame, settings)
+        row = save_model(session=session, tenant=tenant, name=body.name, params=params,
+                         frame=frame, model=model)
+        return _public(row)
+
+    out = await _timed(settings, work)
+    response.headers["Location"] = f"/v1/models/{out['id']}"
+    return out
+
+
+@router.get("", response_model=ModelsPublic, summary="List stored models (oldest first)",
+            responses={400: {"description": "bad cursor", "content": {PROBLEM_JSON: {}}}})
+def list_stored(request: Request, response: Response, session: SessionDep, tenant: TenantDep,
+                limit: Annotated[int, Query(ge=1, le=100)] = 20,
+                cursor: Annotated[str | None, Query(max_length=200)] = None) -> dict[str, Any]:
+    try:
+        rows, nxt = list_models(session=session, tenant=tenant, limit=limit, cursor=cursor)
+    except BadCursor as exc:
+        raise HTTPException(400, str(exc)) from None
+    if nxt:
+        response.headers["Link"] = f'</v1/models?limit={limit}&cursor={nxt}>; rel="next"'
+    data = [{"id": r.id, "name": r.name, "status": r.status, "created_at": r.created_at,
+             "version": r.version, "series": list(r.data["series"]), "lags": r.lags}
+            for r in rows]
+    return {"data": data, "next": nxt}
+
+
+@router.get("/{model_id}", response_model=ModelPublic, responses=_NOT_FOUND,
+            summary="A stored model: settings, data span, hyperparameters, coefficients")
+def read_model(model_id: uuid.UUID, session: SessionDep, tenant: TenantDep) -> dict[str, Any]:
+    return _public(_row_or_404(session, tenant, model_id))
+
+
+@router.delete("/{model_id}", status_code=204, responses=_NOT_FOUND,
+               summary="Delete a stored model")
+def remove_model(model_id: uuid.UUID, session: SessionDep, tenant: TenantDep) -> Response:
+    if not delete_model(session=session, tenant=tenant, model_id=str(model_id)):
+        raise HTTPException(404, f"model {model_id} not found")
+    return Response(status_code=204)
+
+
+@router.post("/{model_id}/forecasts", response_model=ForecastPublic,
+             responses={**_NOT_FOUND, **_INVALID},
+             summary="Forecast from a stored model without refitting")
+async def forecast_stored(model_id: uuid.UUID, body: ModelForecastCreate, session: SessionDep,
+                          settings: SettingsDep, tenant: TenantDep) -> JSONResponse:
+    row = _row_or_404(session, tenant, model_id)
+    payload = await _timed(settings, lambda: forecast_answer(load_fitted(row), body, settings))
+    return JSONResponse(payload)
+
+
+def _bands(text: str) -> list[float]:
+    try:
+        values = sorted({float(b) for b in text.split(",") if b.strip()})
+    except ValueError:
+        values = []
+    if not values or not all(0 < v < 100 for v in values):
+        raise HTTPException(422, f"bands must be percentages between 0 and 100 like "
+                                 f"50,80,95; got {text!r}")
+    return values
+
+
+@router.get("/{model_id}/fan-chart", response_model=FanChartPublic,
+            responses={**_NOT_FOUND, **_INVALID,
+                       304: {"description": "unchanged since the ETag given"}},
+            summary="Nested bands and history for a dashboard (ETag, 304 when unchanged)")
+def fan_chart_data(
+    model_id: uuid.UUID, request: Request, session: SessionDep, settings: SettingsDep,
+    tenant: TenantDep,
+    horizon: Annotated[int, Query(ge=1, le=104)] = 12,
+    bands: Annotated[str, Query(max_length=100, description="coverages in percent")] = "50,80,95",
+    draws: Annotated[int, Query(ge=1, le=10_000)] = 2000,
+    seed: Annotated[int, Query(ge=0, lt=2**63)] = 0,
+    history: Annotated[int, Query(ge=0, le=10_000, description="past periods")] = 24,
+) -> Response:
+    row = _row_or_404(session, tenant, model_id)
+    levels = _bands(bands)
+    key = f"{row.id}|{row.version}|{horizon}|{levels}|{draws}|{seed}|{history}"
+    etag = f'W/"{hashlib.sha256(key.encode()).hexdigest()[:32]}"'
+    headers = {"ETag": etag, "Cache-Control": "private, no-cache"}
+    given = request.headers.get("if-none-match", "")
+    if etag in [t.strip() for t in given.split(",")] or given.strip() == "*":
+        return Response(status_code=304, headers=headers)
+    chart = fan_chart(load_fitted(row), horizon=horizon, bands=levels, draws=draws, seed=seed,
+                      history=history, limits=settings)
+    return JSONResponse({"model_id": row.id, "version": row.version, **chart},
+                        headers=headers)

@@ -1,0 +1,59 @@
+"""Tables. Every row has a ``tenant_id``; queries filter on it (OWASP API1)."""
+
+from __future__ import annotations
+
+import datetime as dt
+from typing import Any
+
+from sqlalchemy import JSON, DateTime, Float, Integer, LargeBinary, String
+from sqlalchemy.orm import Mapped, mapped_column
+from sqlalchemy.types import TypeDecorator
+
+from .db import Base
+
+__all__ = ["StoredModel", "UTCDateTime"]
+
+
+def _now() -> dt.datetime:
+    return dt.datetime.now(dt.UTC)
+
+
+class UTCDateTime(TypeDecorator[dt.datetime]):
+    """Timestamps stored in UTC and always read back timezone-aware (SQLite keeps none)."""
+
+    impl = DateTime(timezone=True)
+    cache_ok = True
+
+    def process_bind_param(self, value: dt.datetime | None, dialect: Any) -> Any:
+        return None if value is None else value.astimezone(dt.UTC)
+
+    def process_result_value(self, value: Any, dialect: Any) -> dt.datetime | None:
+        if value is None:
+            return None
+        return value.replace(tzinfo=dt.UTC) if value.tzinfo is None else value.astimezone(dt.UTC)
+
+
+class StoredModel(Base):
+    """A fitted model: its data, settings, chosen hyperparameters and exact posterior.
+
+    ``posterior`` holds the conjugate posterior's arrays as raw little-endian float64,
+    zlib-compressed; ``posterior_meta`` their shapes and the SHA-256 of the raw bytes
+    (never pickle). ``version`` changes whenever the model changes (ETags).
+    """
+
+    __tablename__ = "models"
+
+    id: Mapped[str] = mapped_column(String(36), primary_key=True)
+    tenant_id: Mapped[str] = mapped_column(String(64), index=True)
+    name: Mapped[str | None] = mapped_column(String(200))
+    status: Mapped[str] = mapped_column(String(16), default="ready")
+    created_at: Mapped[dt.datetime] = mapped_column(UTCDateTime, default=_now)
+    updated_at: Mapped[dt.datetime] = mapped_column(UTCDateTime, default=_now)
+    version: Mapped[int] = mapped_column(Integer, default=1)
+    settings: Mapped[dict] = mapped_column(JSON)
+    data: Mapped[dict] = mapped_column(JSON)
+    lags: Mapped[int] = mapped_column(Integer)
+    hyperparameters: Mapped[dict] = mapped_column(JSON)
+    log_ml: Mapped[float | None] = mapped_column(Float)
+    posterior: Mapped[bytes] = mapped_column(LargeBinary)
+    posterior_meta: Mapped[dict] = mapped_column(JSON)

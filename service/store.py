@@ -1,0 +1,100 @@
+"""Stored models: keyword-only queries, always scoped to a tenant. Routes write no SQL."""
+
+from __future__ import annotations
+
+import base64
+import binascii
+import datetime as dt
+import uuid
+from typing import Any
+
+from sqlalchemy import and_, or_, select
+from sqlalchemy.orm import Session
+
+from priors import FanfoldVAR
+
+from .orm import StoredModel
+from .serialization import (
+    data_from_dict,
+    data_to_dict,
+    hyper_from_dict,
+    hyper_to_dict,
+    posterior_from_blob,
+    posterior_to_blob,
+)
+
+__all__ = ["BadCursor", "delete_model", "get_model", "list_models", "load_fitted",
+           "save_model"]
+
+
+class BadCursor(ValueError):
+    """A pagination cursor this server did not issue."""
+
+
+def save_model(*, session: Session, tenant: str, name: str | None, params: dict[str, Any],
+               frame: Any, model: FanfoldVAR) -> StoredModel:
+    """Store a fitted model in one transaction; visible only once committed."""
+    blob, meta = posterior_to_blob(model.posterior_)
+    row = StoredModel(
+        id=str(uuid.uuid4()), tenant_id=tenant, name=name, status="ready", version=1,
+        settings=params, data=data_to_dict(frame), lags=int(model.lags_),
+        hyperparameters=hyper_to_dict(model.hyper_), log_ml=model.log_ml_,
+        posterior=blob, posterior_meta=meta,
+    )
+    session.add(row)
+    session.commit()
+    return row
+
+
+def get_model(*, session: Session, tenant: str, model_id: str) -> StoredModel | None:
+    return session.scalar(select(StoredModel).where(
+        StoredModel.id == model_id, StoredModel.tenant_id == tenant))
+
+
+def delete_model(*, session: Session, tenant: str, model_id: str) -> bool:
+    row = get_model(session=session, tenant=tenant, model_id=model_id)
+    if row is None:
+        return False
+    session.delete(row)
+    session.commit()
+    return True
+
+
+def _encode(row: StoredModel) -> str:
+    raw = f"{row.created_at.isoformat()}|{row.id}".encode()
+    return base64.urlsafe_b64encode(raw).decode().rstrip("=")
+
+
+def _decode(cursor: str) -> tuple[dt.datetime, str]:
+    try:
+        raw = base64.urlsafe_b64decode(cursor + "=" * (-len(cursor) % 4)).decode()
+        when, _, model_id = raw.partition("|")
+        uuid.UUID(model_id)
+        return dt.datetime.fromisoformat(when), model_id
+    except (ValueError, binascii.Error, UnicodeDecodeError) as exc:
+        raise BadCursor("the cursor is not one this server issued; start from the first "
+                        "page") from exc
+
+
+def list_models(*, session: Session, tenant: str, limit: int,
+                cursor: str | None) -> tuple[list[StoredModel], str | None]:
+    """A page of the tenant's models, oldest first, and the next page's cursor."""
+    query = select(StoredModel).where(StoredModel.tenant_id == tenant)
+    if cursor:
+        when, model_id = _decode(cursor)
+        query = query.where(or_(StoredModel.created_at > when,
+                                and_(StoredModel.created_at == when, StoredModel.id > model_id)))
+    rows = list(session.scalars(
+        query.order_by(StoredModel.created_at, StoredModel.id).limit(limit + 1)))
+    more = len(rows) > limit
+    rows = rows[:limit]
+    return rows, (_encode(rows[-1]) if more and rows else None)
+
+
+def load_fitted(row: StoredModel) -> FanfoldVAR:
+    """The stored model, ready to forecast: no tuning, no refit."""
+    return FanfoldVAR.restore(
+        row.settings, data_from_dict(row.data), lags=row.lags,
+        hyper=hyper_from_dict(row.hyperparameters),
+        posterior=posterior_from_blob(row.posterior, row.posterior_meta),
+    )

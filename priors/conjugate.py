@@ -33,6 +33,7 @@ __all__ = [
     "log_marginal_likelihood",
     "log_marginal_likelihood_fast",
     "posterior",
+    "update_posterior",
 ]
 
 
@@ -243,3 +244,41 @@ def log_marginal_likelihood_fast(moments: Moments, prior: NIWPrior) -> float:
     if Yd.shape[0]:
         lml -= _dummy_log_ml(prior)
     return lml
+
+
+def update_posterior(post: NIWPosterior, X: FloatArray, Y: FloatArray) -> NIWPosterior:
+    """The posterior after T_new more rows (X, Y), exactly, without refitting.
+
+    The old posterior acts as the prior: P_new = P + X'X, B_new = P_new^-1 (P B + X'Y),
+    S_new = S + (Y - X B_new)'(Y - X B_new) + (B_new - B)' P (B_new - B),
+    nu_new = nu + T_new (recursive least squares; Kadiyala & Karlsson 1997). One QR of
+    the stacked rows [R, R B; X, Y] gives R_new and the residual cross-products. The log
+    marginal likelihood grows by log p(Y_new | Y_old), the same closed form with the old
+    posterior as prior (None stays None for the improper flat prior).
+    """
+    T, n = Y.shape
+    k = post.k
+    if T == 0:
+        return post
+    stacked = np.vstack([np.hstack([post.R, post.R @ post.B]), np.hstack([X, Y])])
+    Rab = np.linalg.qr(stacked, mode="r")
+    sign = np.where(np.diag(Rab)[:k] < 0, -1.0, 1.0)[:, None]
+    R, Qtb, R22 = Rab[:k, :k] * sign, Rab[:k, k:] * sign, Rab[k:, k:]
+    B = _solve_upper(R, Qtb)
+    S = post.S + R22.T @ R22
+    S = 0.5 * (S + S.T)
+    df = post.df + T
+    log_ml = None
+    if post.log_ml is not None:
+        logdet_old = 2.0 * float(np.sum(np.log(np.diag(post.R))))
+        logdet_new = 2.0 * float(np.sum(np.log(np.diag(R))))
+        log_ml = float(
+            post.log_ml
+            - 0.5 * n * T * np.log(np.pi)
+            + multigammaln(0.5 * df, n)
+            - multigammaln(0.5 * post.df, n)
+            + 0.5 * n * (logdet_old - logdet_new)
+            + 0.5 * post.df * _chol_logdet(post.S, "posterior scale S")
+            - 0.5 * df * _chol_logdet(S, "updated posterior scale S")
+        )
+    return NIWPosterior(B, R, S, df, log_ml)

@@ -15,7 +15,7 @@ import pandas as pd
 from scipy import stats
 
 from ._types import FloatArray
-from .conjugate import NIWPosterior, flat_posterior, posterior
+from .conjugate import NIWPosterior, flat_posterior, posterior, update_posterior
 from .data import (
     Design,
     Deterministics,
@@ -24,7 +24,13 @@ from .data import (
     future_exogenous_rows,
     load_series,
 )
-from .errors import NotFittedError, SpecificationError, TooFewObservationsError
+from .errors import (
+    DataError,
+    ExogenousError,
+    NotFittedError,
+    SpecificationError,
+    TooFewObservationsError,
+)
 from .forecast import Forecast
 from .predictive import companion_spectral_radius, simulate_paths, simulate_paths_from_draws
 from .sampling import Draws, check_size, sample_posterior
@@ -306,6 +312,68 @@ class FanfoldVAR:
         model.posterior_ = posterior
         model.log_ml_ = posterior.log_ml
         return model
+
+    def append(
+        self,
+        new_data: pd.DataFrame | FloatArray,
+        *,
+        new_exog: pd.DataFrame | FloatArray | None = None,
+    ) -> FanfoldVAR:
+        """A new model with ``new_data`` appended, its posterior updated exactly.
+
+        Lags, hyperparameters and the prior stay as fitted (no tuning again); the
+        posterior equals a full refit on all the data under that same prior. The new
+        rows must continue the data: same series, following dates.
+        """
+        self._check_fitted()
+        old = self.series_
+        if isinstance(new_data, pd.DataFrame) and isinstance(old.calendar.index, pd.DatetimeIndex):
+            combined: pd.DataFrame | FloatArray = pd.concat(
+                [pd.DataFrame(old.levels, index=self._level_index(), columns=old.names),
+                 new_data])
+        else:
+            combined = np.vstack([old.levels, np.asarray(new_data, dtype=np.float64)])
+        exog = None
+        if old.exog_names:
+            if new_exog is None:
+                raise ExogenousError("the model uses exogenous regressors; give their values "
+                                     "for the new periods")
+            # rows lost to differencing never enter the design: any finite filler works
+            lost = old.levels.shape[0] - old.nobs
+            filler = np.zeros((lost, len(old.exog_names)))
+            new_x = np.asarray(new_exog, dtype=np.float64).reshape(-1, len(old.exog_names))
+            exog = pd.DataFrame(np.vstack([filler, old.exog, new_x]),
+                                columns=list(old.exog_names))
+            if isinstance(combined, pd.DataFrame):
+                exog.index = combined.index
+        series = load_series(combined, transforms=self.transforms, exog=exog,
+                             names=old.names, period=old.calendar.period)
+        design = build_design(series, self.lags_, self.deterministics_)
+        added = series.nobs - old.nobs
+        if added < 1:
+            raise DataError("no new observations to append")
+        post = update_posterior(self.posterior_, design.X[-added:], design.Y[-added:])
+        model = type(self)(**self.get_params())  # type: ignore[arg-type]
+        model.series_ = series
+        model.deterministics_ = self.deterministics_
+        model.prior_mean_ = self.prior_mean_
+        model.design_ = design
+        model.lags_ = self.lags_
+        model.lag_search_ = self.lag_search_
+        model.hyper_ = self.hyper_
+        model.prior_ = self.prior_
+        model.posterior_ = post
+        model.log_ml_ = post.log_ml
+        return model
+
+    def _level_index(self) -> pd.DatetimeIndex:
+        """Dates of the data as given (before any differencing dropped a row)."""
+        index = self.series_.calendar.index
+        assert index is not None
+        lost = self.series_.levels.shape[0] - self.series_.nobs
+        if not lost:
+            return index
+        return pd.date_range(end=index[0], periods=lost + 1, freq=index.freq)[:-1].append(index)
 
     def _check_fitted(self) -> None:
         if not hasattr(self, "posterior_"):

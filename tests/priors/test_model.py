@@ -148,3 +148,47 @@ def test_restore_from_stored_parts_forecasts_like_the_original():
     with pytest.raises(SpecificationError, match="does not match"):
         FanfoldVAR.restore(model.get_params(), frame, lags=model.lags_ + 1,
                            hyper=model.hyper_, posterior=model.posterior_)
+
+
+@pytest.mark.parametrize("settings", [
+    {"lags": 2, "seasonal": True},
+    {"lags": 1, "sum_coef": 0.5, "initial": 2.0, "transforms": {"chains": "logdiff"}},
+    {"lags": 2, "prior": "flat"},
+])
+def test_append_updates_the_posterior_exactly_like_a_refit(settings):
+    # Recursive least squares (Kadiyala & Karlsson 1997): adding rows to the NIW posterior
+    # equals the posterior of all rows under the same prior, log marginal likelihood too.
+    from priors.conjugate import flat_posterior, posterior
+
+    _, frame = _demo()
+    model = FanfoldVAR(**settings).fit(frame.iloc[:100])
+    grown = model.append(frame.iloc[100:])
+    design = grown.design_
+    if model.prior_ is None:
+        full = flat_posterior(design)
+    else:
+        full = posterior(design, model.prior_)  # the same prior, all the data
+    np.testing.assert_allclose(grown.posterior_.B, full.B, rtol=1e-9, atol=1e-9)
+    P_full = full.R.T @ full.R
+    np.testing.assert_allclose(grown.posterior_.R.T @ grown.posterior_.R, P_full, rtol=1e-9,
+                               atol=1e-12 * np.abs(P_full).max())
+    np.testing.assert_allclose(grown.posterior_.S, full.S, rtol=1e-9)
+    assert grown.posterior_.df == full.df
+    if full.log_ml is None:
+        assert grown.log_ml_ is None
+    else:
+        assert grown.log_ml_ == pytest.approx(full.log_ml, rel=1e-10)
+    assert grown.series_.nobs == model.series_.nobs + 20
+    fc = grown.forecast(2, rng=np.random.default_rng(0), draws=50)
+    assert str(fc.dates[0].date()) == "2026-01-01"
+
+
+def test_append_refuses_rows_that_do_not_continue_the_data():
+    from priors.errors import TimeIndexError
+
+    _, frame = _demo()
+    model = FanfoldVAR(lags=1).fit(frame.iloc[:100])
+    with pytest.raises(TimeIndexError):
+        model.append(frame.iloc[101:])  # a gap of one month
+    with pytest.raises(TimeIndexError):
+        model.append(frame.iloc[90:100])  # dates already there

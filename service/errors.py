@@ -15,6 +15,7 @@ from typing import Any
 from fastapi import FastAPI, Request
 from fastapi.exceptions import RequestValidationError
 from fastapi.responses import JSONResponse
+from sqlalchemy.orm.exc import StaleDataError
 from starlette.exceptions import HTTPException as StarletteHTTPException
 
 from priors.errors import NotFittedError, PriorsError
@@ -92,6 +93,11 @@ async def _engine(request: Request, exc: PriorsError) -> JSONResponse:
                    type_=f"urn:fanfold:problem:{name}")
 
 
+async def _stale(request: Request, exc: StaleDataError) -> JSONResponse:
+    return problem(409, "the model changed while this request was updating it; fetch it "
+                        "again and retry", request=request)
+
+
 def register_error_handlers(app: FastAPI) -> None:
     """Install the handlers: validation, HTTP, limits, engine errors.
 
@@ -101,3 +107,4 @@ def register_error_handlers(app: FastAPI) -> None:
     app.add_exception_handler(StarletteHTTPException, _http)  # type: ignore[arg-type]
     app.add_exception_handler(LimitExceeded, _limit)  # type: ignore[arg-type]
     app.add_exception_handler(PriorsError, _engine)  # type: ignore[arg-type]
+    app.add_exception_handler(StaleDataError, _stale)  # type: ignore[arg-type]

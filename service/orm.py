@@ -57,3 +57,7 @@ class StoredModel(Base):
     log_ml: Mapped[float | None] = mapped_column(Float)
     posterior: Mapped[bytes] = mapped_column(LargeBinary)
     posterior_meta: Mapped[dict] = mapped_column(JSON)
+
+    # optimistic concurrency: every UPDATE checks and bumps the version, so two updates
+    # racing on one model cannot both win (the loser gets StaleDataError -> 409)
+    __mapper_args__ = {"version_id_col": version}

@@ -24,6 +24,7 @@ __all__ = [
     "ModelPublic",
     "ModelSettings",
     "ModelsPublic",
+    "ObservationsCreate",
     "OutputSettings",
     "SeriesData",
     "SeriesForecast",
@@ -142,6 +143,14 @@ class ModelCreate(SeriesData, ModelSettings):
     }]})
 
     name: str | None = Field(None, max_length=200, description="a label for people")
+
+
+class ObservationsCreate(SeriesData):
+    """New periods for a stored model: every series, continuing right after its data."""
+
+    model_config = ConfigDict(extra="forbid", json_schema_extra={"examples": [{
+        "series": {"tyres": [1190, 1240], "inner_tubes": [2010, 2105]},
+        "start": "2026-01-01", "frequency": "MS"}]})
 
 
 class ModelForecastCreate(OutputSettings):

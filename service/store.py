@@ -24,7 +24,7 @@ from .serialization import (
 )
 
 __all__ = ["BadCursor", "delete_model", "get_model", "list_models", "load_fitted",
-           "save_model"]
+           "replace_fitted", "save_model"]
 
 
 class BadCursor(ValueError):
@@ -36,7 +36,7 @@ def save_model(*, session: Session, tenant: str, name: str | None, params: dict[
     """Store a fitted model in one transaction; visible only once committed."""
     blob, meta = posterior_to_blob(model.posterior_)
     row = StoredModel(
-        id=str(uuid.uuid4()), tenant_id=tenant, name=name, status="ready", version=1,
+        id=str(uuid.uuid4()), tenant_id=tenant, name=name, status="ready",
         settings=params, data=data_to_dict(frame), lags=int(model.lags_),
         hyperparameters=hyper_to_dict(model.hyper_), log_ml=model.log_ml_,
         posterior=blob, posterior_meta=meta,
@@ -98,3 +98,16 @@ def load_fitted(row: StoredModel) -> FanfoldVAR:
         hyper=hyper_from_dict(row.hyperparameters),
         posterior=posterior_from_blob(row.posterior, row.posterior_meta),
     )
+
+
+def replace_fitted(*, session: Session, row: StoredModel, frame: Any,
+                   model: FanfoldVAR) -> StoredModel:
+    """Store an updated model in place: new data and posterior; the version goes up by one
+    (checked, see :class:`service.orm.StoredModel`)."""
+    blob, meta = posterior_to_blob(model.posterior_)
+    row.data = data_to_dict(frame)
+    row.posterior, row.posterior_meta = blob, meta
+    row.log_ml = model.log_ml_
+    row.updated_at = dt.datetime.now(dt.UTC)
+    session.commit()
+    return row

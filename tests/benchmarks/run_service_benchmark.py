@@ -52,6 +52,7 @@ import tempfile
 import threading
 import time
 from collections.abc import Callable
+from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
 
@@ -265,31 +266,81 @@ def run_load(url: str, body: bytes, total: int, concurrency: int,
             "hung": sum(t.is_alive() for t in threads)}
 
 
-def measure_target(name: str, base: str, pid: int, body: bytes, total: int,
-                   concurrency: int, expected: bytes | None, metrics: bool) -> dict[str, Any]:
-    url = f"{base}{PATH}"
-    warm = run_load(url, body, WARMUP, concurrency, expected)
-    if warm["errors"]:
-        raise RuntimeError(f"{name}: warm-up failed: {warm['errors'][0]}")
-    before = scrape_metrics(base) if metrics else {}
-    cpu0 = server_cpu_seconds(pid)
-    res = run_load(url, body, total, concurrency, expected)
-    cpu1 = server_cpu_seconds(pid)
-    after = scrape_metrics(base) if metrics else {}
-    lat = np.asarray(res["latencies"]) * 1e3
-    p50, p95, p99 = (np.percentile(lat, [50, 95, 99]) if lat.size else (np.nan,) * 3)
-    done = lat.size
-    out = {"target": name, "concurrency": concurrency, "requests": total, "ok": done,
-           "errors": len(res["errors"]), "first_error": (res["errors"] or [""])[0],
-           "hung": res["hung"], "p50": float(p50), "p95": float(p95), "p99": float(p99),
-           "mean": float(lat.mean()) if done else float("nan"),
-           "rps": done / res["wall"] if res["wall"] > 0 else float("nan"),
-           "cpu_ms": (cpu1 - cpu0) * 1e3 / done if done and None not in (cpu0, cpu1)
-           else None}
-    for kind in ("http", "engine"):
-        count = after.get(f"{kind}_count", 0.0) - before.get(f"{kind}_count", 0.0)
-        if count > 0:
-            out[f"server_{kind}_ms"] = (after[f"{kind}_sum"] - before[f"{kind}_sum"]) / count * 1e3
+@dataclass
+class Target:
+    name: str
+    base: str
+    pid: int
+    expected: bytes | None
+    metrics: bool  # scrape Fanfold's /metrics around the timed chunks
+
+
+@dataclass
+class _Totals:
+    latencies: list[float] = field(default_factory=list)
+    errors: list[str] = field(default_factory=list)
+    wall: float = 0.0
+    cpu: float | None = 0.0
+    hung: int = 0
+    sums: dict[str, float] = field(default_factory=dict)
+
+
+def _chunk(target: Target, body: bytes, size: int, concurrency: int, acc: _Totals) -> None:
+    before = scrape_metrics(target.base) if target.metrics else {}
+    cpu0 = server_cpu_seconds(target.pid)
+    res = run_load(f"{target.base}{PATH}", body, size, concurrency, target.expected)
+    cpu1 = server_cpu_seconds(target.pid)
+    after = scrape_metrics(target.base) if target.metrics else {}
+    acc.latencies += res["latencies"]
+    acc.errors += res["errors"]
+    acc.wall += res["wall"]
+    acc.hung += res["hung"]
+    if acc.cpu is not None and cpu0 is not None and cpu1 is not None:
+        acc.cpu += cpu1 - cpu0
+    else:
+        acc.cpu = None
+    for key, value in after.items():
+        acc.sums[key] = acc.sums.get(key, 0.0) + value - before.get(key, 0.0)
+
+
+def measure_run(targets: list[Target], body: bytes, total: int, concurrency: int,
+                rounds: int) -> list[dict[str, Any]]:
+    """Warm up every target, then ``total`` requests each in ``rounds`` interleaved chunks.
+
+    The order alternates (A B, B A, ...) so that slow drifts of a shared machine's load
+    fall on both targets alike.
+    """
+    for t in targets:
+        warm = run_load(f"{t.base}{PATH}", body, WARMUP, concurrency, t.expected)
+        if warm["errors"]:
+            raise RuntimeError(f"{t.name}: warm-up failed: {warm['errors'][0]}")
+    sizes = [total // rounds + (i < total % rounds) for i in range(rounds)]
+    acc = {t.name: _Totals() for t in targets}
+    for i, size in enumerate(s for s in sizes if s):
+        for t in targets if i % 2 == 0 else targets[::-1]:
+            _chunk(t, body, size, concurrency, acc[t.name])
+            if len(acc[t.name].errors) >= MAX_ERRORS:
+                raise RuntimeError(f"{t.name}: {len(acc[t.name].errors)} failed requests, "
+                                   f"first: {acc[t.name].errors[0]}")
+    out = []
+    for t in targets:
+        a = acc[t.name]
+        lat = np.asarray(a.latencies) * 1e3
+        done = lat.size
+        p50, p95, p99 = np.percentile(lat, [50, 95, 99]) if done else (np.nan,) * 3
+        r: dict[str, Any] = {
+            "target": t.name, "concurrency": concurrency, "requests": total, "ok": done,
+            "errors": len(a.errors), "first_error": (a.errors or [""])[0], "hung": a.hung,
+            "p50": float(p50), "p95": float(p95), "p99": float(p99),
+            "mean": float(lat.mean()) if done else float("nan"),
+            "rps": done / a.wall if a.wall > 0 else float("nan"),
+            "cpu_ms": a.cpu * 1e3 / done if done and a.cpu is not None else None,
+            "load": os.getloadavg()[0]}
+        for kind in ("http", "engine"):
+            count = a.sums.get(f"{kind}_count", 0.0)
+            if count > 0:
+                r[f"server_{kind}_ms"] = a.sums[f"{kind}_sum"] / count * 1e3
+        out.append(r)
     return out
 
 
@@ -381,15 +432,16 @@ def build_report(header: list[str], settings: list[str], runs: list[dict[str, An
            "the same bytes)", ""]
     out += ["## Latency (client side, ms)", "",
             "| run | target | clients | requests ok / errors | p50 | p95 | p99 | mean | "
-            "req/s | server CPU ms/req | in-app ms (mean) | engine ms in server (mean) |",
-            "|---|---|---|---|---|---|---|---|---|---|---|---|"]
+            "req/s | server CPU ms/req | in-app ms (mean) | engine ms in server (mean) | "
+            "load avg |",
+            "|---|---|---|---|---|---|---|---|---|---|---|---|---|"]
     for r in runs:
         label = "sequential" if r["concurrency"] == 1 else "concurrent"
         out.append(
             f"| {label} | {r['target']} | {r['concurrency']} | {r['ok']} / {r['errors']} | "
             f"{_ms(r['p50'])} | {_ms(r['p95'])} | {_ms(r['p99'])} | {_ms(r['mean'])} | "
             f"{_ms(r['rps'], 1)} | {_ms(r['cpu_ms'])} | {_ms(r.get('server_http_ms'))} | "
-            f"{_ms(r.get('server_engine_ms'))} |")
+            f"{_ms(r.get('server_engine_ms'))} | {r['load']:.2f} |")
     out += ["", f"## Target: Fanfold p50 < {FLOOR_FACTOR:g} x floor p50 + engine median", "",
             "| run | clients | floor p50 | engine median | bound | Fanfold p50 | "
             "Fanfold p50 / bound | result |",
@@ -424,6 +476,9 @@ def build_report(header: list[str], settings: list[str], runs: list[dict[str, An
             "- 'in-app ms' and 'engine ms in server' are means from Fanfold's /metrics "
             "histograms over the timed run: the request inside the ASGI app (after uvicorn "
             "parsed it) and the engine call including the hop to the thread pool.",
+            "- 'load avg' is the 1-minute load average after the run (this benchmark's own "
+            "client and server count too; on a 2-core machine values well above 2 mean "
+            "other work was competing).",
             "- The client threads run in this process on the same cores as the server; the "
             "same client runs against both targets, so its cost is in the floor too.",
             "- The concurrent p50 contains queueing: with one worker process the requests "
@@ -438,13 +493,15 @@ def main(argv: list[str] | None = None) -> int:
     ap.add_argument("--requests", type=int, default=400,
                     help="timed requests per target and run (after 20 warm-up requests)")
     ap.add_argument("--concurrency", type=int, default=8, help="concurrent client threads")
+    ap.add_argument("--rounds", type=int, default=4,
+                    help="interleaved chunks per target and run (A B, B A, ...)")
     ap.add_argument("--workers", type=int, default=1,
                     help="uvicorn worker processes of both servers (fanfold serve default: 1)")
     ap.add_argument("--out", default=str(HERE / "results" / "service.md"))
     ap.add_argument("--floor-server", type=int, metavar="PORT", help=argparse.SUPPRESS)
     args = ap.parse_args(argv)
-    if args.requests < 1 or args.concurrency < 1 or args.workers < 1:
-        ap.error("--requests, --concurrency and --workers must be >= 1")
+    if min(args.requests, args.concurrency, args.workers, args.rounds) < 1:
+        ap.error("--requests, --concurrency, --workers and --rounds must be >= 1")
     if args.floor_server:
         return serve_floor(args.floor_server, args.workers)
 
@@ -459,8 +516,9 @@ def main(argv: list[str] | None = None) -> int:
         f"- scenario {SCENARIO} (n, p, T = {SCENARIOS[SCENARIO]}), request settings "
         f"{json.dumps(REQUEST_SETTINGS)}",
         f"- {args.requests} timed requests per target and run after {WARMUP} warm-up "
-        f"requests; runs with {' and '.join(map(str, concurrencies))} client thread(s) "
-        "(one shared httpx pool); uvicorn workers per server: "
+        f"requests, in {args.rounds} rounds alternating the targets; runs with "
+        f"{' and '.join(map(str, concurrencies))} client thread(s) (one shared httpx pool); "
+        "uvicorn workers per server: "
         f"{args.workers}; FANFOLD_BLAS_THREADS=1; FANFOLD_DATABASE_URL: a temporary "
         "SQLite file",
     ]
@@ -493,14 +551,12 @@ def main(argv: list[str] | None = None) -> int:
                                "--floor-server", str(fl_port), "--workers", str(args.workers)],
                               fl_port, tmpdir / "floor.log",
                               {**env, FLOOR_BODY_ENV: str(tmpdir / "answer.json")}, procs)
+            targets = [Target("fanfold", ff_base, ff.pid, answer, True),
+                       Target("floor", fl_base, fl.pid, answer, False)]
             for conc in concurrencies:
-                for name, base, proc, expected, metrics in (
-                        ("fanfold", ff_base, ff, answer, True),
-                        ("floor", fl_base, fl, answer, False)):
-                    print(f"{name}: {args.requests} requests, {conc} client(s) ...",
-                          file=sys.stderr, flush=True)
-                    runs.append(measure_target(name, base, proc.pid, body, args.requests,
-                                               conc, expected, metrics))
+                print(f"{args.requests} requests per target in {args.rounds} interleaved "
+                      f"rounds, {conc} client(s) ...", file=sys.stderr, flush=True)
+                runs += measure_run(targets, body, args.requests, conc, args.rounds)
         finally:
             for proc in procs:
                 code = stop_server(proc)

@@ -7,6 +7,7 @@ import hashlib
 import uuid
 from typing import Annotated, Any
 
+import pandas as pd
 from fastapi import APIRouter, Query, Request, Response
 from fastapi.concurrency import run_in_threadpool
 from fastapi.responses import JSONResponse
@@ -22,9 +23,18 @@ from ...schemas import (
     ModelForecastCreate,
     ModelPublic,
     ModelsPublic,
+    ObservationsCreate,
 )
-from ...serialization import summary_to_dict
-from ...store import BadCursor, delete_model, get_model, list_models, load_fitted, save_model
+from ...serialization import data_from_dict, summary_to_dict
+from ...store import (
+    BadCursor,
+    delete_model,
+    get_model,
+    list_models,
+    load_fitted,
+    replace_fitted,
+    save_model,
+)
 from ..deps import SessionDep, SettingsDep, TenantDep
 
 router = APIRouter(prefix="/v1/models", tags=["models"])
@@ -156,3 +166,25 @@ def fan_chart_data(
                       history=history, limits=settings)
     return JSONResponse({"model_id": row.id, "version": row.version, **chart},
                         headers=headers)
+
+
+@router.post("/{model_id}/observations", response_model=ModelPublic,
+             responses={**_NOT_FOUND, **_INVALID},
+             summary="Append new periods; the posterior is updated exactly, no refit")
+async def append_observations(model_id: uuid.UUID, body: ObservationsCreate,
+                              session: SessionDep, settings: SettingsDep,
+                              tenant: TenantDep) -> dict[str, Any]:
+    row = _row_or_404(session, tenant, model_id)
+
+    def work() -> dict[str, Any]:
+        model = load_fitted(row)
+        new = frame_from_spec(body)
+        old = data_from_dict(row.data)
+        if list(new.columns) != list(old.columns):
+            raise HTTPException(422, "send every series of the model, in its order: "
+                                     + ", ".join(map(str, old.columns)))
+        grown = model.append(new)
+        replace_fitted(session=session, row=row, frame=pd.concat([old, new]), model=grown)
+        return _public(row)
+
+    return await _timed(settings, work)

@@ -4,12 +4,16 @@ from __future__ import annotations
 
 from collections.abc import AsyncIterator
 from contextlib import asynccontextmanager
+from typing import Any
 
-from fastapi import FastAPI
+from fastapi import Depends, FastAPI
 from fastapi.middleware.cors import CORSMiddleware
+from fastapi.openapi.docs import get_swagger_ui_html
 from fastapi.openapi.utils import get_openapi
+from fastapi.responses import HTMLResponse, JSONResponse
 
 from .api.routes import forecasts, health, models
+from .auth import authenticate
 from .config import Settings, get_settings
 from .db import make_engine, make_session_factory
 from .errors import register_error_handlers
@@ -40,9 +44,9 @@ def create_app(settings: Settings | None = None) -> FastAPI:
         version="0.1.0",
         summary="Probabilistic forecasts of related demand series (Bayesian VAR)",
         lifespan=lifespan,
-        docs_url="/docs" if settings.docs_enabled else None,
+        docs_url=None,  # added below, behind the API key when keys are configured
         redoc_url=None,
-        openapi_url="/openapi.json" if settings.docs_enabled else None,
+        openapi_url=None,
     )
     app.state.settings = settings
     app.state.metrics = Metrics()
@@ -50,9 +54,14 @@ def create_app(settings: Settings | None = None) -> FastAPI:
     app.state.engine = make_engine(settings.database_url)
     app.state.sessions = make_session_factory(app.state.engine)
     register_error_handlers(app)
-    app.include_router(health.router)
-    app.include_router(forecasts.router)
-    app.include_router(models.router)
+    app.state.api_keys = {k.id: k for k in settings.api_keys}
+    app.include_router(health.router)  # probes stay open
+    protected = [Depends(authenticate)]
+    app.include_router(health.metrics_router, dependencies=protected)
+    app.include_router(forecasts.router, dependencies=protected)
+    app.include_router(models.router, dependencies=protected)
+    if settings.docs_enabled:
+        _add_docs(app, protected)
     # added last = outermost: ids first, then limits, then metrics around the routes
     app.add_middleware(MetricsMiddleware, metrics=app.state.metrics)
     app.add_middleware(BodyLimitMiddleware, max_bytes=settings.max_body_bytes)
@@ -65,6 +74,16 @@ def create_app(settings: Settings | None = None) -> FastAPI:
     app.add_middleware(RequestIdMiddleware)
     app.openapi = lambda: _openapi(app)  # type: ignore[method-assign]
     return app
+
+
+def _add_docs(app: FastAPI, dependencies: list[Any]) -> None:
+    @app.get("/openapi.json", include_in_schema=False, dependencies=dependencies)
+    def openapi_document() -> JSONResponse:
+        return JSONResponse(app.openapi())
+
+    @app.get("/docs", include_in_schema=False, dependencies=dependencies)
+    def docs() -> HTMLResponse:
+        return get_swagger_ui_html(openapi_url="/openapi.json", title="Fanfold API")
 
 
 def _openapi(app: FastAPI) -> dict[str, object]:

@@ -254,6 +254,17 @@ def build_parser() -> argparse.ArgumentParser:
     serve.add_argument("--workers", type=_positive_int, default=1,
                        help="worker processes")
     serve.set_defaults(run=_serve)
+
+    keys = sub.add_parser("keys", help="manage API keys", formatter_class=_HelpFormatter,
+                          description="Create API keys. The server stores only their hashes.")
+    keys_sub = keys.add_subparsers(dest="keys_command", metavar="ACTION", required=True)
+    new = keys_sub.add_parser("new", help="create a key for a tenant",
+                              formatter_class=_HelpFormatter,
+                              description="Print a new random key (shown once) and the "
+                                          "FANFOLD_API_KEYS entry that holds its hash.")
+    new.add_argument("--id", required=True, dest="key_id", help="key id (letters, digits, _-)")
+    new.add_argument("--tenant", required=True, help="tenant the key belongs to")
+    new.set_defaults(run=_new_key)
     return parser
 
 
@@ -310,18 +321,39 @@ def _serve(args: argparse.Namespace) -> str:
 
     import uvicorn
 
+    from .config import get_settings
+
     try:
         loopback = args.host == "localhost" or ipaddress.ip_address(args.host).is_loopback
     except ValueError:
         loopback = False
-    if not loopback:
-        raise UsageError(f"refusing to bind {args.host}: API keys are not configured yet, so "
-                         "the service listens on loopback only (e.g. --host 127.0.0.1)")
-    print(f"fanfold: serving on http://{args.host}:{args.port} (loopback only: no API keys "
-          f"configured); docs at /docs", file=sys.stderr, flush=True)
+    keys = get_settings().api_keys
+    if not loopback and not keys:
+        raise UsageError(f"refusing to bind {args.host}: no API keys are configured "
+                         "(FANFOLD_API_KEYS), so the service listens on loopback only "
+                         "(e.g. --host 127.0.0.1); create keys with 'fanfold keys new'")
+    access = (f"{len(keys)} API key(s) configured" if keys
+              else "loopback only: no API keys configured")
+    print(f"fanfold: serving on http://{args.host}:{args.port} ({access}); docs at /docs",
+          file=sys.stderr, flush=True)
     uvicorn.run("service.app:create_app", factory=True, host=args.host, port=args.port,
                 workers=args.workers, log_level="warning", timeout_graceful_shutdown=20)
     return ""
+
+
+def _new_key(args: argparse.Namespace) -> str:
+    from pydantic import ValidationError
+
+    from .auth import new_key
+
+    try:
+        key, entry = new_key(args.key_id, args.tenant)
+    except ValidationError as exc:
+        raise UsageError(f"invalid key id or tenant: {_one_line(exc.errors()[0]['msg'])}"
+                         ) from None
+    return (f"key (give it to the client, it is not stored): {key}\n"
+            f"settings entry (add to the JSON list in FANFOLD_API_KEYS): "
+            f"{entry.model_dump_json()}")
 
 
 def _run(args: argparse.Namespace) -> str:

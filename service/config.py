@@ -11,6 +11,8 @@ from functools import lru_cache
 from pydantic import Field
 from pydantic_settings import BaseSettings, SettingsConfigDict
 
+from .auth import ApiKey
+
 __all__ = ["Settings", "get_settings"]
 
 
@@ -35,6 +37,9 @@ class Settings(BaseSettings):
     max_path_values: int = Field(50_000_000, ge=1)  # draws * horizon * series
     request_timeout_s: float = Field(60.0, gt=0)
 
+    # [{"id": "ops", "sha256": "<hex of the whole key>", "tenant": "acme"}, ...]; create
+    # entries with `fanfold keys new --id ops --tenant acme`
+    api_keys: list[ApiKey] = []
     docs_enabled: bool = True
     cors_origins: list[str] = []
     blas_threads: int = Field(1, ge=0)  # 0 = the libraries' default

@@ -29,12 +29,10 @@ def get_session(request: Request) -> Iterator[Session]:
         yield session
 
 
-def get_tenant() -> str:
-    """The caller's tenant. One shared tenant until API keys exist (each key will map
-    to its own tenant, and every query already filters on it)."""
-    return PUBLIC_TENANT
+def get_tenant(request: Request) -> str:
+    """The caller's tenant, set by :func:`service.auth.authenticate`."""
+    return request.state.tenant
 
 
-PUBLIC_TENANT = "public"
 SessionDep = Annotated[Session, Depends(get_session)]
 TenantDep = Annotated[str, Depends(get_tenant)]

@@ -10,7 +10,7 @@ import pytest
 from fastapi.testclient import TestClient
 
 from service.app import create_app
-from service.config import Settings
+from service.config import Settings, get_settings
 
 DEMO_CSV = Path(__file__).resolve().parents[2] / "examples" / "bike_parts_demand.csv"
 
@@ -21,6 +21,9 @@ def _isolated_environment(monkeypatch, tmp_path):
     for key in [k for k in os.environ if k.startswith("FANFOLD_")]:
         monkeypatch.delenv(key)
     monkeypatch.setenv("FANFOLD_DATABASE_URL", f"sqlite:///{tmp_path / 'fanfold.db'}")
+    get_settings.cache_clear()
+    yield
+    get_settings.cache_clear()
 
 
 @pytest.fixture

@@ -24,6 +24,9 @@ def readyz(request: Request) -> Response:
     return Response('{"status":"ready"}', media_type="application/json")
 
 
-@router.get("/metrics", summary="Prometheus metrics", response_class=Response)
+metrics_router = APIRouter(tags=["operations"])
+
+
+@metrics_router.get("/metrics", summary="Prometheus metrics", response_class=Response)
 def metrics(m: MetricsDep) -> Response:
     return Response(generate_latest(m.registry), media_type=CONTENT_TYPE_LATEST)

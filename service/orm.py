@@ -11,7 +11,7 @@ from sqlalchemy.types import TypeDecorator
 
 from .db import Base
 
-__all__ = ["StoredModel", "UTCDateTime"]
+__all__ = ["IdempotencyRecord", "StoredModel", "UTCDateTime"]
 
 
 def _now() -> dt.datetime:
@@ -61,3 +61,20 @@ class StoredModel(Base):
     # optimistic concurrency: every UPDATE checks and bumps the version, so two updates
     # racing on one model cannot both win (the loser gets StaleDataError -> 409)
     __mapper_args__ = {"version_id_col": version}
+
+
+class IdempotencyRecord(Base):
+    """The answer to a POST made with an ``Idempotency-Key``, kept so a retry gets it
+    again (IETF draft-ietf-httpapi-idempotency-key-header). Written in the same
+    transaction as what the POST created."""
+
+    __tablename__ = "idempotency_keys"
+
+    tenant_id: Mapped[str] = mapped_column(String(64), primary_key=True)
+    key: Mapped[str] = mapped_column(String(255), primary_key=True)
+    method_path: Mapped[str] = mapped_column(String(255))
+    body_sha256: Mapped[str] = mapped_column(String(64))
+    status_code: Mapped[int] = mapped_column(Integer)
+    location: Mapped[str | None] = mapped_column(String(255))
+    response: Mapped[dict] = mapped_column(JSON)
+    created_at: Mapped[dt.datetime] = mapped_column(UTCDateTime, default=_now)

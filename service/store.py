@@ -13,7 +13,7 @@ from sqlalchemy.orm import Session
 
 from priors import FanfoldVAR
 
-from .orm import StoredModel
+from .orm import IdempotencyRecord, StoredModel
 from .serialization import (
     data_from_dict,
     data_to_dict,
@@ -23,8 +23,8 @@ from .serialization import (
     posterior_to_blob,
 )
 
-__all__ = ["BadCursor", "delete_model", "get_model", "list_models", "load_fitted",
-           "replace_fitted", "save_model"]
+__all__ = ["BadCursor", "delete_model", "find_idempotent", "get_model", "list_models",
+           "load_fitted", "remember_idempotent", "replace_fitted", "save_model"]
 
 
 class BadCursor(ValueError):
@@ -32,8 +32,9 @@ class BadCursor(ValueError):
 
 
 def save_model(*, session: Session, tenant: str, name: str | None, params: dict[str, Any],
-               frame: Any, model: FanfoldVAR) -> StoredModel:
-    """Store a fitted model in one transaction; visible only once committed."""
+               frame: Any, model: FanfoldVAR, commit: bool = True) -> StoredModel:
+    """Store a fitted model; visible only once committed (``commit=False`` leaves the
+    commit to the caller, to write more in the same transaction)."""
     blob, meta = posterior_to_blob(model.posterior_)
     row = StoredModel(
         id=str(uuid.uuid4()), tenant_id=tenant, name=name, status="ready",
@@ -42,7 +43,10 @@ def save_model(*, session: Session, tenant: str, name: str | None, params: dict[
         posterior=blob, posterior_meta=meta,
     )
     session.add(row)
-    session.commit()
+    if commit:
+        session.commit()
+    else:
+        session.flush()
     return row
 
 
@@ -111,3 +115,16 @@ def replace_fitted(*, session: Session, row: StoredModel, frame: Any,
     row.updated_at = dt.datetime.now(dt.UTC)
     session.commit()
     return row
+
+
+def find_idempotent(*, session: Session, tenant: str, key: str) -> IdempotencyRecord | None:
+    return session.get(IdempotencyRecord, (tenant, key))
+
+
+def remember_idempotent(*, session: Session, tenant: str, key: str, method_path: str,
+                        body_sha256: str, status_code: int, location: str | None,
+                        response: dict[str, Any]) -> None:
+    """Add the answer to the current transaction (the caller commits)."""
+    session.add(IdempotencyRecord(tenant_id=tenant, key=key, method_path=method_path,
+                                  body_sha256=body_sha256, status_code=status_code,
+                                  location=location, response=response))

@@ -190,3 +190,17 @@ def test_concurrent_updates_cannot_both_win(tmp_path, demo):
             replace_fitted(session=b, row=row_b, frame=part, model=grown)
     with sessions() as s:
         assert get_model(session=s, tenant="t", model_id=model_id).version == 2
+
+
+def test_idempotency_key_replays_the_original_answer(client, model_body):
+    headers = {"Idempotency-Key": "order-run-2026-01"}
+    first = client.post("/v1/models", json=model_body, headers=headers)
+    again = client.post("/v1/models", json=model_body, headers=headers)
+    assert first.status_code == again.status_code == 201
+    assert again.json() == first.json() and again.headers["location"] == first.headers["location"]
+    assert again.headers["idempotent-replayed"] == "true"
+    assert len(client.get("/v1/models").json()["data"]) == 1  # nothing new stored
+    other = client.post("/v1/models", json={**model_body, "lags": 1}, headers=headers)
+    assert other.status_code == 422 and "different request" in other.json()["detail"]
+    fresh = client.post("/v1/models", json=model_body, headers={"Idempotency-Key": "another"})
+    assert fresh.status_code == 201 and fresh.json()["id"] != first.json()["id"]

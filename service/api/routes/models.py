@@ -8,13 +8,14 @@ import uuid
 from typing import Annotated, Any
 
 import pandas as pd
-from fastapi import APIRouter, Query, Request, Response
+from fastapi import APIRouter, Header, Query, Request, Response
 from fastapi.concurrency import run_in_threadpool
 from fastapi.responses import JSONResponse
+from sqlalchemy.exc import IntegrityError
 from starlette.exceptions import HTTPException
 
 from ...engine import fan_chart, fit_model, forecast_answer, frame_from_spec, model_params
-from ...errors import PROBLEM_JSON
+from ...errors import PROBLEM_JSON, problem
 from ...orm import StoredModel
 from ...schemas import (
     FanChartPublic,
@@ -29,9 +30,11 @@ from ...serialization import data_from_dict, summary_to_dict
 from ...store import (
     BadCursor,
     delete_model,
+    find_idempotent,
     get_model,
     list_models,
     load_fitted,
+    remember_idempotent,
     replace_fitted,
     save_model,
 )
@@ -72,21 +75,52 @@ async def _timed(settings: Any, fn: Any, *args: Any) -> Any:
 
 
 @router.post("", status_code=201, response_model=ModelPublic, responses=_INVALID,
-             summary="Fit a model to the series and store it")
-async def create_model(body: ModelCreate, request: Request, response: Response,
-                       session: SessionDep, settings: SettingsDep,
-                       tenant: TenantDep) -> dict[str, Any]:
-    def work() -> dict[str, Any]:
-        frame = frame_from_spec(body)
-        params = model_params(body)
-        model = fit_model(body, frame, settings)
-        row = save_model(session=session, tenant=tenant, name=body.name, params=params,
-                         frame=frame, model=model)
-        return _public(row)
+             summary="Fit a model to the series and store it",
+             description="With an Idempotency-Key header, a retry of the same request gets "
+                         "the original answer (and creates nothing new); the same key with a "
+                         "different body is a 422.")
+async def create_model(
+    body: ModelCreate, request: Request, session: SessionDep, settings: SettingsDep,
+    tenant: TenantDep,
+    idempotency_key: Annotated[str | None, Header(max_length=255)] = None,
+) -> JSONResponse:
+    body_sha = hashlib.sha256(await request.body()).hexdigest()
+    what = "POST /v1/models"
 
-    out = await _timed(settings, work)
-    response.headers["Location"] = f"/v1/models/{out['id']}"
-    return out
+    def replay(record: Any) -> JSONResponse:
+        if record.body_sha256 != body_sha or record.method_path != what:
+            return problem(422, "this Idempotency-Key was used with a different request; "
+                                "use a new key for a new request", request=request)
+        return JSONResponse(record.response, status_code=record.status_code,
+                            headers={"Location": record.location or "",
+                                     "Idempotent-Replayed": "true"})
+
+    def work() -> JSONResponse:
+        if idempotency_key:
+            record = find_idempotent(session=session, tenant=tenant, key=idempotency_key)
+            if record is not None:
+                return replay(record)
+        frame = frame_from_spec(body)
+        model = fit_model(body, frame, settings)
+        row = save_model(session=session, tenant=tenant, name=body.name,
+                         params=model_params(body), frame=frame, model=model, commit=False)
+        out = ModelPublic.model_validate(_public(row)).model_dump(mode="json")
+        location = f"/v1/models/{row.id}"
+        if idempotency_key:
+            remember_idempotent(session=session, tenant=tenant, key=idempotency_key,
+                                method_path=what, body_sha256=body_sha, status_code=201,
+                                location=location, response=out)
+        try:
+            session.commit()
+        except IntegrityError:  # the same key won a race: answer as the winner did
+            session.rollback()
+            record = find_idempotent(session=session, tenant=tenant, key=idempotency_key or "")
+            if record is None:
+                raise
+            return replay(record)
+        return JSONResponse(out, status_code=201, headers={"Location": location})
+
+    return await _timed(settings, work)
 
 
 @router.get("", response_model=ModelsPublic, summary="List stored models (oldest first)",

@@ -336,8 +336,11 @@ def _serve(args: argparse.Namespace) -> str:
               else "loopback only: no API keys configured")
     print(f"fanfold: serving on http://{args.host}:{args.port} ({access}); docs at /docs",
           file=sys.stderr, flush=True)
+    from .logs import configure_logging
+
+    configure_logging()
     uvicorn.run("service.app:create_app", factory=True, host=args.host, port=args.port,
-                workers=args.workers, log_level="warning", timeout_graceful_shutdown=20)
+                workers=args.workers, log_config=None, timeout_graceful_shutdown=20)
     return ""
 
 

@@ -6,12 +6,17 @@ counters, bounded labels (the route template, never the raw path).
 
 from __future__ import annotations
 
+import logging
 import time
 
 from prometheus_client import CollectorRegistry, Counter, Histogram
 from starlette.types import ASGIApp, Message, Receive, Scope, Send
 
+from .context import request_id
+
 __all__ = ["Metrics", "MetricsMiddleware"]
+
+log = logging.getLogger("fanfold.access")
 
 
 class Metrics:
@@ -33,7 +38,7 @@ class Metrics:
 
 
 class MetricsMiddleware:
-    """Count requests and time them by route template."""
+    """Count requests, time them by route template, and log one line per request."""
 
     def __init__(self, app: ASGIApp, metrics: Metrics) -> None:
         self.app = app
@@ -57,5 +62,9 @@ class MetricsMiddleware:
         finally:
             route = getattr(scope.get("route"), "path", "unmatched")
             method = scope.get("method", "GET")
+            elapsed = time.perf_counter() - start
             self.metrics.requests.labels(method, route, str(status)).inc()
-            self.metrics.duration.labels(method, route).observe(time.perf_counter() - start)
+            self.metrics.duration.labels(method, route).observe(elapsed)
+            log.info("request", extra={"method": method, "route": route, "status": status,
+                                       "duration_s": round(elapsed, 6),
+                                       "request_id": request_id.get()})

@@ -12,11 +12,12 @@ from fastapi.openapi.docs import get_swagger_ui_html
 from fastapi.openapi.utils import get_openapi
 from fastapi.responses import HTMLResponse, JSONResponse
 
-from .api.routes import forecasts, health, models
+from .api.routes import forecasts, health, jobs, models
 from .auth import authenticate
 from .config import Settings, get_settings
 from .db import make_engine, make_session_factory
 from .errors import register_error_handlers
+from .jobs import JobRunner
 from .metrics import Metrics, MetricsMiddleware
 from .middleware import BodyLimitMiddleware, RequestIdMiddleware
 from .migrate import upgrade
@@ -34,9 +35,11 @@ def create_app(settings: Settings | None = None) -> FastAPI:
     @asynccontextmanager
     async def lifespan(app: FastAPI) -> AsyncIterator[None]:
         upgrade(app.state.engine)  # schema at the newest revision before taking requests
+        app.state.jobs.start()  # re-queues jobs a crash left running, then works the queue
         app.state.ready = True
         yield
         app.state.ready = False
+        app.state.jobs.stop()
         app.state.engine.dispose()
 
     app = FastAPI(
@@ -53,6 +56,7 @@ def create_app(settings: Settings | None = None) -> FastAPI:
     app.state.ready = False
     app.state.engine = make_engine(settings.database_url)
     app.state.sessions = make_session_factory(app.state.engine)
+    app.state.jobs = JobRunner(app.state.sessions, settings)
     register_error_handlers(app)
     app.state.api_keys = {k.id: k for k in settings.api_keys}
     app.include_router(health.router)  # probes stay open
@@ -60,6 +64,7 @@ def create_app(settings: Settings | None = None) -> FastAPI:
     app.include_router(health.metrics_router, dependencies=protected)
     app.include_router(forecasts.router, dependencies=protected)
     app.include_router(models.router, dependencies=protected)
+    app.include_router(jobs.router, dependencies=protected)
     if settings.docs_enabled:
         _add_docs(app, protected)
     # added last = outermost: ids first, then limits, then metrics around the routes

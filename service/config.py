@@ -37,6 +37,13 @@ class Settings(BaseSettings):
     max_path_values: int = Field(50_000_000, ge=1)  # draws * horizon * series
     request_timeout_s: float = Field(60.0, gt=0)
 
+    # background jobs: fits over this size (or with "Prefer: respond-async") become jobs
+    job_workers: int = Field(2, ge=0)  # threads in this process; 0 = none (tests)
+    job_max_attempts: int = Field(3, ge=1)
+    fit_timeout_s: float = Field(1800.0, gt=0)  # the lease of a running job
+    job_recovery_interval_s: float = Field(30.0, gt=0)
+    sync_max_coefficients: int = Field(2_500, ge=1)
+
     # [{"id": "ops", "sha256": "<hex of the whole key>", "tenant": "acme"}, ...]; create
     # entries with `fanfold keys new --id ops --tenant acme`
     api_keys: list[ApiKey] = []

@@ -11,7 +11,7 @@ from sqlalchemy.types import TypeDecorator
 
 from .db import Base
 
-__all__ = ["IdempotencyRecord", "StoredModel", "UTCDateTime"]
+__all__ = ["IdempotencyRecord", "Job", "StoredModel", "UTCDateTime"]
 
 
 def _now() -> dt.datetime:
@@ -78,3 +78,29 @@ class IdempotencyRecord(Base):
     location: Mapped[str | None] = mapped_column(String(255))
     response: Mapped[dict] = mapped_column(JSON)
     created_at: Mapped[dt.datetime] = mapped_column(UTCDateTime, default=_now)
+
+
+class Job(Base):
+    """A unit of background work (fitting a model), run by the worker pool.
+
+    States: queued -> running -> succeeded | failed | cancelled. A running job holds a
+    lease; a job whose lease ran out (its worker died) goes back to the queue until it
+    has used ``max_attempts``, then fails with the reason.
+    """
+
+    __tablename__ = "jobs"
+
+    id: Mapped[str] = mapped_column(String(36), primary_key=True)
+    tenant_id: Mapped[str] = mapped_column(String(64), index=True)
+    kind: Mapped[str] = mapped_column(String(32))
+    status: Mapped[str] = mapped_column(String(16), index=True)
+    progress: Mapped[float] = mapped_column(Float, default=0.0)
+    attempts: Mapped[int] = mapped_column(Integer, default=0)
+    max_attempts: Mapped[int] = mapped_column(Integer, default=3)
+    cancel_requested: Mapped[int] = mapped_column(Integer, default=0)
+    lease_until: Mapped[dt.datetime | None] = mapped_column(UTCDateTime, nullable=True)
+    created_at: Mapped[dt.datetime] = mapped_column(UTCDateTime, default=_now)
+    updated_at: Mapped[dt.datetime] = mapped_column(UTCDateTime, default=_now)
+    payload: Mapped[dict] = mapped_column(JSON)
+    result_model_id: Mapped[str | None] = mapped_column(String(36), nullable=True)
+    error: Mapped[dict | None] = mapped_column(JSON, nullable=True)

@@ -19,6 +19,7 @@ __all__ = [
     "ForecastCreate",
     "ForecastPublic",
     "ForecastSettings",
+    "JobPublic",
     "ModelCreate",
     "ModelForecastCreate",
     "ModelPublic",
@@ -250,3 +251,18 @@ class FanChartPublic(BaseModel):
     dates: list[str]
     median: dict[str, list[float | None]]
     bands: dict[str, dict[str, Band]]
+
+
+class JobPublic(BaseModel):
+    """A background job. ``result`` links the model once ``status`` is succeeded;
+    ``problem`` is an RFC 9457 document once it failed."""
+
+    id: str
+    kind: str
+    status: Literal["queued", "running", "succeeded", "failed", "cancelled"]
+    progress: float
+    attempts: int
+    created_at: dt.datetime
+    updated_at: dt.datetime
+    result: str | None
+    problem: dict[str, object] | None

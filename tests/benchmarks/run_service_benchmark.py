@@ -3,7 +3,7 @@
 Usage::
 
     python tests/benchmarks/run_service_benchmark.py [--requests 400] [--concurrency 8]
-        [--workers 1] [--out tests/benchmarks/results/service.md]
+        [--rounds 4] [--workers 1] [--out tests/benchmarks/results/service.md]
 
 Workload: scenario S of run_benchmarks.py (n=3 series, p=4 lags, T=120 monthly values,
 simulated from a known stationary VAR with a fixed seed) sent as JSON to
@@ -20,12 +20,16 @@ and worker count:
 
 Each target gets 20 warm-up requests, then ``--requests`` timed requests from
 ``--concurrency`` client threads sharing one httpx connection pool (the body is encoded
-once; latency = time.perf_counter around ``client.post``), and again with one client
-(sequential). The engine's own compute time is measured in this process while no
-traffic flows: ``service.engine.run_forecast`` (fit + forecast + the answer dict, one
-BLAS thread as the service does) on the parsed request, 10 runs after one warm-up run,
-once before the servers start and once after they stop; the bound uses the median of
-all 20 (the machine may be shared, so both sets are reported).
+once; latency = time.perf_counter around ``client.post``; every answer is checked against
+the reference bytes), and again with one client (sequential). The timed requests run in
+``--rounds`` chunks that alternate the targets (A B, B A, ...), so that load from other
+work on a shared machine falls on both. Fanfold gets a temporary SQLite database.
+
+The engine's own compute time is measured in this process while no traffic flows:
+``service.engine.run_forecast`` (fit + forecast + the answer dict, one BLAS thread as the
+service does) on the parsed request, 10 runs after one warm-up run, once before the
+servers start and once after they stop; the bound uses the median of all 20 (the machine
+may be shared, so both sets are reported).
 
 Target: Fanfold p50 < 3 x floor p50 + engine median. With concurrent clients and one
 worker process on a 2-core machine, the p50 includes queueing behind the other clients'
@@ -425,7 +429,8 @@ def _ms(x: float | None, digits: int = 2) -> str:
 
 
 def build_report(header: list[str], settings: list[str], runs: list[dict[str, Any]],
-                 engine: list[dict[str, list[float]]], body_len: int, answer_len: int) -> str:
+                 engine: list[dict[str, list[float]]], body_len: int, answer_len: int,
+                 workers: int) -> str:
     """``engine``: the in-process times before and after the HTTP runs."""
     engine_median = statistics.median([x for e in engine for x in e["engine"]]) * 1e3
     out = ["# Fanfold service benchmark", "", *header, *settings,
@@ -438,8 +443,10 @@ def build_report(header: list[str], settings: list[str], runs: list[dict[str, An
             "|---|---|---|---|---|---|---|---|---|---|---|---|---|"]
     for r in runs:
         label = "sequential" if r["concurrency"] == 1 else "concurrent"
+        hung = f" ({r['hung']} threads hung)" if r["hung"] else ""
         out.append(
-            f"| {label} | {r['target']} | {r['concurrency']} | {r['ok']} / {r['errors']} | "
+            f"| {label} | {r['target']} | {r['concurrency']} | {r['ok']} / {r['errors']}"
+            f"{hung} | "
             f"{_ms(r['p50'])} | {_ms(r['p95'])} | {_ms(r['p99'])} | {_ms(r['mean'])} | "
             f"{_ms(r['rps'], 1)} | {_ms(r['cpu_ms'])} | {_ms(r.get('server_http_ms'))} | "
             f"{_ms(r.get('server_engine_ms'))} | {r['load']:.2f} |")
@@ -490,6 +497,12 @@ def build_report(header: list[str], settings: list[str], runs: list[dict[str, An
             "- The concurrent p50 contains queueing: with one worker process the requests "
             "in flight share one GIL, so a request waits for the compute of the others.",
             f"- load average at end: {os.getloadavg()[0]:.2f}", ""]
+    if workers > 1:
+        out[-1:] = ["- workers > 1: uvicorn's multiprocess supervisor binds the listening "
+                    "socket with proto 0, so asyncio does not set TCP_NODELAY on accepted "
+                    "connections (Kludex/uvicorn#3149, open for uvicorn 0.54): each "
+                    "keep-alive request then waits ~40 ms for the client's delayed ACK, "
+                    "in both targets. Compare with a --workers 1 run.", ""]
     return "\n".join(out)
 
 
@@ -570,7 +583,8 @@ def main(argv: list[str] | None = None) -> int:
 
     print("measuring the engine in-process again ...", file=sys.stderr, flush=True)
     engine.append(measure_engine(body, ENGINE_REPEATS))
-    report = build_report(header, settings, runs, engine, len(body), len(answer))
+    report = build_report(header, settings, runs, engine, len(body), len(answer),
+                          args.workers)
     print(report)
     out = Path(args.out)
     out.parent.mkdir(parents=True, exist_ok=True)

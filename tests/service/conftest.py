@@ -28,7 +28,8 @@ def _isolated_environment(monkeypatch, tmp_path):
 
 @pytest.fixture
 def settings() -> Settings:
-    return Settings(database_url="sqlite://")
+    """Defaults, on the temporary database file (worker threads need real connections)."""
+    return Settings()
 
 
 @pytest.fixture

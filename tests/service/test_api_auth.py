@@ -88,3 +88,13 @@ def test_cli_creates_keys_and_serve_allows_other_hosts_only_with_keys(monkeypatc
         assert calls[0]["host"] == "0.0.0.0"
     finally:
         get_settings.cache_clear()
+
+
+def test_jobs_are_tenant_scoped(secured, demo_body):
+    a, b = {"X-API-Key": KEY_A}, {"X-API-Key": KEY_B}
+    r = secured.post("/v1/models", json=_model(demo_body),
+                     headers={**a, "Prefer": "respond-async"})
+    assert r.status_code == 202
+    assert secured.get(r.headers["location"], headers=b).status_code == 404
+    assert secured.delete(r.headers["location"], headers=b).status_code == 404
+    assert secured.get(r.headers["location"], headers=a).status_code == 200

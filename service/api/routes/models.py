@@ -14,12 +14,21 @@ from fastapi.responses import JSONResponse
 from sqlalchemy.exc import IntegrityError
 from starlette.exceptions import HTTPException
 
-from ...engine import fan_chart, fit_model, forecast_answer, frame_from_spec, model_params
+from ...engine import (
+    check_model_limits,
+    fan_chart,
+    fit_model,
+    forecast_answer,
+    frame_from_spec,
+    model_params,
+)
 from ...errors import PROBLEM_JSON, problem
+from ...jobs import submit_fit
 from ...orm import StoredModel
 from ...schemas import (
     FanChartPublic,
     ForecastPublic,
+    JobPublic,
     ModelCreate,
     ModelForecastCreate,
     ModelPublic,
@@ -39,6 +48,7 @@ from ...store import (
     save_model,
 )
 from ..deps import SessionDep, SettingsDep, TenantDep
+from .jobs import job_public
 
 router = APIRouter(prefix="/v1/models", tags=["models"])
 
@@ -74,11 +84,16 @@ async def _timed(settings: Any, fn: Any, *args: Any) -> Any:
                                   timeout=settings.request_timeout_s)
 
 
-@router.post("", status_code=201, response_model=ModelPublic, responses=_INVALID,
+@router.post("", status_code=201, response_model=ModelPublic,
+             responses={**_INVALID, 202: {"model": JobPublic, "description":
+                        "queued as a job (large fit, or 'Prefer: respond-async'); poll "
+                        "Location"}},
              summary="Fit a model to the series and store it",
-             description="With an Idempotency-Key header, a retry of the same request gets "
-                         "the original answer (and creates nothing new); the same key with a "
-                         "different body is a 422.")
+             description="Small fits answer 201 with the model. Large fits, or any fit sent "
+                         "with 'Prefer: respond-async', answer 202 with a job to poll at "
+                         "Location. With an Idempotency-Key header, a retry of the same "
+                         "request gets the original answer (and creates nothing new); the "
+                         "same key with a different body is a 422.")
 async def create_model(
     body: ModelCreate, request: Request, session: SessionDep, settings: SettingsDep,
     tenant: TenantDep,
@@ -95,20 +110,30 @@ async def create_model(
                             headers={"Location": record.location or "",
                                      "Idempotent-Replayed": "true"})
 
+    wants_async = "respond-async" in request.headers.get("prefer", "").lower()
+
     def work() -> JSONResponse:
         if idempotency_key:
             record = find_idempotent(session=session, tenant=tenant, key=idempotency_key)
             if record is not None:
                 return replay(record)
         frame = frame_from_spec(body)
-        model = fit_model(body, frame, settings)
-        row = save_model(session=session, tenant=tenant, name=body.name,
-                         params=model_params(body), frame=frame, model=model, commit=False)
-        out = ModelPublic.model_validate(_public(row)).model_dump(mode="json")
-        location = f"/v1/models/{row.id}"
+        check_model_limits(body, frame.shape[1], frame.shape[0], settings)
+        if wants_async or _large(body, frame, settings):
+            job = submit_fit(session=session, tenant=tenant, spec=body,
+                             max_attempts=settings.job_max_attempts, commit=False)
+            status, out, location = 202, job_public(job), f"/v1/jobs/{job.id}"
+        else:
+            model = fit_model(body, frame, settings)
+            row = save_model(session=session, tenant=tenant, name=body.name,
+                             params=model_params(body), frame=frame, model=model,
+                             commit=False)
+            status = 201
+            out = ModelPublic.model_validate(_public(row)).model_dump(mode="json")
+            location = f"/v1/models/{row.id}"
         if idempotency_key:
             remember_idempotent(session=session, tenant=tenant, key=idempotency_key,
-                                method_path=what, body_sha256=body_sha, status_code=201,
+                                method_path=what, body_sha256=body_sha, status_code=status,
                                 location=location, response=out)
         try:
             session.commit()
@@ -118,9 +143,20 @@ async def create_model(
             if record is None:
                 raise
             return replay(record)
+        if status == 202:
+            request.app.state.jobs.wake()
+            return JSONResponse(out, status_code=202,
+                                headers={"Location": location, "Retry-After": "1"})
         return JSONResponse(out, status_code=201, headers={"Location": location})
 
     return await _timed(settings, work)
+
+
+def _large(spec: ModelCreate, frame: Any, settings: Any) -> bool:
+    """Whether a fit is big enough to run as a job (coefficients of the largest order)."""
+    n = frame.shape[1]
+    p = spec.lags if isinstance(spec.lags, int) else (spec.max_lags or 13)
+    return n * (n * p + 1) > settings.sync_max_coefficients
 
 
 @router.get("", response_model=ModelsPublic, summary="List stored models (oldest first)",

@@ -1,0 +1,210 @@
+"""Background jobs: rows in the database, run by a pool of worker threads.
+
+Claiming is a conditional UPDATE (``... WHERE id = ? AND status = 'queued'``, checked by
+row count), portable to SQLite and PostgreSQL. A running job holds a lease of
+``fit_timeout_s``; :meth:`JobRunner.recover` (at start and every
+``job_recovery_interval_s``) puts jobs whose lease ran out back in the queue, or fails
+them once they used ``job_max_attempts``. A worker finishing late cannot overwrite a job
+that was re-queued meanwhile: its final UPDATE requires the attempt number it claimed.
+"""
+
+from __future__ import annotations
+
+import datetime as dt
+import logging
+import threading
+import uuid
+from typing import Any
+
+from sqlalchemy import select, update
+from sqlalchemy.orm import Session, sessionmaker
+
+from priors.errors import PriorsError
+
+from .config import Settings
+from .engine import fit_model, frame_from_spec, model_params
+from .errors import LimitExceeded
+from .orm import Job
+from .schemas import ModelCreate
+from .store import save_model
+
+__all__ = ["TERMINAL", "JobRunner", "cancel_job", "get_job", "submit_fit"]
+
+log = logging.getLogger("fanfold.jobs")
+TERMINAL = frozenset({"succeeded", "failed", "cancelled"})
+
+
+def _now() -> dt.datetime:
+    return dt.datetime.now(dt.UTC)
+
+
+def submit_fit(*, session: Session, tenant: str, spec: ModelCreate, max_attempts: int,
+               commit: bool = True) -> Job:
+    """Queue a model fit; returns the job row."""
+    job = Job(id=str(uuid.uuid4()), tenant_id=tenant, kind="fit_model", status="queued",
+              progress=0.0, attempts=0, max_attempts=max_attempts, cancel_requested=0,
+              payload=spec.model_dump(mode="json"))
+    session.add(job)
+    if commit:
+        session.commit()
+    else:
+        session.flush()
+    return job
+
+
+def get_job(*, session: Session, tenant: str, job_id: str) -> Job | None:
+    return session.scalar(select(Job).where(Job.id == job_id, Job.tenant_id == tenant))
+
+
+def cancel_job(*, session: Session, job: Job) -> Job:
+    """Cancel a queued job at once; ask a running one to stop (it ends ``cancelled``)."""
+    if job.status == "queued":
+        session.execute(update(Job).where(Job.id == job.id, Job.status == "queued")
+                        .values(status="cancelled", updated_at=_now()))
+    elif job.status == "running":
+        session.execute(update(Job).where(Job.id == job.id).values(cancel_requested=1))
+    session.commit()
+    session.refresh(job)
+    return job
+
+
+class JobRunner:
+    """Worker threads that claim queued jobs and run them."""
+
+    def __init__(self, sessions: sessionmaker[Session], settings: Settings) -> None:
+        self.sessions = sessions
+        self.settings = settings
+        self._stop = threading.Event()
+        self._wake = threading.Event()
+        self._threads: list[threading.Thread] = []
+
+    # ------------------------------------------------------------------ lifecycle
+    def start(self) -> None:
+        self.recover()
+        for i in range(self.settings.job_workers):
+            t = threading.Thread(target=self._loop, name=f"fanfold-job-{i}", daemon=True)
+            t.start()
+            self._threads.append(t)
+        if self._threads:
+            t = threading.Thread(target=self._recovery_loop, name="fanfold-job-recovery",
+                                 daemon=True)
+            t.start()
+            self._threads.append(t)
+
+    def stop(self, timeout: float = 20.0) -> None:
+        self._stop.set()
+        self._wake.set()
+        for t in self._threads:
+            t.join(timeout)
+
+    def wake(self) -> None:
+        self._wake.set()
+
+    # ------------------------------------------------------------------ recovery
+    def recover(self) -> int:
+        """Re-queue or fail running jobs whose lease has run out; returns how many."""
+        now = _now()
+        with self.sessions() as s:
+            stale = list(s.scalars(select(Job).where(Job.status == "running",
+                                                     Job.lease_until < now)))
+            for job in stale:
+                if job.attempts < job.max_attempts:
+                    values: dict[str, Any] = {"status": "queued", "lease_until": None}
+                else:
+                    values = {"status": "failed", "error": {
+                        "title": "Worker lost", "status": 500,
+                        "detail": f"the job's worker stopped {job.attempts} time(s) before "
+                                  "finishing (crash, restart or time-out); submit it again "
+                                  "or fit a smaller model"}}
+                s.execute(update(Job).where(Job.id == job.id, Job.status == "running",
+                                            Job.attempts == job.attempts)
+                          .values(updated_at=now, **values))
+            s.commit()
+        if stale:
+            log.warning("recovered %d job(s) whose lease ran out", len(stale))
+            self._wake.set()
+        return len(stale)
+
+    def _recovery_loop(self) -> None:
+        while not self._stop.wait(self.settings.job_recovery_interval_s):
+            try:
+                self.recover()
+            except Exception:  # keep the loop alive; the next round retries
+                log.exception("job recovery failed")
+
+    # ------------------------------------------------------------------ work
+    def _claim(self) -> tuple[str, int] | None:
+        with self.sessions() as s:
+            ids = list(s.scalars(select(Job.id).where(Job.status == "queued")
+                                 .order_by(Job.created_at).limit(5)))
+            for job_id in ids:
+                attempts = s.scalar(select(Job.attempts).where(Job.id == job_id))
+                claimed = s.execute(
+                    update(Job).where(Job.id == job_id, Job.status == "queued").values(
+                        status="running", attempts=Job.attempts + 1, progress=0.1,
+                        lease_until=_now() + dt.timedelta(seconds=self.settings.fit_timeout_s),
+                        updated_at=_now()))
+                if claimed.rowcount == 1:
+                    s.commit()
+                    return job_id, int(attempts or 0) + 1
+                s.rollback()
+        return None
+
+    def _loop(self) -> None:
+        while not self._stop.is_set():
+            try:
+                claim = self._claim()
+            except Exception:
+                log.exception("claiming a job failed")
+                claim = None
+            if claim is None:
+                self._wake.wait(0.5)
+                self._wake.clear()
+                continue
+            self.run_one(*claim)
+
+    def run_one(self, job_id: str, attempt: int) -> None:
+        """Run a claimed job to a terminal state (or leave it to recovery if this
+        worker's claim was superseded)."""
+        with self.sessions() as s:
+            job = s.get(Job, job_id)
+            assert job is not None
+            mine = (Job.id == job_id, Job.status == "running", Job.attempts == attempt)
+            try:
+                spec = ModelCreate.model_validate(job.payload)
+                frame = frame_from_spec(spec)
+                model = fit_model(spec, frame, self.settings)
+                s.execute(update(Job).where(*mine).values(progress=0.9, updated_at=_now()))
+                s.commit()
+                s.refresh(job)
+                if job.cancel_requested:
+                    s.execute(update(Job).where(*mine).values(
+                        status="cancelled", updated_at=_now()))
+                    s.commit()
+                    return
+                row = save_model(session=s, tenant=job.tenant_id, name=spec.name,
+                                 params=model_params(spec), frame=frame, model=model,
+                                 commit=False)
+                done = s.execute(update(Job).where(*mine).values(
+                    status="succeeded", progress=1.0, result_model_id=row.id,
+                    updated_at=_now()))
+                if done.rowcount != 1:  # re-queued meanwhile: keep nothing
+                    s.rollback()
+                    return
+                s.commit()
+            except (PriorsError, LimitExceeded) as exc:
+                s.rollback()
+                detail = exc.message if isinstance(exc, LimitExceeded) else str(exc)
+                s.execute(update(Job).where(*mine).values(status="failed", updated_at=_now(),
+                          error={"title": "The model cannot use this input", "status": 422,
+                                 "type": f"urn:fanfold:problem:{type(exc).__name__}",
+                                 "detail": detail}))
+                s.commit()
+            except Exception:
+                s.rollback()
+                log.exception("job failed", extra={"job_id": job_id})
+                s.execute(update(Job).where(*mine).values(status="failed", updated_at=_now(),
+                          error={"title": "Internal Server Error", "status": 500,
+                                 "detail": "the fit failed unexpectedly; the error is logged "
+                                           f"with job_id {job_id}"}))
+                s.commit()

@@ -1,0 +1,119 @@
+"""Background fits: 202 + job polling, failures as problems, cancel, crash recovery."""
+
+from __future__ import annotations
+
+import datetime as dt
+import time
+
+import pytest
+from fastapi.testclient import TestClient
+from sqlalchemy import update
+
+from service.app import create_app
+from service.config import Settings
+from service.orm import Job
+
+ASYNC = {"Prefer": "respond-async"}
+
+
+@pytest.fixture
+def model_body(demo_body):
+    body = {k: v for k, v in demo_body.items() if k in ("series", "start", "frequency")}
+    return {**body, "lags": 2}
+
+
+def _wait(client, location, timeout=60.0):
+    deadline = time.monotonic() + timeout
+    while time.monotonic() < deadline:
+        job = client.get(location).json()
+        if job["status"] in ("succeeded", "failed", "cancelled"):
+            return job
+        time.sleep(0.05)
+    raise AssertionError(f"job not finished within {timeout} s: {job}")
+
+
+def test_async_fit_runs_as_a_job_and_links_the_model(client, model_body):
+    r = client.post("/v1/models", json=model_body, headers=ASYNC)
+    assert r.status_code == 202 and r.headers["location"].startswith("/v1/jobs/")
+    assert r.json()["status"] in ("queued", "running", "succeeded")
+    job = _wait(client, r.headers["location"])
+    assert job["status"] == "succeeded" and job["progress"] == 1.0 and job["attempts"] == 1
+    stored = client.get(job["result"]).json()
+    direct = client.post("/v1/models", json=model_body).json()
+    assert stored["coefficients"] == direct["coefficients"]
+
+
+def test_a_failing_fit_ends_failed_with_a_problem(client, model_body):
+    body = {**model_body, "series": {"tyres": [5.0] * 48, "chains": list(range(48))}}
+    r = client.post("/v1/models", json=body, headers=ASYNC)
+    job = _wait(client, r.headers["location"])
+    assert job["status"] == "failed" and job["result"] is None
+    assert job["problem"]["status"] == 422 and "no variation" in job["problem"]["detail"]
+
+
+def test_cancel_a_queued_job(tmp_path, model_body):
+    settings = Settings(database_url=f"sqlite:///{tmp_path / 'j.db'}", job_workers=0)
+    with TestClient(create_app(settings)) as c:
+        location = c.post("/v1/models", json=model_body, headers=ASYNC).headers["location"]
+        assert c.get(location).json()["status"] == "queued"
+        r = c.delete(location)
+        assert r.status_code == 202 and r.json()["status"] == "cancelled"
+        assert c.delete(location).status_code == 409
+        assert c.get("/v1/jobs/00000000-0000-4000-8000-000000000000").status_code == 404
+
+
+def test_jobs_left_running_by_a_crash_are_requeued_then_failed(tmp_path, model_body):
+    settings = Settings(database_url=f"sqlite:///{tmp_path / 'j.db'}", job_workers=0,
+                        job_max_attempts=2)
+    app = create_app(settings)
+    with TestClient(app) as c:
+        location = c.post("/v1/models", json=model_body, headers=ASYNC).headers["location"]
+        runner, sessions = app.state.jobs, app.state.sessions
+        past = dt.datetime.now(dt.UTC) - dt.timedelta(seconds=1)
+        for attempt in (1, 2):
+            job_id, claimed = runner._claim()  # a worker takes it ... and dies
+            assert claimed == attempt
+            with sessions() as s:
+                s.execute(update(Job).where(Job.id == job_id).values(lease_until=past))
+                s.commit()
+            assert runner.recover() == 1
+        job = c.get(location).json()
+        assert job["status"] == "failed" and job["attempts"] == 2
+        assert "stopped 2 time(s)" in job["problem"]["detail"]
+
+
+def test_a_restart_finishes_what_a_crashed_server_left(tmp_path, model_body):
+    url = f"sqlite:///{tmp_path / 'j.db'}"
+    first = create_app(Settings(database_url=url, job_workers=0))
+    with TestClient(first) as c:
+        location = c.post("/v1/models", json=model_body, headers=ASYNC).headers["location"]
+        job_id, _ = first.state.jobs._claim()  # running when the "crash" happens
+        with first.state.sessions() as s:
+            s.execute(update(Job).where(Job.id == job_id).values(
+                lease_until=dt.datetime.now(dt.UTC) - dt.timedelta(seconds=1)))
+            s.commit()
+    with TestClient(create_app(Settings(database_url=url, job_workers=1))) as c:
+        job = _wait(c, location)
+        assert job["status"] == "succeeded" and job["attempts"] == 2
+        assert c.get(job["result"]).status_code == 200
+
+
+def test_a_superseded_worker_cannot_overwrite_the_job(tmp_path, model_body):
+    settings = Settings(database_url=f"sqlite:///{tmp_path / 'j.db'}", job_workers=0)
+    app = create_app(settings)
+    with TestClient(app) as c:
+        location = c.post("/v1/models", json=model_body, headers=ASYNC).headers["location"]
+        runner = app.state.jobs
+        job_id, first_attempt = runner._claim()
+        with app.state.sessions() as s:  # lease runs out; the job is re-queued and re-claimed
+            s.execute(update(Job).where(Job.id == job_id).values(
+                lease_until=dt.datetime.now(dt.UTC) - dt.timedelta(seconds=1)))
+            s.commit()
+        runner.recover()
+        _, second_attempt = runner._claim()
+        runner.run_one(job_id, first_attempt)  # the old worker wakes up and finishes
+        assert c.get(location).json()["status"] == "running"  # ... and changes nothing
+        assert c.get("/v1/models").json()["data"] == []
+        runner.run_one(job_id, second_attempt)
+        assert c.get(location).json()["status"] == "succeeded"
+        assert len(c.get("/v1/models").json()["data"]) == 1

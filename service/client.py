@@ -9,6 +9,7 @@ Errors come back as :class:`FanfoldAPIError` carrying the RFC 9457 problem docum
 
 from __future__ import annotations
 
+import time
 from typing import Any
 
 import httpx
@@ -59,26 +60,22 @@ class FanfoldClient:
     def close(self) -> None:
         self._http.close()
 
-    def _post(self, path: str, **kwargs: Any) -> dict[str, Any]:
-        response = self._http.post(path, **kwargs)
+    def _request(self, method: str, path: str, **kwargs: Any) -> httpx.Response:
+        response = self._http.request(method, path, **kwargs)
         if response.is_error:
             try:
                 problem = response.json()
             except ValueError:
                 problem = {"title": response.reason_phrase, "detail": response.text[:200]}
             raise FanfoldAPIError(response.status_code, problem)
-        return response.json()
+        return response
+
+    def _post(self, path: str, **kwargs: Any) -> dict[str, Any]:
+        return self._request("POST", path, **kwargs).json()
 
     def forecast_raw(self, data: pd.DataFrame, **settings: Any) -> dict[str, Any]:
         """POST /v1/forecasts with ``data`` (DatetimeIndex, one column per series)."""
-        if not isinstance(data.index, pd.DatetimeIndex):
-            raise TypeError("data needs a DatetimeIndex (one row per period)")
-        body = {
-            "series": {str(c): data[c].astype(float).tolist() for c in data.columns},
-            "dates": [d.date().isoformat() for d in data.index],
-            **settings,
-        }
-        return self._post("/v1/forecasts", json=body)
+        return self._post("/v1/forecasts", json={**_series_body(data), **settings})
 
     def forecast(self, data: pd.DataFrame, **settings: Any) -> pd.DataFrame:
         """Forecast every series of ``data``; a tidy table (see :func:`forecast_table`).
@@ -87,3 +84,51 @@ class FanfoldClient:
         transforms, seasonal, ... (see the OpenAPI document).
         """
         return forecast_table(self.forecast_raw(data, **settings))
+
+    # ------------------------------------------------------------------ stored models
+    def create_model(self, data: pd.DataFrame, *, background: bool = False,
+                     wait: float = 600.0, **settings: Any) -> dict[str, Any]:
+        """Fit and store a model; waits for the job if the service queued one
+        (``background=True`` asks for a job even for a small fit)."""
+        headers = {"Prefer": "respond-async"} if background else {}
+        response = self._request("POST", "/v1/models", json={**_series_body(data), **settings},
+                                 headers=headers)
+        if response.status_code == 202:
+            job = self.wait_for_job(response.headers["location"], timeout=wait)
+            return self._request("GET", job["result"]).json()
+        return response.json()
+
+    def wait_for_job(self, location: str, *, timeout: float = 600.0) -> dict[str, Any]:
+        """Poll a job until it ends; raises FanfoldAPIError with its problem if it failed."""
+        deadline = time.monotonic() + timeout
+        while True:
+            job = self._request("GET", location).json()
+            if job["status"] == "succeeded":
+                return job
+            if job["status"] in ("failed", "cancelled"):
+                problem = job.get("problem") or {"title": job["status"], "detail": ""}
+                raise FanfoldAPIError(int(problem.get("status", 500)), problem)
+            if time.monotonic() > deadline:
+                raise TimeoutError(f"job {location} still {job['status']} after {timeout} s")
+            time.sleep(0.2)
+
+    def forecast_model(self, model_id: str, **settings: Any) -> pd.DataFrame:
+        """Forecast a stored model (no refit); a tidy table."""
+        return forecast_table(self._post(f"/v1/models/{model_id}/forecasts", json=settings))
+
+    def append(self, model_id: str, data: pd.DataFrame) -> dict[str, Any]:
+        """Append new periods to a stored model (exact update, no refit)."""
+        return self._post(f"/v1/models/{model_id}/observations", json=_series_body(data))
+
+    def fan_chart(self, model_id: str, **params: Any) -> dict[str, Any]:
+        return self._request("GET", f"/v1/models/{model_id}/fan-chart", params=params).json()
+
+    def delete_model(self, model_id: str) -> None:
+        self._request("DELETE", f"/v1/models/{model_id}")
+
+
+def _series_body(data: pd.DataFrame) -> dict[str, Any]:
+    if not isinstance(data.index, pd.DatetimeIndex):
+        raise TypeError("data needs a DatetimeIndex (one row per period)")
+    return {"series": {str(c): data[c].astype(float).tolist() for c in data.columns},
+            "dates": [d.date().isoformat() for d in data.index]}

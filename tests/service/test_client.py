@@ -40,3 +40,19 @@ def test_errors_carry_the_problem_document(fanfold, demo):
     assert info.value.status == 422
     assert info.value.problem["errors"][0]["field"] == "horizon"
     assert "horizon" in str(info.value)
+
+
+def test_stored_model_round_trip(fanfold, demo):
+    model = fanfold.create_model(demo[["tyres", "chains"]].iloc[:100], lags=1)
+    table = fanfold.forecast_model(model["id"], horizon=2, draws=100, seed=1)
+    assert list(table["series"].unique()) == ["tyres", "chains"]
+    grown = fanfold.append(model["id"], demo[["tyres", "chains"]].iloc[100:])
+    assert grown["version"] == 2 and grown["span"]["end"] == "2025-12-01"
+    chart = fanfold.fan_chart(model["id"], horizon=3, bands="80")
+    assert list(chart["bands"]) == ["80"]
+    queued = fanfold.create_model(demo[["tyres", "chains"]], lags=1, background=True, wait=60)
+    assert queued["id"] != model["id"]
+    fanfold.delete_model(model["id"])
+    with pytest.raises(FanfoldAPIError) as info:
+        fanfold.forecast_model(model["id"], horizon=2)
+    assert info.value.status == 404

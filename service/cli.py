@@ -253,6 +253,9 @@ def build_parser() -> argparse.ArgumentParser:
     serve.add_argument("--port", type=_positive_int, default=8000, help="port to listen on")
     serve.add_argument("--workers", type=_positive_int, default=1,
                        help="worker processes")
+    serve.add_argument("--demo", action="store_true",
+                       help="store the bicycle-parts demo model first and print example "
+                            "requests")
     serve.set_defaults(run=_serve)
 
     keys = sub.add_parser("keys", help="manage API keys", formatter_class=_HelpFormatter,
@@ -336,12 +339,54 @@ def _serve(args: argparse.Namespace) -> str:
               else "loopback only: no API keys configured")
     print(f"fanfold: serving on http://{args.host}:{args.port} ({access}); docs at /docs",
           file=sys.stderr, flush=True)
+    if args.demo:
+        print(_store_demo(f"http://{_url_host(args.host)}:{args.port}"), flush=True)
     from .logs import configure_logging
 
     configure_logging()
     uvicorn.run("service.app:create_app", factory=True, host=args.host, port=args.port,
                 workers=args.workers, log_config=None, timeout_graceful_shutdown=20)
     return ""
+
+
+def _url_host(host: str) -> str:
+    return f"[{host}]" if ":" in host else host
+
+
+def _store_demo(base: str) -> str:
+    """Fit the demo data, store it, and return example requests to paste."""
+    from .auth import PUBLIC_TENANT
+    from .config import get_settings
+    from .db import make_engine, make_session_factory
+    from .demo import demo_frame
+    from .engine import fit_model, model_params
+    from .migrate import upgrade
+    from .schemas import ModelSettings
+    from .store import save_model
+
+    settings = get_settings()
+    engine = make_engine(settings.database_url)
+    upgrade(engine)
+    frame = demo_frame()
+    spec = ModelSettings(seasonal=True)
+    model = fit_model(spec, frame, settings)
+    tenant = settings.api_keys[0].tenant if settings.api_keys else PUBLIC_TENANT
+    with make_session_factory(engine)() as session:
+        row = save_model(session=session, tenant=tenant, name="bicycle-parts demo",
+                         params=model_params(spec), frame=frame, model=model)
+    engine.dispose()
+    key = ' -H "X-API-Key: $FANFOLD_KEY"' if settings.api_keys else ""
+    return "\n".join([
+        f"demo model {row.id}: {', '.join(frame.columns)}, monthly "
+        f"{frame.index[0]:%Y-%m} to {frame.index[-1]:%Y-%m}, VAR({model.lags_})",
+        "try:",
+        f"  curl -s{key} {base}/v1/models/{row.id}",
+        f"  curl -s{key} -X POST {base}/v1/models/{row.id}/forecasts "
+        "-H 'Content-Type: application/json' -d '{\"horizon\": 6, \"seed\": 1}'",
+        f"  curl -s{key} '{base}/v1/models/{row.id}/fan-chart?horizon=12&bands=50,80,95'",
+        f"  curl -s{key} -X POST '{base}/v1/forecasts?horizon=6&seed=1' "
+        "-H 'Content-Type: text/csv' --data-binary @examples/bike_parts_demand.csv",
+    ])
 
 
 def _new_key(args: argparse.Namespace) -> str:

@@ -73,14 +73,41 @@ def test_real_server_answers_like_the_app_and_across_restarts(demo_body, tmp_pat
              f"http://127.0.0.1:{port}"], capture_output=True, text=True, timeout=120)
         assert example.returncode == 0, example.stderr
         assert "lead time" in example.stdout and "inner_tubes" in example.stdout
+        # stored model: fit, forecast, fan chart polled with ETag, new observations
+        base = f"http://127.0.0.1:{port}/v1/models"
+        first_rows = {k: v[:40] for k, v in demo_body["series"].items()}
+        created = httpx.post(base, json={"series": first_rows, "start": "2016-01-01",
+                                         "frequency": "MS", "lags": 2}, timeout=60)
+        assert created.status_code == 201, created.text
+        model_url = created.headers["location"]
+        stored_fc = httpx.post(f"http://127.0.0.1:{port}{model_url}/forecasts",
+                               json={"horizon": 3, "seed": 2}, timeout=60)
+        chart = httpx.get(f"http://127.0.0.1:{port}{model_url}/fan-chart", timeout=60)
+        polled = httpx.get(f"http://127.0.0.1:{port}{model_url}/fan-chart", timeout=60,
+                           headers={"If-None-Match": chart.headers["etag"]})
+        assert polled.status_code == 304
+        rest = {k: v[40:] for k, v in demo_body["series"].items()}
+        grown = httpx.post(f"http://127.0.0.1:{port}{model_url}/observations",
+                           json={"series": rest, "start": "2019-05-01", "frequency": "MS"},
+                           timeout=60)
+        assert grown.status_code == 200 and grown.json()["version"] == 2
+        after = httpx.get(f"http://127.0.0.1:{port}{model_url}/fan-chart", timeout=60,
+                          headers={"If-None-Match": chart.headers["etag"]})
+        assert after.status_code == 200
+        grown_fc = httpx.post(f"http://127.0.0.1:{port}{model_url}/forecasts",
+                              json={"horizon": 3, "seed": 2}, timeout=60)
+        assert grown_fc.json() != stored_fc.json()
     finally:
         assert _stop(proc) in (0, -signal.SIGTERM)
-    proc = _start(port, log)  # a new process: same seed, same bytes
+    proc = _start(port, log)  # a new process on the same database: same seed, same bytes
     try:
         again = httpx.post(url, json=demo_body, timeout=60)
+        stored_again = httpx.post(f"http://127.0.0.1:{port}{model_url}/forecasts",
+                                  json={"horizon": 3, "seed": 2}, timeout=60)
     finally:
         _stop(proc)
     assert again.content == first.content
+    assert stored_again.content == grown_fc.content
     with TestClient(create_app(Settings())) as c:
         assert c.post("/v1/forecasts", json=demo_body).content == first.content
 
@@ -98,3 +125,24 @@ def test_loopback_hosts_are_accepted(monkeypatch, host):
     monkeypatch.setattr(uvicorn, "run", lambda *a, **k: calls.append(k))
     assert main(["serve", "--host", host, "--port", "8123"]) == 0
     assert calls and calls[0]["host"] == host and calls[0]["factory"] is True
+
+
+def test_demo_data_shipped_with_the_package_equals_the_example():
+    from service.demo import demo_frame
+
+    assert (EXAMPLES / "bike_parts_demand.csv").read_bytes() == (
+        Path(__file__).resolve().parents[2] / "service" / "demo" / "bike_parts_demand.csv"
+    ).read_bytes()
+    assert list(demo_frame().columns)[0] == "tyres"
+
+
+def test_serve_demo_stores_a_model_and_prints_requests(monkeypatch, capsys):
+    import uvicorn
+
+    monkeypatch.setattr(uvicorn, "run", lambda *a, **k: None)
+    assert main(["serve", "--demo", "--port", "8125"]) == 0
+    out = capsys.readouterr().out
+    assert "demo model" in out and "/fan-chart?horizon=12" in out
+    model_id = out.split("demo model ")[1].split(":")[0]
+    with TestClient(create_app(Settings())) as c:  # same database (FANFOLD_DATABASE_URL)
+        assert c.get(f"/v1/models/{model_id}").json()["name"] == "bicycle-parts demo"

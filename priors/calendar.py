@@ -149,6 +149,9 @@ def calendar_from_index(index: pd.DatetimeIndex, freq: str | None = None) -> Cal
         offset = pd.tseries.frequencies.to_offset(freq)
     except ValueError as exc:
         raise TimeIndexError(f"unknown frequency {freq!r}") from exc
+    if index.freq is not None and index.freq == offset:
+        # pandas checked the spacing when it attached the frequency to the index
+        return Calendar(index, offset.freqstr, _kind(offset))
     regular = pd.date_range(index[0], periods=len(index), freq=offset)
     if not regular.equals(index):
         bad = int(np.argmax(regular != index))

@@ -16,6 +16,7 @@ from .api.routes import forecasts, health, jobs, models
 from .auth import authenticate
 from .config import Settings, get_settings
 from .db import make_engine, make_session_factory
+from .engine import limit_blas_threads
 from .errors import register_error_handlers
 from .jobs import JobRunner
 from .metrics import Metrics, MetricsMiddleware
@@ -34,6 +35,7 @@ def create_app(settings: Settings | None = None) -> FastAPI:
 
     @asynccontextmanager
     async def lifespan(app: FastAPI) -> AsyncIterator[None]:
+        limit_blas_threads(settings.blas_threads)
         upgrade(app.state.engine)  # schema at the newest revision before taking requests
         app.state.jobs.start()  # re-queues jobs a crash left running, then works the queue
         app.state.ready = True

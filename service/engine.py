@@ -28,6 +28,7 @@ __all__ = [
     "fit_model",
     "forecast_answer",
     "frame_from_spec",
+    "limit_blas_threads",
     "model_params",
     "run_forecast",
 ]
@@ -101,6 +102,21 @@ def check_output_limits(spec: OutputSettings, n: int, limits: Settings) -> None:
     )
 
 
+def limit_blas_threads(limit: int) -> None:
+    """Limit BLAS threads for the rest of the process (0 = the libraries' default).
+
+    The service calls this once at start-up: per-request limits cost milliseconds
+    (threadpoolctl scans the loaded libraries) and concurrent requests would undo each
+    other's limits.
+    """
+    if limit == 0:
+        return
+    import scipy.linalg  # noqa: F401 - load scipy's own BLAS so the limit reaches it
+    from threadpoolctl import threadpool_limits
+
+    threadpool_limits(limits=limit, user_api="blas")
+
+
 @contextlib.contextmanager
 def blas_threads(limit: int):  # type: ignore[no-untyped-def]
     """Limit BLAS threads for the block (0 = leave the libraries' default)."""
@@ -135,21 +151,15 @@ def model_params(spec: ModelSettings) -> dict[str, Any]:
 def fit_model(spec: ModelSettings, frame: pd.DataFrame, limits: Settings) -> FanfoldVAR:
     """Check the limits, then fit."""
     check_model_limits(spec, frame.shape[1], frame.shape[0], limits)
-    with blas_threads(limits.blas_threads):
-        return FanfoldVAR(**model_params(spec)).fit(frame)
+    return FanfoldVAR(**model_params(spec)).fit(frame)
 
 
 def forecast_answer(model: FanfoldVAR, spec: OutputSettings, limits: Settings) -> dict[str, Any]:
     """Forecast from a fitted model; the answer in the layout of :func:`forecast_to_dict`."""
     check_output_limits(spec, model.design_.n, limits)
     seed = secrets.randbits(32) if spec.seed is None else spec.seed
-    with blas_threads(limits.blas_threads):
-        fc = model.forecast(
-            spec.horizon,
-            rng=np.random.default_rng(seed),
-            draws=spec.draws,
-            reject_explosive=spec.reject_explosive,
-        )
+    fc = model.forecast(spec.horizon, rng=np.random.default_rng(seed), draws=spec.draws,
+                        reject_explosive=spec.reject_explosive)
     if spec.cumulative:
         fc = fc.cumulative()
     payload = forecast_to_dict(model, fc, quantiles=spec.quantiles, seed=seed, draws=spec.draws)
@@ -177,8 +187,7 @@ def fan_chart(
     """Nested central bands, the median and the last ``history`` observations."""
     out = OutputSettings(horizon=horizon, draws=draws, seed=seed)
     check_output_limits(out, model.design_.n, limits)
-    with blas_threads(limits.blas_threads):
-        fc = model.forecast(horizon, rng=np.random.default_rng(seed), draws=draws)
+    fc = model.forecast(horizon, rng=np.random.default_rng(seed), draws=draws)
     median, band = fc.median(), fc.bands(bands)
     levels = model.series_.levels[-history:]
     index = model.series_.calendar.index

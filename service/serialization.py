@@ -137,7 +137,12 @@ def forecast_to_dict(
     keys = [quantile_key(q) for q in levels]
     if len(set(keys)) != len(keys):
         raise ValueError(f"quantile levels {list(levels)} are not distinct at 6 digits")
-    mean, median, qs = forecast.mean(), forecast.median(), forecast.quantiles(levels)
+    # one pass over the draws for the median and every requested level
+    with_median = np.unique(np.append(levels, 0.5))
+    table = forecast.quantiles(with_median)
+    median = table[int(np.searchsorted(with_median, 0.5))]
+    qs = table[np.searchsorted(with_median, levels)]
+    mean = forecast.mean()
     steps = forecast.steps()
     series = {
         name: {

@@ -59,7 +59,8 @@ def _query_settings(request: Request) -> ForecastSettings:
                                       for e in exc.errors()]) from None
 
 
-async def _spec_and_frame(request: Request) -> tuple[ForecastSettings, Any]:
+async def _spec_and_data(request: Request) -> tuple[ForecastSettings, Any]:
+    """The settings and a function that builds the data frame (run off the event loop)."""
     ctype = request.headers.get("content-type", "").split(";")[0].strip().lower()
     body = await request.body()
     if ctype in ("application/json", ""):
@@ -67,10 +68,15 @@ async def _spec_and_frame(request: Request) -> tuple[ForecastSettings, Any]:
             spec = ForecastCreate.model_validate_json(body or b"{}")
         except ValidationError as exc:
             raise RequestValidationError(exc.errors()) from None
-        return spec, frame_from_spec(spec)
+        return spec, lambda: frame_from_spec(spec)
     if ctype in ("text/csv", "application/csv"):
-        return _query_settings(request), frame_from_csv(body.decode("utf-8-sig", "replace"))
+        text = body.decode("utf-8-sig", "replace")
+        return _query_settings(request), lambda: frame_from_csv(text)
     raise _Unsupported(ctype)
+
+
+def _forecast(spec: ForecastSettings, make_frame: Any, settings: Any) -> dict[str, Any]:
+    return run_forecast(spec, make_frame(), settings)
 
 
 class _Unsupported(Exception):
@@ -92,14 +98,14 @@ class _Unsupported(Exception):
 async def create_forecast(request: Request, settings: SettingsDep,
                           metrics: MetricsDep) -> JSONResponse:
     try:
-        spec, frame = await _spec_and_frame(request)
+        spec, make_frame = await _spec_and_data(request)
     except _Unsupported as exc:
         return problem(415, f"content type {exc.ctype!r} is not supported; send "
                             "application/json or text/csv", request=request)
     start = time.perf_counter()
     try:
         payload = await asyncio.wait_for(
-            run_in_threadpool(run_forecast, spec, frame, settings),
+            run_in_threadpool(_forecast, spec, make_frame, settings),
             timeout=settings.request_timeout_s)
     except TimeoutError:
         return problem(503, f"the forecast took longer than {settings.request_timeout_s:g} s; "

@@ -58,7 +58,7 @@ def create_app(settings: Settings | None = None) -> FastAPI:
     app.state.ready = False
     app.state.engine = make_engine(settings.database_url)
     app.state.sessions = make_session_factory(app.state.engine)
-    app.state.jobs = JobRunner(app.state.sessions, settings)
+    app.state.jobs = JobRunner(app.state.sessions, settings, app.state.metrics)
     register_error_handlers(app)
     app.state.api_keys = {k.id: k for k in settings.api_keys}
     app.include_router(health.router)  # probes stay open

@@ -13,6 +13,7 @@ from __future__ import annotations
 import datetime as dt
 import logging
 import threading
+import time
 import uuid
 from typing import Any
 
@@ -24,6 +25,7 @@ from priors.errors import PriorsError
 from .config import Settings
 from .engine import fit_model, frame_from_spec, model_params
 from .errors import LimitExceeded
+from .metrics import Metrics
 from .orm import Job
 from .schemas import ModelCreate
 from .store import save_model
@@ -71,9 +73,11 @@ def cancel_job(*, session: Session, job: Job) -> Job:
 class JobRunner:
     """Worker threads that claim queued jobs and run them."""
 
-    def __init__(self, sessions: sessionmaker[Session], settings: Settings) -> None:
+    def __init__(self, sessions: sessionmaker[Session], settings: Settings,
+                 metrics: Metrics | None = None) -> None:
         self.sessions = sessions
         self.settings = settings
+        self.metrics = metrics
         self._stop = threading.Event()
         self._wake = threading.Event()
         self._threads: list[threading.Thread] = []
@@ -122,6 +126,8 @@ class JobRunner:
             s.commit()
         if stale:
             log.warning("recovered %d job(s) whose lease ran out", len(stale))
+            if self.metrics is not None:
+                self.metrics.jobs_recovered.inc(len(stale))
             self._wake.set()
         return len(stale)
 
@@ -173,7 +179,10 @@ class JobRunner:
             try:
                 spec = ModelCreate.model_validate(job.payload)
                 frame = frame_from_spec(spec)
+                started = time.perf_counter()
                 model = fit_model(spec, frame, self.settings)
+                if self.metrics is not None:
+                    self.metrics.fit.observe(time.perf_counter() - started)
                 s.execute(update(Job).where(*mine).values(progress=0.9, updated_at=_now()))
                 s.commit()
                 s.refresh(job)

@@ -31,6 +31,13 @@ class Metrics:
             "fanfold_http_request_duration_seconds", "HTTP request duration",
             ["method", "route"], registry=self.registry,
             buckets=(0.005, 0.01, 0.025, 0.05, 0.1, 0.25, 0.5, 1, 2.5, 5, 10, 30, 60))
+        self.fit = Histogram(
+            "fanfold_fit_duration_seconds", "Engine time of model fits (requests and jobs)",
+            registry=self.registry,
+            buckets=(0.005, 0.01, 0.025, 0.05, 0.1, 0.25, 0.5, 1, 2.5, 5, 10, 30, 60, 300))
+        self.jobs_recovered = Counter(
+            "fanfold_jobs_recovered_total", "Running jobs whose lease ran out (worker lost)",
+            registry=self.registry)
         self.forecast = Histogram(
             "fanfold_forecast_duration_seconds", "Engine time of one-shot forecasts",
             registry=self.registry,

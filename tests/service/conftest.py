@@ -18,7 +18,8 @@ DEMO_CSV = Path(__file__).resolve().parents[2] / "examples" / "bike_parts_demand
 @pytest.fixture(autouse=True)
 def _isolated_environment(monkeypatch, tmp_path):
     """No FANFOLD_* variable leaks in, and a default Settings() uses a temporary file."""
-    for key in [k for k in os.environ if k.startswith("FANFOLD_")]:
+    keep = {"FANFOLD_UPDATE_OPENAPI"}
+    for key in [k for k in os.environ if k.startswith("FANFOLD_") and k not in keep]:
         monkeypatch.delenv(key)
     monkeypatch.setenv("FANFOLD_DATABASE_URL", f"sqlite:///{tmp_path / 'fanfold.db'}")
     get_settings.cache_clear()

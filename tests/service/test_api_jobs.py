@@ -41,6 +41,7 @@ def test_async_fit_runs_as_a_job_and_links_the_model(client, model_body):
     stored = client.get(job["result"]).json()
     direct = client.post("/v1/models", json=model_body).json()
     assert stored["coefficients"] == direct["coefficients"]
+    assert "fanfold_fit_duration_seconds_count 2.0" in client.get("/metrics").text
 
 
 def test_a_failing_fit_ends_failed_with_a_problem(client, model_body):
@@ -77,6 +78,7 @@ def test_jobs_left_running_by_a_crash_are_requeued_then_failed(tmp_path, model_b
                 s.execute(update(Job).where(Job.id == job_id).values(lease_until=past))
                 s.commit()
             assert runner.recover() == 1
+        assert "fanfold_jobs_recovered_total 2.0" in c.get("/metrics").text
         job = c.get(location).json()
         assert job["status"] == "failed" and job["attempts"] == 2
         assert "stopped 2 time(s)" in job["problem"]["detail"]

@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import asyncio
 import hashlib
+import time
 import uuid
 from typing import Annotated, Any
 
@@ -124,7 +125,9 @@ async def create_model(
                              max_attempts=settings.job_max_attempts, commit=False)
             status, out, location = 202, job_public(job), f"/v1/jobs/{job.id}"
         else:
+            started = time.perf_counter()
             model = fit_model(body, frame, settings)
+            request.app.state.metrics.fit.observe(time.perf_counter() - started)
             row = save_model(session=session, tenant=tenant, name=body.name,
                              params=model_params(body), frame=frame, model=model,
                              commit=False)

@@ -47,7 +47,7 @@ def read_job(job_id: uuid.UUID, session: SessionDep, tenant: TenantDep) -> JSONR
     return JSONResponse(job_public(job), headers=headers)
 
 
-@router.delete("/{job_id}", response_model=JobPublic,
+@router.delete("/{job_id}", response_model=JobPublic, status_code=202,
                responses={**_NOT_FOUND, 409: {"description": "the job already finished",
                                               "content": {PROBLEM_JSON: {}}}},
                summary="Cancel a job (queued: at once; running: it stops before storing)")

@@ -102,5 +102,42 @@ def _openapi(app: FastAPI) -> dict[str, object]:
         components = schema.setdefault("components", {}).setdefault("schemas", {})
         components.update(extra.pop("$defs", {}))
         components["ForecastCreate"] = extra
+        _problem_responses(schema)
         app.openapi_schema = schema
     return app.openapi_schema
+
+
+_PROBLEM_SCHEMA = {
+    "title": "Problem",
+    "description": "RFC 9457 problem details",
+    "type": "object",
+    "required": ["type", "title", "status", "detail"],
+    "properties": {
+        "type": {"type": "string"},
+        "title": {"type": "string"},
+        "status": {"type": "integer"},
+        "detail": {"type": "string"},
+        "instance": {"type": "string"},
+        "request_id": {"type": "string"},
+        "errors": {"type": "array", "items": {
+            "type": "object", "required": ["field", "message"],
+            "properties": {"field": {"type": "string"}, "message": {"type": "string"}}}},
+    },
+}
+
+
+def _problem_responses(schema: dict[str, Any]) -> None:
+    """Every error response is application/problem+json with the Problem schema."""
+    components = schema["components"]["schemas"]
+    components["Problem"] = _PROBLEM_SCHEMA
+    for name in ("HTTPValidationError", "ValidationError"):
+        components.pop(name, None)
+    ref = {"application/problem+json": {"schema": {"$ref": "#/components/schemas/Problem"}}}
+    for methods in schema["paths"].values():
+        for op in methods.values():
+            responses = op.setdefault("responses", {})
+            if "requestBody" in op:
+                responses.setdefault("400", {"description": "the body is not valid JSON"})
+            for code, response in responses.items():
+                if code.isdigit() and int(code) >= 400:
+                    response["content"] = ref

@@ -32,6 +32,7 @@ __all__ = [
 ]
 
 Number = Annotated[float, Field(allow_inf_nan=False)]
+Flag = Annotated[bool, Field(strict=True)]  # JSON true/false only, not 0/1
 Positive = Annotated[float, Field(gt=0, allow_inf_nan=False)]
 Transform = Literal["none", "log", "log1p", "diff", "logdiff"]
 assert set(Transform.__args__) == set(TRANSFORMS)  # type: ignore[attr-defined]
@@ -62,12 +63,12 @@ class ModelSettings(BaseModel):
         None, description="sum-of-coefficients weight (smaller = tighter); null = off")
     initial: Positive | Literal["auto"] | None = Field(
         None, description="dummy-initial-observation weight; null = off")
-    hyperprior: bool = Field(False, description="tune under Gamma hyperpriors")
+    hyperprior: Flag = Field(False, description="tune under Gamma hyperpriors")
     transforms: Transform | dict[str, Transform] | None = Field(
         None, description="one transform for all series or one per series name")
-    seasonal: bool = Field(False, description="seasonal dummies by the data's frequency")
-    trend: bool = False
-    constant: bool = True
+    seasonal: Flag = Field(False, description="seasonal dummies by the data's frequency")
+    trend: Flag = False
+    constant: Flag = True
 
     @field_validator("lags")
     @classmethod
@@ -96,8 +97,8 @@ class OutputSettings(BaseModel):
         [0.05, 0.5, 0.95], min_length=1, max_length=25)
     draws: int = Field(2000, ge=1, le=10_000, description="simulated paths")
     seed: int | None = Field(None, ge=0, lt=2**63, description="default: a fresh seed")
-    cumulative: bool = Field(False, description="running totals over steps 1..horizon")
-    reject_explosive: bool = False
+    cumulative: Flag = Field(False, description="running totals over steps 1..horizon")
+    reject_explosive: Flag = False
 
     @field_validator("quantiles")
     @classmethod
@@ -118,7 +119,8 @@ class SeriesData(BaseModel):
 
     model_config = ConfigDict(extra="forbid")
 
-    series: dict[str, list[Number]] = Field(
+    series: dict[Annotated[str, Field(min_length=1, max_length=100)],
+                 Annotated[list[Number], Field(min_length=3)]] = Field(
         ..., min_length=1, description="values per series name, oldest first, equal lengths")
     start: dt.date | None = Field(None, description="date of the first value")
     frequency: str | None = Field(

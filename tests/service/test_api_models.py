@@ -159,7 +159,8 @@ def test_observations_must_continue_the_data(client, demo):
            "start": part.index[101].date().isoformat(), "frequency": "MS"}
     r = client.post(f"/v1/models/{model_id}/observations", json=gap)
     assert r.status_code == 422 and r.json()["type"].endswith("TimeIndexError")
-    one = {"series": {"tyres": [1000.0]}, "start": "2024-05-01", "frequency": "MS"}
+    one = {"series": {"tyres": [1000.0, 1010.0, 990.0]}, "start": "2024-05-01",
+           "frequency": "MS"}
     r = client.post(f"/v1/models/{model_id}/observations", json=one)
     assert r.status_code == 422 and "every series" in r.json()["detail"]
     assert client.get(f"/v1/models/{model_id}").json()["version"] == 1  # unchanged

@@ -20,8 +20,10 @@ from ..deps import MetricsDep, SettingsDep
 
 router = APIRouter(prefix="/v1", tags=["forecasts"])
 
-_CSV_EXAMPLE = ("date,tyres,inner_tubes\n2016-01-01,1256,1986\n2016-02-01,1279,2074\n"
-                "2016-03-01,1329,2216\n...")
+_CSV_EXAMPLE = "date,tyres,inner_tubes\n" + "".join(
+    f"2016-{m:02d}-01,{t},{u}\n" for m, t, u in zip(
+        range(1, 13), (1256, 1279, 1329, 1236, 1355, 1499, 1510, 1366, 1321, 1334, 1182, 1081),
+        (1986, 2074, 2216, 2364, 2342, 2408, 2654, 2514, 2462, 2415, 2196, 2099), strict=True))
 _PROBLEMS: dict[int | str, dict[str, Any]] = {
     code: {"description": text, "content": {PROBLEM_JSON: {}}}
     for code, text in ((413, "body over the size limit"), (415, "not JSON or CSV"),
@@ -52,6 +54,13 @@ def _query_settings(request: Request) -> ForecastSettings:
     for key in ("sum_coef", "initial"):
         if raw.get(key) in ("", "off", "null"):
             raw[key] = None
+    for key in ("hyperprior", "seasonal", "trend", "constant", "cumulative",
+                "reject_explosive"):  # query strings: true/false, 1/0, yes/no
+        value = str(raw.get(key, "")).lower()
+        if value in ("true", "1", "yes", "on"):
+            raw[key] = True
+        elif value in ("false", "0", "no", "off"):
+            raw[key] = False
     try:
         return ForecastSettings.model_validate(raw)
     except ValidationError as exc:

@@ -75,21 +75,6 @@ def _solve_upper(R: FloatArray, rhs: FloatArray, *, trans: bool = False) -> Floa
     return solve_triangular(R, rhs, lower=False, trans=1 if trans else 0, check_finite=False)
 
 
-def _qr_r(A: FloatArray, b: FloatArray) -> tuple[FloatArray, FloatArray]:
-    """R with positive diagonal and Q'b for A = QR (A is (N, k), N >= k)."""
-    Q, R = np.linalg.qr(A, mode="reduced")
-    sign = np.where(np.diag(R) < 0, -1.0, 1.0)
-    R = R * sign[:, None]
-    Qtb = (Q.T @ b) * sign[:, None]
-    d = np.abs(np.diag(R))
-    if d.size and (not np.all(np.isfinite(d)) or d.min() <= 1e-13 * d.max()):
-        raise NotPositiveDefiniteError(
-            "the regressors are collinear (posterior precision is singular); remove "
-            "duplicate series or deterministic terms, or use a proper prior"
-        )
-    return R, Qtb
-
-
 def _chol_logdet(S: FloatArray, what: str) -> float:
     try:
         L = np.linalg.cholesky(S)
@@ -98,16 +83,14 @@ def _chol_logdet(S: FloatArray, what: str) -> float:
     return 2.0 * float(np.sum(np.log(np.diag(L))))
 
 
-def _update(prior: NIWPrior, X: FloatArray, Y: FloatArray) -> NIWPosterior:
-    """NIW update on data (X, Y) without dummies; log_ml of exactly these rows."""
-    T, n = Y.shape
-    k = X.shape[1]
-    root = 1.0 / np.sqrt(prior.omega)
-    # one QR of [A, b] without Q: its R is [[R, Q'b], [0, R22]] with R22'R22 = E'E of
-    # the stacked rows (Golub & Van Loan 5.3), so Q, Q'b and the residuals are not formed
-    Rab = np.linalg.qr(np.vstack([np.hstack([X, Y]),
-                                  np.hstack([np.diag(root), prior.B0 * root[:, None]])]),
-                       mode="r")
+def _stacked_least_squares(Ab: FloatArray, k: int) -> tuple[FloatArray, FloatArray, FloatArray]:
+    """Least squares of the last columns of ``Ab`` on its first k, from one QR.
+
+    The R factor of [A, b] is [[R, Q'b], [0, R22]] with R22'R22 the residual
+    cross-products (Golub & Van Loan, sec. 5.3), so Q and the residuals are never formed.
+    Returns R (positive diagonal, R'R = A'A), the coefficients and R22.
+    """
+    Rab = np.linalg.qr(Ab, mode="r")
     sign = np.where(np.diag(Rab)[:k] < 0, -1.0, 1.0)[:, None]
     R, Qtb, R22 = Rab[:k, :k] * sign, Rab[:k, k:] * sign, Rab[k:, k:]
     d = np.diag(R)
@@ -116,7 +99,17 @@ def _update(prior: NIWPrior, X: FloatArray, Y: FloatArray) -> NIWPosterior:
             "the regressors are collinear (posterior precision is singular); remove "
             "duplicate series or deterministic terms, or use a proper prior"
         )
-    B = _solve_upper(R, Qtb)
+    return R, _solve_upper(R, Qtb), R22
+
+
+def _update(prior: NIWPrior, X: FloatArray, Y: FloatArray) -> NIWPosterior:
+    """NIW update on data (X, Y) without dummies; log_ml of exactly these rows."""
+    T, n = Y.shape
+    k = X.shape[1]
+    root = 1.0 / np.sqrt(prior.omega)
+    R, B, R22 = _stacked_least_squares(
+        np.vstack([np.hstack([X, Y]), np.hstack([np.diag(root), prior.B0 * root[:, None]])]),
+        k)
     S = prior.S0 + R22.T @ R22
     S = 0.5 * (S + S.T)
     df = prior.df + T
@@ -157,10 +150,8 @@ def flat_posterior(design: Design) -> NIWPosterior:
             f"the flat prior needs more rows than regressors + series + 1: {T} rows for "
             f"{k} regressors and {n} series; use the Minnesota prior, fewer lags or more data"
         )
-    R, Qtb = _qr_r(design.X, design.Y)
-    B = _solve_upper(R, Qtb)
-    resid = design.Y - design.X @ B
-    S = resid.T @ resid
+    R, B, R22 = _stacked_least_squares(np.hstack([design.X, design.Y]), k)
+    S = R22.T @ R22
     return NIWPosterior(B, R, 0.5 * (S + S.T), float(T - k), None)
 
 
@@ -260,11 +251,8 @@ def update_posterior(post: NIWPosterior, X: FloatArray, Y: FloatArray) -> NIWPos
     k = post.k
     if T == 0:
         return post
-    stacked = np.vstack([np.hstack([post.R, post.R @ post.B]), np.hstack([X, Y])])
-    Rab = np.linalg.qr(stacked, mode="r")
-    sign = np.where(np.diag(Rab)[:k] < 0, -1.0, 1.0)[:, None]
-    R, Qtb, R22 = Rab[:k, :k] * sign, Rab[:k, k:] * sign, Rab[k:, k:]
-    B = _solve_upper(R, Qtb)
+    R, B, R22 = _stacked_least_squares(
+        np.vstack([np.hstack([post.R, post.R @ post.B]), np.hstack([X, Y])]), k)
     S = post.S + R22.T @ R22
     S = 0.5 * (S + S.T)
     df = post.df + T

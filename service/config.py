@@ -40,8 +40,9 @@ class Settings(BaseSettings):
     # background jobs: fits over this size (or with "Prefer: respond-async") become jobs
     job_workers: int = Field(2, ge=0)  # threads in this process; 0 = none (tests)
     job_max_attempts: int = Field(3, ge=1)
-    fit_timeout_s: float = Field(1800.0, gt=0)  # the lease of a running job
-    job_recovery_interval_s: float = Field(30.0, gt=0)
+    fit_timeout_s: float = Field(1800.0, gt=0)  # wall-clock limit of one fit in a job
+    job_lease_s: float = Field(30.0, gt=0)  # renewed by a heartbeat while the job runs
+    job_recovery_interval_s: float = Field(10.0, gt=0)
     sync_max_coefficients: int = Field(2_500, ge=1)
 
     # [{"id": "ops", "sha256": "<hex of the whole key>", "tenant": "acme"}, ...]; create

@@ -1,11 +1,14 @@
 """Background jobs: rows in the database, run by a pool of worker threads.
 
 Claiming is a conditional UPDATE (``... WHERE id = ? AND status = 'queued'``, checked by
-row count), portable to SQLite and PostgreSQL. A running job holds a lease of
-``fit_timeout_s``; :meth:`JobRunner.recover` (at start and every
-``job_recovery_interval_s``) puts jobs whose lease ran out back in the queue, or fails
-them once they used ``job_max_attempts``. A worker finishing late cannot overwrite a job
-that was re-queued meanwhile: its final UPDATE requires the attempt number it claimed.
+row count), portable to SQLite and PostgreSQL. A running job holds a short lease
+(``job_lease_s``) that a heartbeat renews while the fit runs, up to ``fit_timeout_s``
+of wall-clock time. So when a worker dies (crash, kill -9, restart) its jobs' leases run
+out within ``job_lease_s``, and :meth:`JobRunner.recover` (at start and every
+``job_recovery_interval_s``) puts them back in the queue, or fails them once they used
+``job_max_attempts``; a fit that runs past ``fit_timeout_s`` loses its lease the same
+way. A worker finishing late cannot overwrite a job that was re-queued meanwhile: its
+final UPDATE requires the attempt number it claimed.
 """
 
 from __future__ import annotations
@@ -148,7 +151,7 @@ class JobRunner:
                 claimed = s.execute(
                     update(Job).where(Job.id == job_id, Job.status == "queued").values(
                         status="running", attempts=Job.attempts + 1, progress=0.1,
-                        lease_until=_now() + dt.timedelta(seconds=self.settings.fit_timeout_s),
+                        lease_until=_now() + dt.timedelta(seconds=self.settings.job_lease_s),
                         updated_at=_now()))
                 if claimed.rowcount == 1:
                     s.commit()
@@ -169,9 +172,38 @@ class JobRunner:
                 continue
             self.run_one(*claim)
 
+    def _heartbeat(self, job_id: str, attempt: int, done: threading.Event) -> None:
+        """Renew the lease every third of it, until done or past the fit time limit."""
+        lease = self.settings.job_lease_s
+        deadline = time.monotonic() + self.settings.fit_timeout_s
+        while not done.wait(lease / 3):
+            if time.monotonic() > deadline:
+                log.warning("job over its time limit; letting its lease run out",
+                            extra={"job_id": job_id})
+                return
+            try:
+                with self.sessions() as s:
+                    s.execute(update(Job).where(
+                        Job.id == job_id, Job.status == "running", Job.attempts == attempt,
+                    ).values(lease_until=_now() + dt.timedelta(seconds=lease)))
+                    s.commit()
+            except Exception:  # the next beat tries again; the lease is the safety net
+                log.exception("heartbeat failed", extra={"job_id": job_id})
+
     def run_one(self, job_id: str, attempt: int) -> None:
         """Run a claimed job to a terminal state (or leave it to recovery if this
         worker's claim was superseded)."""
+        done = threading.Event()
+        beat = threading.Thread(target=self._heartbeat, args=(job_id, attempt, done),
+                                daemon=True, name=f"fanfold-heartbeat-{job_id[:8]}")
+        beat.start()
+        try:
+            self._run_claimed(job_id, attempt)
+        finally:
+            done.set()
+            beat.join(5)
+
+    def _run_claimed(self, job_id: str, attempt: int) -> None:
         with self.sessions() as s:
             job = s.get(Job, job_id)
             assert job is not None

@@ -119,3 +119,34 @@ def test_a_superseded_worker_cannot_overwrite_the_job(tmp_path, model_body):
         runner.run_one(job_id, second_attempt)
         assert c.get(location).json()["status"] == "succeeded"
         assert len(c.get("/v1/models").json()["data"]) == 1
+
+
+def test_heartbeat_keeps_a_long_fit_leased(tmp_path, model_body, monkeypatch):
+    import service.jobs as jobs
+
+    real = jobs.fit_model
+
+    def slow_fit(*args, **kwargs):
+        time.sleep(1.0)  # several leases long
+        return real(*args, **kwargs)
+
+    monkeypatch.setattr(jobs, "fit_model", slow_fit)
+    settings = Settings(database_url=f"sqlite:///{tmp_path / 'j.db'}", job_workers=1,
+                        job_lease_s=0.3, job_recovery_interval_s=0.1)
+    with TestClient(create_app(settings)) as c:
+        location = c.post("/v1/models", json=model_body, headers=ASYNC).headers["location"]
+        job = _wait(c, location)
+    assert job["status"] == "succeeded" and job["attempts"] == 1  # never taken away
+
+
+def test_fit_past_its_time_limit_loses_the_lease(tmp_path, model_body, monkeypatch):
+    import service.jobs as jobs
+
+    monkeypatch.setattr(jobs, "fit_model", lambda *a, **k: time.sleep(1.5))
+    settings = Settings(database_url=f"sqlite:///{tmp_path / 'j.db'}", job_workers=1,
+                        job_lease_s=0.2, job_recovery_interval_s=0.1, fit_timeout_s=0.3,
+                        job_max_attempts=1)
+    with TestClient(create_app(settings)) as c:
+        location = c.post("/v1/models", json=model_body, headers=ASYNC).headers["location"]
+        job = _wait(c, location)
+    assert job["status"] == "failed" and "stopped 1 time(s)" in job["problem"]["detail"]

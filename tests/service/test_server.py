@@ -27,8 +27,8 @@ def _free_port() -> int:
         return s.getsockname()[1]
 
 
-def _start(port: int, log: Path) -> subprocess.Popen:
-    env = {**os.environ, "FANFOLD_BLAS_THREADS": "1"}
+def _start(port: int, log: Path, extra_env: dict[str, str] | None = None) -> subprocess.Popen:
+    env = {**os.environ, "FANFOLD_BLAS_THREADS": "1", **(extra_env or {})}
     with log.open("ab") as err:
         proc = subprocess.Popen(
             [sys.executable, "-m", "service", "serve", "--port", str(port)],
@@ -127,6 +127,12 @@ def test_loopback_hosts_are_accepted(monkeypatch, host):
     assert calls and calls[0]["host"] == host and calls[0]["factory"] is True
 
 
+@pytest.fixture
+def model_body_small(demo_body):
+    return {**{k: v for k, v in demo_body.items() if k in ("series", "start", "frequency")},
+            "lags": 1}
+
+
 def test_demo_data_shipped_with_the_package_equals_the_example():
     from service.demo import demo_frame
 
@@ -146,3 +152,44 @@ def test_serve_demo_stores_a_model_and_prints_requests(monkeypatch, capsys):
     model_id = out.split("demo model ")[1].split(":")[0]
     with TestClient(create_app(Settings())) as c:  # same database (FANFOLD_DATABASE_URL)
         assert c.get(f"/v1/models/{model_id}").json()["name"] == "bicycle-parts demo"
+
+
+def test_kill_9_mid_job_then_restart_finishes_it(tmp_path, model_body_small):
+    """A server killed with SIGKILL while a job is running: the next server re-queues the
+    job once its lease runs out and finishes it; the database stays intact."""
+    import sqlite3
+
+    db = tmp_path / "crash.db"
+    port = _free_port()
+    log = tmp_path / "server.log"
+    env_a = {"FANFOLD_DATABASE_URL": f"sqlite:///{db}", "FANFOLD_JOB_WORKERS": "0",
+             "FANFOLD_JOB_LEASE_S": "1", "FANFOLD_JOB_RECOVERY_INTERVAL_S": "0.5"}
+    proc = _start(port, log, env_a)
+    try:
+        r = httpx.post(f"http://127.0.0.1:{port}/v1/models", json=model_body_small,
+                       headers={"Prefer": "respond-async"}, timeout=60)
+        assert r.status_code == 202
+        location = r.headers["location"]
+        job_id = location.rsplit("/", 1)[1]
+        with sqlite3.connect(db) as conn:  # its worker takes the job ... and dies
+            conn.execute("UPDATE jobs SET status='running', attempts=1, "
+                         "lease_until=datetime('now', '+1 second') WHERE id=?", (job_id,))
+    finally:
+        proc.kill()  # SIGKILL: no shutdown, no cleanup
+        proc.wait(timeout=30)
+    proc = _start(port, log, {**env_a, "FANFOLD_JOB_WORKERS": "1"})
+    try:
+        deadline = time.monotonic() + 60
+        while True:
+            job = httpx.get(f"http://127.0.0.1:{port}{location}", timeout=10).json()
+            if job["status"] in ("succeeded", "failed"):
+                break
+            assert time.monotonic() < deadline, job
+            time.sleep(0.2)
+        assert job["status"] == "succeeded" and job["attempts"] == 2
+        models = httpx.get(f"http://127.0.0.1:{port}/v1/models", timeout=10).json()["data"]
+        assert [m["id"] for m in models] == [job["result"].rsplit("/", 1)[1]]
+    finally:
+        _stop(proc)
+    with sqlite3.connect(db) as conn:
+        assert conn.execute("PRAGMA integrity_check").fetchone()[0] == "ok"

@@ -22,6 +22,7 @@ from .jobs import JobRunner
 from .metrics import Metrics, MetricsMiddleware
 from .middleware import BodyLimitMiddleware, RequestIdMiddleware
 from .migrate import upgrade
+from .ratelimit import RateLimiter, enforce_rate_limit
 from .schemas import ForecastCreate
 
 __all__ = ["create_app"]
@@ -62,7 +63,10 @@ def create_app(settings: Settings | None = None) -> FastAPI:
     register_error_handlers(app)
     app.state.api_keys = {k.id: k for k in settings.api_keys}
     app.include_router(health.router)  # probes stay open
-    protected = [Depends(authenticate)]
+    app.state.rate_limiter = (RateLimiter(settings.rate_limit_per_minute,
+                                          settings.rate_limit_burst)
+                              if settings.rate_limit_per_minute > 0 else None)
+    protected = [Depends(authenticate), Depends(enforce_rate_limit)]
     app.include_router(health.metrics_router, dependencies=protected)
     app.include_router(forecasts.router, dependencies=protected)
     app.include_router(models.router, dependencies=protected)
@@ -133,11 +137,16 @@ def _problem_responses(schema: dict[str, Any]) -> None:
     for name in ("HTTPValidationError", "ValidationError"):
         components.pop(name, None)
     ref = {"application/problem+json": {"schema": {"$ref": "#/components/schemas/Problem"}}}
-    for methods in schema["paths"].values():
+    for path, methods in schema["paths"].items():
         for op in methods.values():
             responses = op.setdefault("responses", {})
             if "requestBody" in op:
                 responses.setdefault("400", {"description": "the body is not valid JSON"})
+            if path.startswith("/v1/") or path == "/metrics":
+                responses.setdefault("401", {"description": "missing or invalid API key "
+                                                            "(when keys are configured)"})
+                responses.setdefault("429", {"description": "over the rate limit; see "
+                                                            "Retry-After"})
             for code, response in responses.items():
                 if code.isdigit() and int(code) >= 400:
                     response["content"] = ref

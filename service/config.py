@@ -48,6 +48,10 @@ class Settings(BaseSettings):
     # [{"id": "ops", "sha256": "<hex of the whole key>", "tenant": "acme"}, ...]; create
     # entries with `fanfold keys new --id ops --tenant acme`
     api_keys: list[ApiKey] = []
+    # per tenant and process; 0 = no limit (OWASP API4)
+    rate_limit_per_minute: float = Field(600.0, ge=0)
+    rate_limit_burst: int = Field(60, ge=1)
+    max_running_jobs_per_tenant: int = Field(4, ge=1)
     docs_enabled: bool = True
     cors_origins: list[str] = []
     blas_threads: int = Field(1, ge=0)  # 0 = the libraries' default

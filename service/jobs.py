@@ -20,7 +20,7 @@ import time
 import uuid
 from typing import Any
 
-from sqlalchemy import select, update
+from sqlalchemy import func, select, update
 from sqlalchemy.orm import Session, sessionmaker
 
 from priors.errors import PriorsError
@@ -143,9 +143,17 @@ class JobRunner:
 
     # ------------------------------------------------------------------ work
     def _claim(self) -> tuple[str, int] | None:
+        """Take the oldest queued job of a tenant below its cap of running jobs (a soft
+        cap: workers claiming at the same moment can exceed it by their number)."""
+        cap = self.settings.max_running_jobs_per_tenant
         with self.sessions() as s:
-            ids = list(s.scalars(select(Job.id).where(Job.status == "queued")
-                                 .order_by(Job.created_at).limit(5)))
+            busy = {t for t, count in s.execute(
+                select(Job.tenant_id, func.count()).where(Job.status == "running")
+                .group_by(Job.tenant_id)) if count >= cap}
+            query = select(Job.id).where(Job.status == "queued")
+            if busy:
+                query = query.where(Job.tenant_id.not_in(busy))
+            ids = list(s.scalars(query.order_by(Job.created_at).limit(5)))
             for job_id in ids:
                 attempts = s.scalar(select(Job.attempts).where(Job.id == job_id))
                 claimed = s.execute(

@@ -150,3 +150,15 @@ def test_fit_past_its_time_limit_loses_the_lease(tmp_path, model_body, monkeypat
         location = c.post("/v1/models", json=model_body, headers=ASYNC).headers["location"]
         job = _wait(c, location)
     assert job["status"] == "failed" and "stopped 1 time(s)" in job["problem"]["detail"]
+
+
+def test_running_jobs_are_capped_per_tenant(tmp_path, model_body):
+    settings = Settings(database_url=f"sqlite:///{tmp_path / 'j.db'}", job_workers=0,
+                        max_running_jobs_per_tenant=2)
+    app = create_app(settings)
+    with TestClient(app) as c:
+        for _ in range(3):
+            c.post("/v1/models", json=model_body, headers=ASYNC)
+        runner = app.state.jobs
+        assert runner._claim() is not None and runner._claim() is not None
+        assert runner._claim() is None  # the tenant already runs two

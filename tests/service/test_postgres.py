@@ -67,7 +67,8 @@ def test_full_flow_on_postgres(pg_url, demo_body):
 
 def test_concurrent_claims_take_each_job_once(pg_url, demo_body):
     body = {k: v for k, v in demo_body.items() if k in ("series", "start", "frequency")}
-    app = create_app(Settings(database_url=pg_url, job_workers=0))
+    app = create_app(Settings(database_url=pg_url, job_workers=0,
+                              max_running_jobs_per_tenant=100))
     with TestClient(app) as c:
         for _ in range(6):
             c.post("/v1/models", json={**body, "lags": 1}, headers={"Prefer": "respond-async"})

@@ -15,6 +15,8 @@ from fastapi.responses import JSONResponse
 from sqlalchemy.exc import IntegrityError
 from starlette.exceptions import HTTPException
 
+from priors import FanfoldVAR
+
 from ...engine import (
     check_model_limits,
     fan_chart,
@@ -66,8 +68,9 @@ def _row_or_404(session: Any, tenant: str, model_id: uuid.UUID) -> StoredModel:
     return row
 
 
-def _public(row: StoredModel) -> dict[str, Any]:
-    model = load_fitted(row)
+def _public(row: StoredModel, model: FanfoldVAR | None = None) -> dict[str, Any]:
+    """The model resource; ``model`` is the fitted model when at hand (else restored)."""
+    model = load_fitted(row) if model is None else model
     summary = summary_to_dict(model, 0.9)
     return {
         "id": row.id, "name": row.name, "status": row.status,
@@ -132,7 +135,7 @@ async def create_model(
                              params=model_params(body), frame=frame, model=model,
                              commit=False)
             status = 201
-            out = ModelPublic.model_validate(_public(row)).model_dump(mode="json")
+            out = ModelPublic.model_validate(_public(row, model)).model_dump(mode="json")
             location = f"/v1/models/{row.id}"
         if idempotency_key:
             remember_idempotent(session=session, tenant=tenant, key=idempotency_key,
@@ -258,6 +261,6 @@ async def append_observations(model_id: uuid.UUID, body: ObservationsCreate,
                                      + ", ".join(map(str, old.columns)))
         grown = model.append(new)
         replace_fitted(session=session, row=row, frame=pd.concat([old, new]), model=grown)
-        return _public(row)
+        return _public(row, grown)
 
     return await _timed(settings, work)

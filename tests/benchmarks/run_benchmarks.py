@@ -271,6 +271,30 @@ def floor_estimate(n: int, p: int, T: int, gflops: float, repeats: int) -> dict[
 
 
 # ---------------------------------------------------------------------------- header
+def cpu_model() -> str:
+    """The processor's model name from /proc/cpuinfo ("?" where unknown)."""
+    try:
+        for line in Path("/proc/cpuinfo").read_text().splitlines():
+            if line.startswith("model name"):
+                return line.split(":", 1)[1].strip()
+    except OSError:
+        pass
+    return "?"
+
+
+def repo_commit(*folders: str) -> str:
+    """The short commit, noting uncommitted changes under ``folders``."""
+    try:
+        commit = subprocess.run(["git", "rev-parse", "--short", "HEAD"], cwd=REPO,
+                                capture_output=True, text=True, check=False).stdout.strip()
+        dirty = subprocess.run(["git", "status", "--porcelain", *folders], cwd=REPO,
+                               capture_output=True, text=True, check=False).stdout.strip()
+    except OSError:
+        return "?"
+    where = " or ".join(f"{f}/" for f in folders)
+    return commit + (f" ({where} has uncommitted changes)" if dirty else "")
+
+
 def machine_header(gflops: float) -> list[str]:
     import scipy
     import scipy.linalg  # noqa: F401 - loads scipy's own OpenBLAS
@@ -285,22 +309,7 @@ def machine_header(gflops: float) -> list[str]:
         sm_version = "not installed"
     import priors  # noqa: F401
 
-    cpu = "?"
-    try:
-        for line in Path("/proc/cpuinfo").read_text().splitlines():
-            if line.startswith("model name"):
-                cpu = line.split(":", 1)[1].strip()
-                break
-    except OSError:
-        pass
-    try:
-        commit = subprocess.run(["git", "rev-parse", "--short", "HEAD"], cwd=REPO,
-                                capture_output=True, text=True, check=False).stdout.strip()
-        dirty = subprocess.run(["git", "status", "--porcelain", "priors"], cwd=REPO,
-                               capture_output=True, text=True, check=False).stdout.strip()
-        commit += " (priors/ has uncommitted changes)" if dirty else ""
-    except OSError:
-        commit = "?"
+    cpu, commit = cpu_model(), repo_commit("priors")
     env = {k: v for k, v in sorted(os.environ.items()) if k.startswith(ENV_PREFIXES)}
     lines = [
         f"- date: {_dt.datetime.now().isoformat(timespec='seconds')}; repo commit {commit}",

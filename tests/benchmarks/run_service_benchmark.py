@@ -64,7 +64,7 @@ from typing import Any
 import httpx
 import numpy as np
 from fastapi import FastAPI, Request, Response
-from run_benchmarks import SCENARIOS, simulate_var
+from run_benchmarks import SCENARIOS, cpu_model, repo_commit, simulate_var
 
 HERE = Path(__file__).resolve().parent
 REPO = HERE.parent.parent
@@ -389,23 +389,7 @@ def machine_info() -> list[str]:
     import starlette
     import uvicorn
 
-    cpu = "?"
-    try:
-        for line in Path("/proc/cpuinfo").read_text().splitlines():
-            if line.startswith("model name"):
-                cpu = line.split(":", 1)[1].strip()
-                break
-    except OSError:
-        pass
-    try:
-        commit = subprocess.run(["git", "rev-parse", "--short", "HEAD"], cwd=REPO,
-                                capture_output=True, text=True, check=False).stdout.strip()
-        dirty = subprocess.run(["git", "status", "--porcelain", "service", "priors"],
-                               cwd=REPO, capture_output=True, text=True,
-                               check=False).stdout.strip()
-        commit += " (service/ or priors/ has uncommitted changes)" if dirty else ""
-    except OSError:
-        commit = "?"
+    cpu, commit = cpu_model(), repo_commit("service", "priors")
 
     def have(module: str) -> str:
         import importlib.util

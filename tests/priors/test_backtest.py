@@ -1,0 +1,88 @@
+"""Rolling-origin evaluation: outside checks on real and simulated data."""
+
+from __future__ import annotations
+
+import warnings
+
+import numpy as np
+import pandas as pd
+import pytest
+
+from priors.backtest import rolling_origin
+from priors.errors import ConvergenceWarning, SpecificationError
+
+
+def _macrodata() -> pd.DataFrame:
+    import statsmodels.api as sm
+
+    d = sm.datasets.macrodata.load_pandas().data
+    index = pd.date_range("1959-01-01", periods=len(d), freq="QS")
+    return pd.DataFrame({
+        "realgdp": d["realgdp"].to_numpy(), "realcons": d["realcons"].to_numpy(),
+        "realinv": d["realinv"].to_numpy(), "infl": d["infl"].to_numpy(),
+        "unemp": d["unemp"].to_numpy(), "tbilrate": d["tbilrate"].to_numpy(),
+        "m1": d["m1"].to_numpy()}, index=index)
+
+
+@pytest.mark.slow
+def test_tuned_minnesota_bvar_beats_ols_var_on_us_macro_data():
+    """Open dataset: statsmodels' macrodata (US quarterly 1959-2009), seven variables:
+    log real GDP, consumption, investment and M1, and inflation, unemployment and the
+    T-bill rate in levels; scores in the data's units. VAR(4); 40 rolling origins,
+    h = 1..8. Direction as reported by Litterman (1986), Banbura, Giannone & Reichlin
+    (2010) and Giannone, Lenza & Primiceri (2015): the marginal-likelihood-tuned
+    Minnesota BVAR (with sum-of-coefficients and initial-observation priors under GLP
+    hyperpriors) has a lower RMSE than OLS. Measured with this seed: mean relative RMSE 0.91
+    and relative CRPS 0.89 over series and horizons (BVAR / OLS; another seed gave 0.90
+    and 0.88). With M1 as money growth (log differences) instead, the same comparison gave
+    1.07: the dummy priors on a mix of levels and growth rates did not help output,
+    consumption and investment; the evaluation issue should look into it."""
+    data = _macrodata()
+    transforms = {"realgdp": "log", "realcons": "log", "realinv": "log", "m1": "log"}
+    params = {"lags": 4, "sum_coef": "auto", "initial": "auto", "hyperprior": True,
+              "transforms": transforms}
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", ConvergenceWarning)
+        result = rolling_origin(data, params=params, origins=40, horizon=8, draws=500,
+                                rng=np.random.default_rng(2026), benchmarks=("ols_var",))
+    rmse = result.relative("ols_var", "rmse")["model"]
+    crps = result.relative("ols_var", "crps")["model"]
+    assert rmse.mean() < 0.95, rmse.groupby(level="series").mean()
+    assert crps.mean() < 0.95
+    assert (rmse.groupby(level="horizon").mean() < 1.0).all()
+
+
+def test_calibrated_on_data_from_a_known_var(known_var):
+    # Forecasts of a correctly specified model: 90% intervals cover about 90% of outcomes
+    # and the model is not worse than the random walk. 60 origins x 3 series x 2 steps;
+    # the binomial s.e. of a 90% rate over 360 outcomes is 0.016, and outcomes of one
+    # origin are correlated, so the tolerance is 0.07 (about 4 s.e.).
+    rng = np.random.default_rng(9)
+    y = known_var.simulate(rng, 260)
+    result = rolling_origin(y, params={"lags": 2}, origins=60, horizon=2, draws=400,
+                            rng=rng, benchmarks=("ols_var", "random_walk"))
+    table = result.scores()
+    assert set(table["model"]) == {"model", "ols_var", "random_walk"}
+    cover = table[table["model"] == "model"]["coverage"].mean()
+    assert abs(cover - 0.9) < 0.07
+    rel = result.relative("random_walk", "crps")["model"]
+    assert rel.mean() < 1.0
+    stat, p = result.dm_test("random_walk", horizon=1, series="y1")
+    assert np.isfinite(stat) and 0 <= p <= 1
+
+
+def test_seasonal_naive_and_bad_settings():
+    from pathlib import Path
+
+    demo = pd.read_csv(Path(__file__).resolve().parents[2] / "examples" /
+                       "bike_parts_demand.csv", index_col=0, parse_dates=True)
+    result = rolling_origin(demo[["tyres", "chains"]], params={"lags": 1, "seasonal": True},
+                            origins=6, horizon=3, draws=200, period=12,
+                            benchmarks=("seasonal_naive",), rng=np.random.default_rng(0))
+    table = result.scores()
+    assert set(table["model"]) == {"model", "seasonal_naive"}
+    assert (table.groupby("model")["count"].sum() > 0).all()
+    assert np.isnan(result.actual[-1, 1:]).all()  # beyond the data
+    with pytest.raises(SpecificationError, match="period"):
+        rolling_origin(demo, origins=3, horizon=2, benchmarks=("seasonal_naive",),
+                       rng=np.random.default_rng(0))

@@ -28,7 +28,7 @@ from priors.model import default_max_lags
 
 from .engine import blas_threads
 from .serialization import forecast_to_dict, frame_from_csv, quantile_key, summary_to_dict
-from .tables import format_fit, format_forecast
+from .tables import format_backtest, format_fit, format_forecast
 
 __all__ = ["InputError", "UsageError", "build_parser", "main", "read_data"]
 
@@ -258,6 +258,29 @@ def build_parser() -> argparse.ArgumentParser:
                             "requests")
     serve.set_defaults(run=_serve)
 
+    bt = sub.add_parser("backtest", help="score past forecasts at rolling origins",
+                        description="Refit the model at each of the last --origins dates, "
+                                    "forecast --horizon steps, and score the forecasts "
+                                    "against what happened, beside the OLS VAR, a random "
+                                    "walk and (with --period) a seasonal naive forecast.",
+                        **common)
+    bt.add_argument("data", metavar="DATA.csv", help=data_help)
+    bt.add_argument("--origins", type=_positive_int, default=24, help="forecast origins")
+    bt.add_argument("--horizon", type=_positive_int, default=12, help="steps ahead")
+    bt.add_argument("--window", type=_positive_int, metavar="N",
+                    help="fit on the last N periods only (default: all data, expanding)")
+    bt.add_argument("--draws", type=_positive_int, default=1000, metavar="N",
+                    help="simulated paths per origin")
+    bt.add_argument("--coverage", type=_level, default=0.9,
+                    help="central interval whose coverage is scored")
+    bt.add_argument("--period", type=_positive_int, metavar="P",
+                    help="seasonal period for the seasonal-naive benchmark (e.g. 12); "
+                         "default: off")
+    bt.add_argument("--seed", type=_seed, default=0, metavar="S", help="random seed")
+    bt.add_argument("--json", action="store_true",
+                    help="print the scores as JSON records instead of tables")
+    bt.set_defaults(run=_backtest)
+
     keys = sub.add_parser("keys", help="manage API keys", formatter_class=_HelpFormatter,
                           description="Create API keys. The server stores only their hashes.")
     keys_sub = keys.add_subparsers(dest="keys_command", metavar="ACTION", required=True)
@@ -317,6 +340,39 @@ def _fit(args: argparse.Namespace) -> str:
     if args.json:
         return _json(payload)
     return format_fit(payload, prior=args.prior, level=args.level, summary=args.summary)
+
+
+def _backtest(args: argparse.Namespace) -> str:
+    from priors.backtest import rolling_origin
+
+    frame = read_data(args.data)
+    params = {"lags": args.lags, "max_lags": args.max_lags, "prior": args.prior,
+              "tightness": args.tightness, "decay": args.decay, "sum_coef": args.sum_coef,
+              "initial": args.initial, "hyperprior": args.hyperprior,
+              "constant": args.constant, "trend": args.trend, "seasonal": args.seasonal,
+              "transforms": args.transform}
+    benchmarks = ("ols_var", "random_walk") + (("seasonal_naive",) if args.period else ())
+    if args.prior == "flat":
+        benchmarks = tuple(b for b in benchmarks if b != "ols_var")
+
+    def progress(done: int, total: int) -> None:
+        if sys.stderr.isatty():
+            bar = "#" * (30 * done // total)
+            print(f"\rfanfold: backtest [{bar:<30}] {done}/{total} origins", end="",
+                  file=sys.stderr, flush=True)
+            if done == total:
+                print(file=sys.stderr)
+
+    result = rolling_origin(frame, params=params, origins=args.origins, horizon=args.horizon,
+                            window=args.window, draws=args.draws, coverage=args.coverage,
+                            period=args.period, benchmarks=benchmarks,
+                            rng=np.random.default_rng(args.seed), progress=progress)
+    scores = result.scores()
+    if args.json:
+        return _json({"origins": len(result.origins), "horizon": args.horizon,
+                      "coverage": args.coverage, "seed": args.seed,
+                      "scores": scores.to_dict(orient="records")})
+    return format_backtest(scores, args.coverage)
 
 
 def _serve(args: argparse.Namespace) -> str:

@@ -134,3 +134,24 @@ def format_fit(payload: dict[str, Any], *, prior: str, level: float, summary: bo
                 f"{_g(r['median'])}, 90% interval {_g(r['q0.05'])} to {_g(r['q0.95'])}, "
                 f"share explosive (>= 1) {_g(r['share_explosive'])}"]
     return "\n".join(out)
+
+
+def format_backtest(scores: Any, coverage: float) -> str:
+    """Scores averaged over series per model and horizon, then relative to the OLS VAR
+    (or the random walk) per series."""
+    out = [f"Fanfold backtest: scores averaged over series (coverage of the central "
+           f"{100 * coverage:g}% interval)"]
+    by_h = scores.groupby(["model", "horizon"])[["rmse", "mae", "crps", "coverage"]].mean()
+    rows = [[m, str(h), *(_g(v) for v in vals)] for (m, h), vals in
+            zip(by_h.index, by_h.to_numpy().tolist(), strict=True)]
+    out += ["", render_table(["model", "h", "rmse", "mae", "crps", "coverage"], rows)]
+    models = set(scores["model"])
+    base = "ols_var" if "ols_var" in models else "random_walk"
+    if "model" in models and base in models:
+        per = scores.groupby(["series", "model"])[["rmse", "crps"]].mean().unstack("model")
+        rows = [[name, _g(per.loc[name, ("rmse", "model")] / per.loc[name, ("rmse", base)]),
+                 _g(per.loc[name, ("crps", "model")] / per.loc[name, ("crps", base)])]
+                for name in per.index]
+        out += ["", f"relative to {base} (below 1: the model is better), mean over horizons:",
+                render_table(["series", "rmse", "crps"], rows)]
+    return "\n".join(out)

@@ -349,3 +349,21 @@ def test_cumulative_totals_are_sums_of_paths(run) -> None:
         assert cum["forecasts"][name]["mean"] == pytest.approx(np.cumsum(fc["mean"]).tolist())
         q95 = cum["forecasts"][name]["quantiles"]["0.95"]
         assert q95[2] < sum(fc["quantiles"]["0.95"])  # sum of 95% quantiles overshoots
+
+
+def test_backtest_command_prints_scores_and_json(run) -> None:
+    code, out, err = run("backtest", DEMO, "--origins", 4, "--horizon", 2, "--lags", 1,
+                         "--draws", 100, "--period", 12)
+    assert code == 0, err
+    assert "relative to ols_var" in out and "seasonal_naive" in out
+    code, out, err = run("backtest", DEMO, "--origins", 3, "--horizon", 2, "--lags", 1,
+                         "--draws", 100, "--json")
+    assert code == 0, err
+    payload = json.loads(out)
+    assert payload["origins"] == 3
+    models = {r["model"] for r in payload["scores"]}
+    assert models == {"model", "ols_var", "random_walk"}
+    assert all(set(r) >= {"series", "horizon", "rmse", "crps", "coverage"}
+               for r in payload["scores"])
+    code, _, err = run("backtest", DEMO, "--origins", 200)
+    assert code in (1, 2) and err.startswith("fanfold: error:")

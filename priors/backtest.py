@@ -26,7 +26,7 @@ from scipy import stats
 from ._types import FloatArray
 from .errors import SpecificationError
 from .model import FanfoldVAR
-from .scores import crps_ensemble, crps_normal, diebold_mariano
+from .scores import crps_ensemble, crps_normal, diebold_mariano, pit_values
 
 __all__ = ["BacktestResult", "rolling_origin"]
 
@@ -39,6 +39,9 @@ class BacktestResult:
 
     actual : (O, h, n) realised values (NaN past the end of the data).
     mean, median, crps, lower, upper : per model, (O, h, n).
+    pit : randomised PIT values of the draw-based models, (O, h, n).
+    log_score : exact one-step log predictive density of the joint outcome, (O,), for
+        the draw-based models when no series is transformed (else absent).
     """
 
     names: tuple[str, ...]
@@ -51,6 +54,8 @@ class BacktestResult:
     crps: dict[str, FloatArray] = field(default_factory=dict)
     lower: dict[str, FloatArray] = field(default_factory=dict)
     upper: dict[str, FloatArray] = field(default_factory=dict)
+    pit: dict[str, FloatArray] = field(default_factory=dict)
+    log_score: dict[str, FloatArray] = field(default_factory=dict)
 
     @property
     def models(self) -> list[str]:
@@ -143,6 +148,8 @@ def rolling_origin(
     z = float(stats.norm.ppf(0.5 + coverage / 2))
     lo_q, hi_q = 0.5 - coverage / 2, 0.5 + coverage / 2
     store: dict[str, list[tuple[FloatArray, ...]]] = {}
+    pits: dict[str, list[FloatArray]] = {}
+    logs: dict[str, list[float]] = {}
     for i, o in enumerate(result.origins):
         start = 0 if window is None else max(0, o - window)
         train = frame.iloc[start:o]
@@ -157,12 +164,16 @@ def rolling_origin(
             for key in ("tightness", "sum_coef", "initial", "hyperprior"):
                 flat.pop(key, None)
             fitted["ols_var"] = FanfoldVAR(**flat).fit(train)  # type: ignore[arg-type]
+        untransformed = all(t == "none" for t in model.series_.transforms)
         for name, m in fitted.items():
             paths = m.forecast(horizon, rng=rng, draws=draws).paths
             filled = np.where(np.isnan(actual), 0.0, actual)
             store.setdefault(name, []).append((
                 paths.mean(axis=0), np.median(paths, axis=0), crps_ensemble(paths, filled),
                 np.quantile(paths, lo_q, axis=0), np.quantile(paths, hi_q, axis=0)))
+            pits.setdefault(name, []).append(pit_values(rng, paths, filled))
+            if untransformed and not model.series_.exog_names:
+                logs.setdefault(name, []).append(m.one_step_log_density(actual[0]))
         hist = train.to_numpy(dtype=np.float64)
         steps = np.arange(1, horizon + 1)[:, None]
         if "random_walk" in benchmarks:
@@ -182,4 +193,8 @@ def rolling_origin(
         crps = np.where(np.isnan(result.actual), np.nan, crps)
         result.mean[name], result.median[name], result.crps[name] = mean, med, crps
         result.lower[name], result.upper[name] = lower, upper
+    for name, values in pits.items():
+        result.pit[name] = np.where(np.isnan(result.actual), np.nan, np.stack(values))
+    for name, scores in logs.items():
+        result.log_score[name] = np.array(scores)
     return result

@@ -13,6 +13,7 @@ from dataclasses import dataclass
 import numpy as np
 import pandas as pd
 from scipy import stats
+from scipy.linalg import solve_triangular
 
 from ._types import FloatArray
 from .conjugate import NIWPosterior, flat_posterior, posterior, update_posterior
@@ -443,6 +444,29 @@ class FanfoldVAR:
         B = np.concatenate(kept_B)[:draws]
         Sig = np.concatenate(kept_S)[:draws]
         return Draws(B, Sig), 1.0 - have / total
+
+    def one_step_log_density(
+        self,
+        y_next: FloatArray,
+        *,
+        exog_next: pd.DataFrame | FloatArray | None = None,
+    ) -> float:
+        """log p(y_T+1 | data), exactly: the one-step predictive is multivariate t,
+        t_{nu-n+1}(B_bar'x, (1 + x'P^-1 x) S / (nu - n + 1)) (Zellner 1971).
+
+        ``y_next`` (n,) is in model units (after transforms; the same as the data's units
+        when no transform is used). Equals log p(data + y_next) - log p(data) under the
+        fitted prior.
+        """
+        self._check_fitted()
+        post, n = self.posterior_, self.posterior_.n
+        exog = future_exogenous_rows(self.series_, self.deterministics_, 1, exog_next)[0]
+        x = np.concatenate([exog, self.series_.values[-self.lags_:][::-1].ravel()])
+        v = solve_triangular(post.R, x, trans=1, lower=False, check_finite=False)
+        dof = post.df - n + 1
+        shape = (1.0 + v @ v) * post.S / dof
+        dist = stats.multivariate_t(loc=post.B.T @ x, shape=shape, df=dof)
+        return float(dist.logpdf(np.asarray(y_next, dtype=np.float64)))
 
     def spectral_radius(self, draws: int = 1000, *, rng: np.random.Generator) -> FloatArray:
         """Posterior draws of the companion matrix's spectral radius, (draws,).

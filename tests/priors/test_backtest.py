@@ -69,6 +69,15 @@ def test_calibrated_on_data_from_a_known_var(known_var):
     assert rel.mean() < 1.0
     stat, p = result.dm_test("random_walk", horizon=1, series="y1")
     assert np.isfinite(stat) and 0 <= p <= 1
+    # one-step PITs of a correctly specified model are uniform (Diebold, Gunther & Tay
+    # 1998); one-step PITs are independent across origins, so a KS test applies
+    # (alpha 1e-3, fixed seed)
+    from scipy import stats
+
+    assert stats.kstest(result.pit["model"][:, 0, :].ravel(), "uniform").pvalue > 1e-3
+    # exact one-step log scores: the prior's shrinkage helps or ties versus OLS
+    assert result.log_score["model"].shape == (60,)
+    assert result.log_score["model"].mean() > result.log_score["ols_var"].mean() - 0.05
 
 
 def test_seasonal_naive_and_bad_settings():

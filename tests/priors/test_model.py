@@ -192,3 +192,13 @@ def test_append_refuses_rows_that_do_not_continue_the_data():
         model.append(frame.iloc[101:])  # a gap of one month
     with pytest.raises(TimeIndexError):
         model.append(frame.iloc[90:100])  # dates already there
+
+
+def test_one_step_log_density_equals_the_marginal_likelihood_increment(known_var, rng):
+    # log p(y_T+1 | Y) = log p(Y, y_T+1) - log p(Y) under the same prior (the sequential
+    # form of the marginal likelihood; methods brief sec. 3(b))
+    y = known_var.simulate(rng, 81)
+    model = FanfoldVAR(lags=2, tightness=0.3).fit(y[:80])
+    grown = model.append(y[80:])
+    assert model.one_step_log_density(y[80]) == pytest.approx(
+        grown.log_ml_ - model.log_ml_, rel=1e-9)

@@ -279,6 +279,9 @@ def build_parser() -> argparse.ArgumentParser:
     bt.add_argument("--seed", type=_seed, default=0, metavar="S", help="random seed")
     bt.add_argument("--json", action="store_true",
                     help="print the scores as JSON records instead of tables")
+    bt.add_argument("--report", metavar="FILE.html",
+                    help="also write a self-contained HTML page with the tables and plots "
+                         "(default: no file)")
     bt.set_defaults(run=_backtest)
 
     keys = sub.add_parser("keys", help="manage API keys", formatter_class=_HelpFormatter,
@@ -368,6 +371,21 @@ def _backtest(args: argparse.Namespace) -> str:
                             period=args.period, benchmarks=benchmarks,
                             rng=np.random.default_rng(args.seed), progress=progress)
     scores = result.scores()
+    if args.report:
+        from .report import backtest_report
+
+        dates = frame.index if isinstance(frame.index, pd.DatetimeIndex) else None
+        page = backtest_report(result, title=f"Fanfold backtest of {args.data}",
+                               settings={"origins": args.origins, "horizon": args.horizon,
+                                         "draws": args.draws, "seed": args.seed,
+                                         **{k: v for k, v in params.items() if v is not None}},
+                               dates=dates)
+        try:
+            with open(args.report, "w", encoding="utf-8") as fh:
+                fh.write(page)
+        except OSError as exc:
+            raise InputError(f"cannot write {args.report!r}: {_one_line(exc)}") from exc
+        print(f"fanfold: wrote {args.report}", file=sys.stderr)
     if args.json:
         return _json({"origins": len(result.origins), "horizon": args.horizon,
                       "coverage": args.coverage, "seed": args.seed,

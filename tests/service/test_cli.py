@@ -367,3 +367,15 @@ def test_backtest_command_prints_scores_and_json(run) -> None:
                for r in payload["scores"])
     code, _, err = run("backtest", DEMO, "--origins", 200)
     assert code in (1, 2) and err.startswith("fanfold: error:")
+
+
+def test_backtest_report_is_a_self_contained_page(run, tmp_path) -> None:
+    report = tmp_path / "report.html"
+    code, _, err = run("backtest", DEMO, "--origins", 5, "--horizon", 3, "--lags", 1,
+                       "--draws", 100, "--period", 12, "--report", report)
+    assert code == 0, err
+    page = report.read_text()
+    assert page.startswith("<!doctype html>") and page.rstrip().endswith("</html>")
+    assert page.count("src='data:image/png;base64,") >= 5  # coverage, CRPS, PIT, fan charts
+    assert "<table" in page and "review forecasts before committing" in page
+    assert "http" not in page  # nothing to fetch

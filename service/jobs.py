@@ -20,20 +20,21 @@ import time
 import uuid
 from typing import Any
 
+import numpy as np
 from sqlalchemy import func, select, update
 from sqlalchemy.orm import Session, sessionmaker
 
 from priors.errors import PriorsError
 
 from .config import Settings
-from .engine import fit_model, frame_from_spec, model_params
+from .engine import check_model_limits, fit_model, frame_from_spec, model_params
 from .errors import LimitExceeded
 from .metrics import Metrics
 from .orm import Job
-from .schemas import ModelCreate
+from .schemas import BacktestCreate, ModelCreate
 from .store import save_model
 
-__all__ = ["TERMINAL", "JobRunner", "cancel_job", "get_job", "submit_fit"]
+__all__ = ["TERMINAL", "JobRunner", "cancel_job", "get_job", "submit_backtest", "submit_fit"]
 
 log = logging.getLogger("fanfold.jobs")
 TERMINAL = frozenset({"succeeded", "failed", "cancelled"})
@@ -54,6 +55,17 @@ def submit_fit(*, session: Session, tenant: str, spec: ModelCreate, max_attempts
         session.commit()
     else:
         session.flush()
+    return job
+
+
+def submit_backtest(*, session: Session, tenant: str, spec: BacktestCreate,
+                    max_attempts: int) -> Job:
+    """Queue a rolling-origin backtest; returns the job row."""
+    job = Job(id=str(uuid.uuid4()), tenant_id=tenant, kind="backtest", status="queued",
+              progress=0.0, attempts=0, max_attempts=max_attempts, cancel_requested=0,
+              payload=spec.model_dump(mode="json"))
+    session.add(job)
+    session.commit()
     return job
 
 
@@ -217,6 +229,9 @@ class JobRunner:
             assert job is not None
             mine = (Job.id == job_id, Job.status == "running", Job.attempts == attempt)
             try:
+                if job.kind == "backtest":
+                    self._backtest(s, job, mine)
+                    return
                 spec = ModelCreate.model_validate(job.payload)
                 frame = frame_from_spec(spec)
                 started = time.perf_counter()
@@ -254,6 +269,40 @@ class JobRunner:
                 log.exception("job failed", extra={"job_id": job_id})
                 s.execute(update(Job).where(*mine).values(status="failed", updated_at=_now(),
                           error={"title": "Internal Server Error", "status": 500,
-                                 "detail": "the fit failed unexpectedly; the error is logged "
+                                 "detail": "the job failed unexpectedly; the error is logged "
                                            f"with job_id {job_id}"}))
                 s.commit()
+
+    def _backtest(self, s: Session, job: Job, mine: tuple[Any, ...]) -> None:
+        """Run a rolling-origin backtest; progress is the share of origins done."""
+        from priors.backtest import rolling_origin
+
+        spec = BacktestCreate.model_validate(job.payload)
+        frame = frame_from_spec(spec)
+        check_model_limits(spec, frame.shape[1], frame.shape[0], self.settings)
+        benchmarks = ("ols_var", "random_walk") + (("seasonal_naive",) if spec.period else ())
+        if spec.prior == "flat":
+            benchmarks = tuple(b for b in benchmarks if b != "ols_var")
+
+        def progress(done: int, total: int) -> None:
+            with self.sessions() as p:
+                p.execute(update(Job).where(*mine).values(
+                    progress=0.95 * done / total, updated_at=_now()))
+                p.commit()
+
+        result = rolling_origin(frame, params=model_params(spec), origins=spec.origins,
+                                horizon=spec.horizon, window=spec.window, draws=spec.draws,
+                                coverage=spec.coverage, period=spec.period,
+                                benchmarks=benchmarks, rng=np.random.default_rng(spec.seed),
+                                progress=progress)
+        s.refresh(job)
+        if job.cancel_requested:
+            s.execute(update(Job).where(*mine).values(status="cancelled", updated_at=_now()))
+            s.commit()
+            return
+        scores = result.scores().replace({np.nan: None}).to_dict(orient="records")
+        payload = {"origins": spec.origins, "horizon": spec.horizon, "seed": spec.seed,
+                   "coverage": spec.coverage, "scores": scores}
+        s.execute(update(Job).where(*mine).values(status="succeeded", progress=1.0,
+                                                  result=payload, updated_at=_now()))
+        s.commit()

@@ -103,4 +103,5 @@ class Job(Base):
     updated_at: Mapped[dt.datetime] = mapped_column(UTCDateTime, default=_now)
     payload: Mapped[dict] = mapped_column(JSON)
     result_model_id: Mapped[str | None] = mapped_column(String(36), nullable=True)
+    result: Mapped[dict | None] = mapped_column(JSON, nullable=True)
     error: Mapped[dict | None] = mapped_column(JSON, nullable=True)

@@ -16,6 +16,7 @@ from priors.transforms import TRANSFORMS
 
 __all__ = [
     "FanChartPublic",
+    "BacktestCreate",
     "ForecastCreate",
     "ForecastPublic",
     "ForecastSettings",
@@ -154,6 +155,23 @@ class ObservationsCreate(SeriesData):
     model_config = ConfigDict(extra="forbid", json_schema_extra={"examples": [{
         "series": {"tyres": [1190, 1240], "inner_tubes": [2010, 2105]},
         "start": "2026-01-01", "frequency": "MS"}]})
+
+
+class BacktestCreate(SeriesData, ModelSettings):
+    """A rolling-origin backtest, run as a job."""
+
+    model_config = ConfigDict(extra="forbid", json_schema_extra={"examples": [{
+        "series": _DEMO, "start": "2016-01-01", "frequency": "MS", "lags": 1,
+        "origins": 6, "horizon": 3, "draws": 500, "period": 12, "seed": 1}]})
+
+    origins: int = Field(24, ge=1, le=200, description="forecast origins (the last ones)")
+    horizon: int = Field(12, ge=1, le=104, description="steps ahead")
+    window: int | None = Field(None, ge=10, description="fit on the last N periods only")
+    draws: int = Field(1000, ge=10, le=5_000, description="simulated paths per origin")
+    coverage: float = Field(0.9, gt=0, lt=1, description="central interval to score")
+    period: int | None = Field(None, ge=2, le=366,
+                               description="seasonal period for the seasonal-naive benchmark")
+    seed: int = Field(0, ge=0, lt=2**63)
 
 
 class ModelForecastCreate(OutputSettings):

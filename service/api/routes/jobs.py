@@ -25,7 +25,9 @@ def job_public(job: Job) -> dict[str, Any]:
     return JobPublic(
         id=job.id, kind=job.kind, status=job.status, progress=job.progress,  # type: ignore[arg-type]
         attempts=job.attempts, created_at=job.created_at, updated_at=job.updated_at,
-        result=f"/v1/models/{job.result_model_id}" if job.result_model_id else None,
+        result=(f"/v1/models/{job.result_model_id}" if job.result_model_id
+                else f"/v1/backtests/{job.id}" if job.kind == "backtest"
+                and job.status == "succeeded" else None),
         problem=job.error,
     ).model_dump(mode="json")
 

@@ -18,6 +18,7 @@ from __future__ import annotations
 
 from collections.abc import Callable, Mapping
 from dataclasses import dataclass, field
+from typing import Any
 
 import numpy as np
 import pandas as pd
@@ -28,7 +29,7 @@ from .errors import SpecificationError
 from .model import FanfoldVAR
 from .scores import crps_ensemble, crps_normal, diebold_mariano, pit_values
 
-__all__ = ["BacktestResult", "rolling_origin"]
+__all__ = ["BacktestResult", "rank_settings", "rolling_origin"]
 
 BENCHMARKS = ("ols_var", "random_walk", "seasonal_naive")
 
@@ -105,6 +106,58 @@ def _gaussian(center: FloatArray, sd: FloatArray, actual: FloatArray, z: float
             center + z * sd)
 
 
+def _one_origin(
+    frame: pd.DataFrame, o: int, params: dict[str, object], horizon: int,
+    window: int | None, draws: int, coverage: float, period: int | None,
+    benchmarks: tuple[str, ...], seed: np.random.SeedSequence,
+) -> tuple[FloatArray, dict[str, tuple[FloatArray, ...]], dict[str, FloatArray],
+           dict[str, float]]:
+    """Fit and score one origin with its own random stream (so the result does not depend
+    on the order or the process the origins run in)."""
+    rng = np.random.default_rng(seed)
+    values = frame.to_numpy(dtype=np.float64)
+    T, n = values.shape
+    start = 0 if window is None else max(0, o - window)
+    train = frame.iloc[start:o]
+    end = min(o + horizon, T)
+    actual = np.full((horizon, n), np.nan)
+    actual[: end - o] = values[o:end]
+    z = float(stats.norm.ppf(0.5 + coverage / 2))
+    lo_q, hi_q = 0.5 - coverage / 2, 0.5 + coverage / 2
+    model = FanfoldVAR(**params).fit(train)  # type: ignore[arg-type]
+    fitted = {"model": model}
+    if "ols_var" in benchmarks:
+        flat = {**params, "prior": "flat", "lags": model.lags_}
+        for key in ("tightness", "sum_coef", "initial", "hyperprior"):
+            flat.pop(key, None)
+        fitted["ols_var"] = FanfoldVAR(**flat).fit(train)  # type: ignore[arg-type]
+    rows: dict[str, tuple[FloatArray, ...]] = {}
+    pits: dict[str, FloatArray] = {}
+    logs: dict[str, float] = {}
+    filled = np.where(np.isnan(actual), 0.0, actual)
+    untransformed = all(t == "none" for t in model.series_.transforms)
+    for name, m in fitted.items():
+        paths = m.forecast(horizon, rng=rng, draws=draws).paths
+        rows[name] = (paths.mean(axis=0), np.median(paths, axis=0),
+                      crps_ensemble(paths, filled), np.quantile(paths, lo_q, axis=0),
+                      np.quantile(paths, hi_q, axis=0))
+        pits[name] = pit_values(rng, paths, filled)
+        if untransformed and not model.series_.exog_names:
+            logs[name] = m.one_step_log_density(actual[0])
+    hist = train.to_numpy(dtype=np.float64)
+    steps = np.arange(1, horizon + 1)[:, None]
+    if "random_walk" in benchmarks:
+        sd = np.sqrt(steps * np.var(np.diff(hist, axis=0), axis=0, ddof=1))
+        rows["random_walk"] = _gaussian(np.repeat(hist[-1:], horizon, axis=0), sd, actual, z)
+    if "seasonal_naive" in benchmarks:
+        assert period is not None
+        seasonal = hist[-period:][np.arange(horizon) % period]
+        base = np.std(hist[period:] - hist[:-period], axis=0, ddof=1)
+        rows["seasonal_naive"] = _gaussian(seasonal, base * np.sqrt(np.ceil(steps / period)),
+                                           actual, z)
+    return actual, rows, pits, logs
+
+
 def rolling_origin(
     data: pd.DataFrame | FloatArray,
     *,
@@ -118,12 +171,15 @@ def rolling_origin(
     benchmarks: tuple[str, ...] = ("ols_var", "random_walk"),
     rng: np.random.Generator,
     progress: Callable[[int, int], None] | None = None,
+    workers: int = 1,
 ) -> BacktestResult:
     """Evaluate ``FanfoldVAR(**params)`` on the last ``origins`` forecast origins.
 
     Origin o uses rows [:o] (or the last ``window`` of them) and forecasts rows o..o+h-1.
     ``period`` (e.g. 12) enables the seasonal-naive benchmark. ``progress(i, origins)``
-    is called after each origin.
+    is called as origins finish. ``workers > 1`` runs origins in that many processes;
+    each origin draws from its own stream spawned from ``rng``, so the result is the
+    same for any number of workers.
     """
     unknown = set(benchmarks) - set(BENCHMARKS)
     if unknown:
@@ -137,64 +193,75 @@ def rolling_origin(
     else:
         arr = np.asarray(data, dtype=np.float64)
         frame = pd.DataFrame(arr, columns=[f"y{j + 1}" for j in range(arr.shape[1])])
-    values = frame.to_numpy(dtype=np.float64)
-    T, n = values.shape
+    T, n = frame.shape
     if origins < 1 or horizon < 1 or T - origins < 10:
         raise SpecificationError("need origins >= 1, horizon >= 1 and at least 10 rows "
                                  "before the first origin")
     first = T - origins
     result = BacktestResult(tuple(map(str, frame.columns)), list(range(first, T)), horizon,
                             coverage, np.full((origins, horizon, n), np.nan))
-    z = float(stats.norm.ppf(0.5 + coverage / 2))
-    lo_q, hi_q = 0.5 - coverage / 2, 0.5 + coverage / 2
-    store: dict[str, list[tuple[FloatArray, ...]]] = {}
-    pits: dict[str, list[FloatArray]] = {}
-    logs: dict[str, list[float]] = {}
-    for i, o in enumerate(result.origins):
-        start = 0 if window is None else max(0, o - window)
-        train = frame.iloc[start:o]
-        end = min(o + horizon, T)
-        actual = np.full((horizon, n), np.nan)
-        actual[: end - o] = values[o:end]
+    seeds = np.random.SeedSequence(int(rng.integers(2**63))).spawn(origins)
+    args = [(frame, o, params, horizon, window, draws, coverage, period, benchmarks, seed)
+            for o, seed in zip(result.origins, seeds, strict=True)]
+    outputs: list[Any] = [None] * origins
+    if workers > 1:
+        import multiprocessing
+        from concurrent.futures import ProcessPoolExecutor, as_completed
+
+        # "spawn": fresh interpreters, safe next to the threads of a server or BLAS pool
+        context = multiprocessing.get_context("spawn")
+        with ProcessPoolExecutor(max_workers=workers, mp_context=context) as pool:
+            futures = {pool.submit(_one_origin, *a): i for i, a in enumerate(args)}
+            for done, future in enumerate(as_completed(futures), start=1):
+                outputs[futures[future]] = future.result()
+                if progress is not None:
+                    progress(done, origins)
+    else:
+        for i, a in enumerate(args):
+            outputs[i] = _one_origin(*a)
+            if progress is not None:
+                progress(i + 1, origins)
+    for i, (actual, rows, pits, logs) in enumerate(outputs):
         result.actual[i] = actual
-        model = FanfoldVAR(**params).fit(train)  # type: ignore[arg-type]
-        fitted = {"model": model}
-        if "ols_var" in benchmarks:
-            flat = {**params, "prior": "flat", "lags": model.lags_}
-            for key in ("tightness", "sum_coef", "initial", "hyperprior"):
-                flat.pop(key, None)
-            fitted["ols_var"] = FanfoldVAR(**flat).fit(train)  # type: ignore[arg-type]
-        untransformed = all(t == "none" for t in model.series_.transforms)
-        for name, m in fitted.items():
-            paths = m.forecast(horizon, rng=rng, draws=draws).paths
-            filled = np.where(np.isnan(actual), 0.0, actual)
-            store.setdefault(name, []).append((
-                paths.mean(axis=0), np.median(paths, axis=0), crps_ensemble(paths, filled),
-                np.quantile(paths, lo_q, axis=0), np.quantile(paths, hi_q, axis=0)))
-            pits.setdefault(name, []).append(pit_values(rng, paths, filled))
-            if untransformed and not model.series_.exog_names:
-                logs.setdefault(name, []).append(m.one_step_log_density(actual[0]))
-        hist = train.to_numpy(dtype=np.float64)
-        steps = np.arange(1, horizon + 1)[:, None]
-        if "random_walk" in benchmarks:
-            sd = np.sqrt(steps * np.var(np.diff(hist, axis=0), axis=0, ddof=1))
-            store.setdefault("random_walk", []).append(
-                _gaussian(np.repeat(hist[-1:], horizon, axis=0), sd, actual, z))
-        if "seasonal_naive" in benchmarks:
-            assert period is not None
-            seasonal = hist[-period:][(np.arange(horizon)) % period]
-            base = np.std(hist[period:] - hist[:-period], axis=0, ddof=1)
-            sd = base * np.sqrt(np.ceil(steps / period))
-            store.setdefault("seasonal_naive", []).append(_gaussian(seasonal, sd, actual, z))
-        if progress is not None:
-            progress(i + 1, origins)
-    for name, rows in store.items():
-        mean, med, crps, lower, upper = (np.stack(a) for a in zip(*rows, strict=True))
-        crps = np.where(np.isnan(result.actual), np.nan, crps)
-        result.mean[name], result.median[name], result.crps[name] = mean, med, crps
-        result.lower[name], result.upper[name] = lower, upper
-    for name, values in pits.items():
-        result.pit[name] = np.where(np.isnan(result.actual), np.nan, np.stack(values))
-    for name, scores in logs.items():
-        result.log_score[name] = np.array(scores)
+        for name, values in rows.items():
+            for store, value in zip((result.mean, result.median, result.crps, result.lower,
+                                     result.upper), values, strict=True):
+                store.setdefault(name, np.full((origins, horizon, n), np.nan))[i] = value
+        for name, value in pits.items():
+            result.pit.setdefault(name, np.full((origins, horizon, n), np.nan))[i] = value
+        for name, value in logs.items():
+            result.log_score.setdefault(name, np.full(origins, np.nan))[i] = value
+    missing = np.isnan(result.actual)
+    for store in (result.crps, result.pit):
+        for name in store:
+            store[name][missing] = np.nan
     return result
+
+
+def rank_settings(
+    data: pd.DataFrame | FloatArray,
+    candidates: Mapping[str, Mapping[str, object]],
+    *,
+    rng: np.random.Generator,
+    **kwargs: Any,
+) -> pd.DataFrame:
+    """Backtest several model settings on the same origins and rank them.
+
+    Scores are made unit-free per series by dividing by the random walk's on the same
+    origins, then averaged over series and horizons; lower is better. Every candidate
+    draws from the same seed. Returns one row per candidate: relative CRPS, relative
+    RMSE, mean coverage, sorted by relative CRPS.
+    """
+    if not candidates:
+        raise SpecificationError("give at least one candidate setting")
+    seed = int(rng.integers(2**63))
+    rows = []
+    for name, params in candidates.items():
+        result = rolling_origin(data, params=params, rng=np.random.default_rng(seed),
+                                benchmarks=("random_walk",), **kwargs)
+        crps = result.relative("random_walk", "crps")["model"].mean()
+        rmse = result.relative("random_walk", "rmse")["model"].mean()
+        cover = result.scores().query("model == 'model'")["coverage"].mean()
+        rows.append({"candidate": name, "relative_crps": float(crps),
+                     "relative_rmse": float(rmse), "coverage": float(cover)})
+    return pd.DataFrame(rows).sort_values("relative_crps").reset_index(drop=True)

@@ -277,6 +277,8 @@ def build_parser() -> argparse.ArgumentParser:
                     help="seasonal period for the seasonal-naive benchmark (e.g. 12); "
                          "default: off")
     bt.add_argument("--seed", type=_seed, default=0, metavar="S", help="random seed")
+    bt.add_argument("--workers", type=_positive_int, default=1, metavar="N",
+                    help="processes running origins in parallel (same result for any N)")
     bt.add_argument("--json", action="store_true",
                     help="print the scores as JSON records instead of tables")
     bt.add_argument("--report", metavar="FILE.html",
@@ -369,7 +371,8 @@ def _backtest(args: argparse.Namespace) -> str:
     result = rolling_origin(frame, params=params, origins=args.origins, horizon=args.horizon,
                             window=args.window, draws=args.draws, coverage=args.coverage,
                             period=args.period, benchmarks=benchmarks,
-                            rng=np.random.default_rng(args.seed), progress=progress)
+                            rng=np.random.default_rng(args.seed), progress=progress,
+                            workers=args.workers)
     scores = result.scores()
     if args.report:
         from .report import backtest_report

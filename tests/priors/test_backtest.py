@@ -95,3 +95,28 @@ def test_seasonal_naive_and_bad_settings():
     with pytest.raises(SpecificationError, match="period"):
         rolling_origin(demo, origins=3, horizon=2, benchmarks=("seasonal_naive",),
                        rng=np.random.default_rng(0))
+
+
+def test_parallel_origins_give_the_same_result(known_var):
+    y = known_var.simulate(np.random.default_rng(5), 80)
+    kwargs = {"params": {"lags": 1}, "origins": 4, "horizon": 2, "draws": 100}
+    serial = rolling_origin(y, rng=np.random.default_rng(1), **kwargs)
+    seen = []
+    parallel = rolling_origin(y, rng=np.random.default_rng(1), workers=2,
+                              progress=lambda done, total: seen.append((done, total)), **kwargs)
+    pd.testing.assert_frame_equal(serial.scores(), parallel.scores())
+    assert seen[-1] == (4, 4)
+
+
+def test_rank_settings_prefers_the_true_lag_order():
+    # Data from a VAR(2) with a strong second lag: VAR(2) must rank above VAR(1).
+    from priors.backtest import rank_settings
+
+    rng = np.random.default_rng(8)
+    y = np.zeros((260, 2))
+    for t in range(2, 260):
+        y[t] = 0.2 * y[t - 1] - 0.6 * y[t - 2] + rng.standard_normal(2)
+    table = rank_settings(y[60:], {"VAR(1)": {"lags": 1}, "VAR(2)": {"lags": 2}},
+                          rng=np.random.default_rng(0), origins=40, horizon=2, draws=200)
+    assert list(table["candidate"]) == ["VAR(2)", "VAR(1)"]
+    assert table["relative_crps"].iloc[0] < table["relative_crps"].iloc[1]

@@ -32,6 +32,8 @@ from .scores import crps_ensemble, crps_normal, diebold_mariano, pit_values
 __all__ = ["BacktestResult", "rank_settings", "rolling_origin"]
 
 BENCHMARKS = ("ols_var", "random_walk", "seasonal_naive")
+#: a benchmark from outside the engine: (train frame, horizon) -> (mean, sd), each (h, n)
+ExtraForecaster = Callable[[pd.DataFrame, int], tuple[FloatArray, FloatArray]]
 
 
 @dataclass
@@ -110,6 +112,7 @@ def _one_origin(
     frame: pd.DataFrame, o: int, params: dict[str, object], horizon: int,
     window: int | None, draws: int, coverage: float, period: int | None,
     benchmarks: tuple[str, ...], seed: np.random.SeedSequence,
+    extra: Mapping[str, ExtraForecaster] | None = None,
 ) -> tuple[FloatArray, dict[str, tuple[FloatArray, ...]], dict[str, FloatArray],
            dict[str, float]]:
     """Fit and score one origin with its own random stream (so the result does not depend
@@ -155,6 +158,10 @@ def _one_origin(
         base = np.std(hist[period:] - hist[:-period], axis=0, ddof=1)
         rows["seasonal_naive"] = _gaussian(seasonal, base * np.sqrt(np.ceil(steps / period)),
                                            actual, z)
+    for name, forecaster in (extra or {}).items():
+        center, sd = forecaster(train, horizon)
+        rows[name] = _gaussian(np.asarray(center, dtype=np.float64),
+                               np.asarray(sd, dtype=np.float64), actual, z)
     return actual, rows, pits, logs
 
 
@@ -172,6 +179,7 @@ def rolling_origin(
     rng: np.random.Generator,
     progress: Callable[[int, int], None] | None = None,
     workers: int = 1,
+    extra: Mapping[str, ExtraForecaster] | None = None,
 ) -> BacktestResult:
     """Evaluate ``FanfoldVAR(**params)`` on the last ``origins`` forecast origins.
 
@@ -179,7 +187,9 @@ def rolling_origin(
     ``period`` (e.g. 12) enables the seasonal-naive benchmark. ``progress(i, origins)``
     is called as origins finish. ``workers > 1`` runs origins in that many processes;
     each origin draws from its own stream spawned from ``rng``, so the result is the
-    same for any number of workers.
+    same for any number of workers. ``extra`` adds benchmarks from outside the engine
+    (e.g. exponential smoothing): name -> f(train frame, horizon) -> (mean, sd), each
+    (h, n), scored as Gaussian; with ``workers > 1`` they must be picklable.
     """
     unknown = set(benchmarks) - set(BENCHMARKS)
     if unknown:
@@ -201,8 +211,8 @@ def rolling_origin(
     result = BacktestResult(tuple(map(str, frame.columns)), list(range(first, T)), horizon,
                             coverage, np.full((origins, horizon, n), np.nan))
     seeds = np.random.SeedSequence(int(rng.integers(2**63))).spawn(origins)
-    args = [(frame, o, params, horizon, window, draws, coverage, period, benchmarks, seed)
-            for o, seed in zip(result.origins, seeds, strict=True)]
+    args = [(frame, o, params, horizon, window, draws, coverage, period, benchmarks, seed,
+             extra) for o, seed in zip(result.origins, seeds, strict=True)]
     outputs: list[Any] = [None] * origins
     if workers > 1:
         import multiprocessing

@@ -277,6 +277,9 @@ def build_parser() -> argparse.ArgumentParser:
                     help="seasonal period for the seasonal-naive benchmark (e.g. 12); "
                          "default: off")
     bt.add_argument("--seed", type=_seed, default=0, metavar="S", help="random seed")
+    bt.add_argument("--ets", action="store_true",
+                    help="add per-series exponential smoothing as a benchmark (needs "
+                         "statsmodels: pip install 'fanfold[evaluation]')")
     bt.add_argument("--workers", type=_positive_int, default=1, metavar="N",
                     help="processes running origins in parallel (same result for any N)")
     bt.add_argument("--json", action="store_true",
@@ -368,11 +371,19 @@ def _backtest(args: argparse.Namespace) -> str:
             if done == total:
                 print(file=sys.stderr)
 
+    extra = None
+    if args.ets:
+        import functools
+
+        from .ets import ets_forecast, require_statsmodels
+
+        require_statsmodels()
+        extra = {"ets": functools.partial(ets_forecast, period=args.period)}
     result = rolling_origin(frame, params=params, origins=args.origins, horizon=args.horizon,
                             window=args.window, draws=args.draws, coverage=args.coverage,
                             period=args.period, benchmarks=benchmarks,
                             rng=np.random.default_rng(args.seed), progress=progress,
-                            workers=args.workers)
+                            workers=args.workers, extra=extra)
     scores = result.scores()
     if args.report:
         from .report import backtest_report

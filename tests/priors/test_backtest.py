@@ -120,3 +120,21 @@ def test_rank_settings_prefers_the_true_lag_order():
                           rng=np.random.default_rng(0), origins=40, horizon=2, draws=200)
     assert list(table["candidate"]) == ["VAR(2)", "VAR(1)"]
     assert table["relative_crps"].iloc[0] < table["relative_crps"].iloc[1]
+
+
+def test_extra_benchmarks_are_scored_as_gaussian():
+    # An outside forecaster returning the truth's mean and s.d. for white noise: its
+    # CRPS equals the normal closed form averaged over outcomes.
+    from priors.scores import crps_normal
+
+    rng = np.random.default_rng(3)
+    y = rng.standard_normal((60, 2))
+
+    def oracle(train, horizon):
+        return np.zeros((horizon, 2)), np.ones((horizon, 2))
+
+    result = rolling_origin(y, params={"lags": 1}, origins=10, horizon=1, draws=50,
+                            rng=rng, benchmarks=(), extra={"oracle": oracle})
+    expected = crps_normal(0.0, 1.0, result.actual[:, 0, :]).mean(axis=0)
+    got = result.scores().query("model == 'oracle'")["crps"].to_numpy()
+    np.testing.assert_allclose(got, expected, rtol=1e-12)

@@ -379,3 +379,11 @@ def test_backtest_report_is_a_self_contained_page(run, tmp_path) -> None:
     assert page.count("src='data:image/png;base64,") >= 5  # coverage, CRPS, PIT, fan charts
     assert "<table" in page and "review forecasts before committing" in page
     assert "http" not in page  # nothing to fetch
+
+
+def test_backtest_with_exponential_smoothing_benchmark(run) -> None:
+    code, out, err = run("backtest", DEMO, "--origins", 3, "--horizon", 2, "--lags", 1,
+                         "--draws", 100, "--period", 12, "--ets", "--json")
+    assert code == 0, err
+    ets = [r for r in json.loads(out)["scores"] if r["model"] == "ets"]
+    assert len(ets) == 5 * 2 and all(r["crps"] > 0 for r in ets)

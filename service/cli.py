@@ -28,7 +28,7 @@ from priors.model import default_max_lags
 
 from .engine import blas_threads
 from .serialization import forecast_to_dict, frame_from_csv, quantile_key, summary_to_dict
-from .tables import format_backtest, format_fit, format_forecast
+from .tables import format_backtest, format_fit, format_forecast, format_ranking
 
 __all__ = ["InputError", "UsageError", "build_parser", "main", "read_data"]
 
@@ -121,6 +121,37 @@ def _transform(text: str) -> str | dict[str, str]:
 
 
 _positive_int, _seed = _integer(1), _integer(0)
+
+
+_CANDIDATE_KEYS = ("lags", "max_lags", "prior", "tightness", "decay", "sum_coef", "initial",
+                   "hyperprior", "constant", "trend", "seasonal", "transforms")
+
+
+def _value(text: str) -> object:
+    low = text.lower()
+    if low in ("auto", "minnesota", "flat", "none", "log", "log1p", "diff", "logdiff"):
+        return None if low == "none" else low
+    if low in ("true", "false"):
+        return low == "true"
+    for kind in (int, float):
+        try:
+            return kind(text)
+        except ValueError:
+            pass
+    _fail(f"cannot read the value {text!r}")
+
+
+def _candidate(text: str) -> tuple[str, dict[str, object]]:
+    name, sep, pairs = text.partition(":")
+    if not (name.strip() and sep):
+        _fail(f"expected NAME:K=V,... such as short:lags=2; got {text!r}")
+    settings: dict[str, object] = {}
+    for item in filter(None, (p.strip() for p in pairs.split(","))):
+        key, eq, value = item.partition("=")
+        if not eq or key not in _CANDIDATE_KEYS:
+            _fail(f"unknown setting {key!r} in {text!r}; use {', '.join(_CANDIDATE_KEYS)}")
+        settings[key] = _value(value.strip())
+    return name.strip(), settings
 
 
 def _lags(text: str) -> int | str:
@@ -277,6 +308,12 @@ def build_parser() -> argparse.ArgumentParser:
                     help="seasonal period for the seasonal-naive benchmark (e.g. 12); "
                          "default: off")
     bt.add_argument("--seed", type=_seed, default=0, metavar="S", help="random seed")
+    bt.add_argument("--candidate", action="append", type=_candidate, metavar="NAME:K=V,...",
+                    help="compare settings instead: each candidate is the model options "
+                         "above changed by K=V pairs (e.g. 'short:lags=2' or "
+                         "'dummies:sum_coef=auto,initial=auto'); repeat to rank several on "
+                         "the same origins by CRPS relative to the random walk "
+                         "(default: no comparison)")
     bt.add_argument("--ets", action="store_true",
                     help="add per-series exponential smoothing as a benchmark (needs "
                          "statsmodels: pip install 'fanfold[evaluation]')")
@@ -371,6 +408,16 @@ def _backtest(args: argparse.Namespace) -> str:
             if done == total:
                 print(file=sys.stderr)
 
+    if args.candidate:
+        from priors.backtest import rank_settings
+
+        candidates = {name: {**params, **changes} for name, changes in args.candidate}
+        table = rank_settings(frame, candidates, rng=np.random.default_rng(args.seed),
+                              origins=args.origins, horizon=args.horizon, window=args.window,
+                              draws=args.draws, coverage=args.coverage, workers=args.workers)
+        if args.json:
+            return _json({"ranking": table.to_dict(orient="records")})
+        return format_ranking(table)
     extra = None
     if args.ets:
         import functools

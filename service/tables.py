@@ -155,3 +155,12 @@ def format_backtest(scores: Any, coverage: float) -> str:
         out += ["", f"relative to {base} (below 1: the model is better), mean over horizons:",
                 render_table(["series", "rmse", "crps"], rows)]
     return "\n".join(out)
+
+
+def format_ranking(table: Any) -> str:
+    """Candidate settings ranked by CRPS relative to the random walk."""
+    rows = [[str(r.candidate), _g(r.relative_crps), _g(r.relative_rmse), _g(r.coverage)]
+            for r in table.itertuples()]
+    return ("Fanfold backtest: settings ranked by CRPS relative to the random walk (lower "
+            "is better)\n\n" + render_table(["candidate", "rel. crps", "rel. rmse",
+                                               "coverage"], rows))

@@ -387,3 +387,16 @@ def test_backtest_with_exponential_smoothing_benchmark(run) -> None:
     assert code == 0, err
     ets = [r for r in json.loads(out)["scores"] if r["model"] == "ets"]
     assert len(ets) == 5 * 2 and all(r["crps"] > 0 for r in ets)
+
+
+def test_backtest_ranks_candidate_settings(run) -> None:
+    code, out, err = run("backtest", DEMO, "--origins", 4, "--horizon", 2, "--draws", 100,
+                         "--candidate", "var1:lags=1", "--candidate",
+                         "flat1:lags=1,prior=flat", "--json")
+    assert code == 0, err
+    ranking = json.loads(out)["ranking"]
+    assert {r["candidate"] for r in ranking} == {"var1", "flat1"}
+    crps = [r["relative_crps"] for r in ranking]
+    assert crps == sorted(crps)
+    code, _, err = run("backtest", DEMO, "--candidate", "bad:wheels=2")
+    assert code == 2 and "unknown setting" in err

@@ -347,13 +347,17 @@ def _version() -> str:
 
 
 # ---------------------------------------------------------------------- commands
+def _model_params(args: argparse.Namespace) -> dict[str, Any]:
+    """FanfoldVAR's settings from the model options."""
+    return {"lags": args.lags, "max_lags": args.max_lags, "prior": args.prior,
+            "tightness": args.tightness, "decay": args.decay, "sum_coef": args.sum_coef,
+            "initial": args.initial, "hyperprior": args.hyperprior,
+            "constant": args.constant, "trend": args.trend, "seasonal": args.seasonal,
+            "transforms": args.transform}
+
+
 def _fitted(args: argparse.Namespace) -> FanfoldVAR:
-    model = FanfoldVAR(lags=args.lags, max_lags=args.max_lags, prior=args.prior,
-                     tightness=args.tightness, decay=args.decay, sum_coef=args.sum_coef,
-                     initial=args.initial, hyperprior=args.hyperprior,
-                     constant=args.constant, trend=args.trend, seasonal=args.seasonal,
-                     transforms=args.transform)
-    return model.fit(read_data(args.data))
+    return FanfoldVAR(**_model_params(args)).fit(read_data(args.data))
 
 
 def _json(payload: dict[str, Any]) -> str:
@@ -391,11 +395,7 @@ def _backtest(args: argparse.Namespace) -> str:
     from priors.backtest import rolling_origin
 
     frame = read_data(args.data)
-    params = {"lags": args.lags, "max_lags": args.max_lags, "prior": args.prior,
-              "tightness": args.tightness, "decay": args.decay, "sum_coef": args.sum_coef,
-              "initial": args.initial, "hyperprior": args.hyperprior,
-              "constant": args.constant, "trend": args.trend, "seasonal": args.seasonal,
-              "transforms": args.transform}
+    params = _model_params(args)
     benchmarks = ("ols_var", "random_walk") + (("seasonal_naive",) if args.period else ())
     if args.prior == "flat":
         benchmarks = tuple(b for b in benchmarks if b != "ols_var")

@@ -21,6 +21,7 @@ import uuid
 from typing import Any
 
 import numpy as np
+from pydantic import BaseModel
 from sqlalchemy import func, select, update
 from sqlalchemy.orm import Session, sessionmaker
 
@@ -34,7 +35,7 @@ from .orm import Job
 from .schemas import BacktestCreate, ModelCreate
 from .store import save_model
 
-__all__ = ["TERMINAL", "JobRunner", "cancel_job", "get_job", "submit_backtest", "submit_fit"]
+__all__ = ["TERMINAL", "JobRunner", "cancel_job", "get_job", "submit_job"]
 
 log = logging.getLogger("fanfold.jobs")
 TERMINAL = frozenset({"succeeded", "failed", "cancelled"})
@@ -44,10 +45,12 @@ def _now() -> dt.datetime:
     return dt.datetime.now(dt.UTC)
 
 
-def submit_fit(*, session: Session, tenant: str, spec: ModelCreate, max_attempts: int,
-               commit: bool = True) -> Job:
-    """Queue a model fit; returns the job row."""
-    job = Job(id=str(uuid.uuid4()), tenant_id=tenant, kind="fit_model", status="queued",
+def submit_job(*, session: Session, tenant: str, kind: str, spec: BaseModel,
+               max_attempts: int, commit: bool = True) -> Job:
+    """Queue a job of ``kind`` ("fit_model" or "backtest") for the request ``spec``;
+    ``commit=False`` leaves the commit to the caller (to write more in the same
+    transaction)."""
+    job = Job(id=str(uuid.uuid4()), tenant_id=tenant, kind=kind, status="queued",
               progress=0.0, attempts=0, max_attempts=max_attempts, cancel_requested=0,
               payload=spec.model_dump(mode="json"))
     session.add(job)
@@ -55,17 +58,6 @@ def submit_fit(*, session: Session, tenant: str, spec: ModelCreate, max_attempts
         session.commit()
     else:
         session.flush()
-    return job
-
-
-def submit_backtest(*, session: Session, tenant: str, spec: BacktestCreate,
-                    max_attempts: int) -> Job:
-    """Queue a rolling-origin backtest; returns the job row."""
-    job = Job(id=str(uuid.uuid4()), tenant_id=tenant, kind="backtest", status="queued",
-              progress=0.0, attempts=0, max_attempts=max_attempts, cancel_requested=0,
-              payload=spec.model_dump(mode="json"))
-    session.add(job)
-    session.commit()
     return job
 
 

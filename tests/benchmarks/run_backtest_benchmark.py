@@ -18,7 +18,7 @@ HERE = Path(__file__).resolve().parent
 sys.path.insert(0, str(HERE))
 sys.path.insert(0, str(HERE.parents[1]))
 
-from run_benchmarks import cpu_model, repo_commit, simulate_var  # noqa: E402
+from run_benchmarks import cpu_model, repo_commit, simulate_var, write_report  # noqa: E402
 
 from priors.backtest import rolling_origin  # noqa: E402
 
@@ -52,9 +52,7 @@ def main(argv: list[str] | None = None) -> int:
         f"| {elapsed:.2f} | {elapsed / args.origins:.3f} | < 60 s | "
         f"{'pass' if elapsed < 60 else 'FAIL'} | {rel:.3f} |",
     ]
-    report = "\n".join(lines) + "\n"
-    print(report)
-    Path(args.out).write_text(report)
+    write_report("\n".join(lines) + "\n", args.out)
     return 0
 
 

@@ -469,13 +469,17 @@ def main(argv: list[str] | None = None) -> int:
         sm = run_child("statsmodels", name, args.repeats, args.blas_threads)
         floors[name] = floor_estimate(*SCENARIOS[name], gflops, args.repeats)
         results.append({"scenario": name, "fanfold": ff, "statsmodels": sm})
-    report = build_report(results, header, args.repeats, floors)
-    print(report)
-    out = Path(args.out)
-    out.parent.mkdir(parents=True, exist_ok=True)
-    out.write_text(report)
-    print(f"written to {out}", file=sys.stderr)
+    write_report(build_report(results, header, args.repeats, floors), args.out)
     return 0
+
+
+def write_report(report: str, out: str | Path) -> None:
+    """Print the report and write it to ``out`` (folders created)."""
+    print(report)
+    path = Path(out)
+    path.parent.mkdir(parents=True, exist_ok=True)
+    path.write_text(report)
+    print(f"written to {path}", file=sys.stderr)
 
 
 if __name__ == "__main__":

@@ -64,7 +64,7 @@ from typing import Any
 import httpx
 import numpy as np
 from fastapi import FastAPI, Request, Response
-from run_benchmarks import SCENARIOS, cpu_model, repo_commit, simulate_var
+from run_benchmarks import SCENARIOS, cpu_model, repo_commit, simulate_var, write_report
 
 HERE = Path(__file__).resolve().parent
 REPO = HERE.parent.parent
@@ -567,13 +567,8 @@ def main(argv: list[str] | None = None) -> int:
 
     print("measuring the engine in-process again ...", file=sys.stderr, flush=True)
     engine.append(measure_engine(body, ENGINE_REPEATS))
-    report = build_report(header, settings, runs, engine, len(body), len(answer),
-                          args.workers)
-    print(report)
-    out = Path(args.out)
-    out.parent.mkdir(parents=True, exist_ok=True)
-    out.write_text(report)
-    print(f"written to {out}", file=sys.stderr)
+    write_report(build_report(header, settings, runs, engine, len(body), len(answer),
+                              args.workers), args.out)
     return 0
 
 

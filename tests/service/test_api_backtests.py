@@ -2,22 +2,12 @@
 
 from __future__ import annotations
 
-import time
-
 import numpy as np
 import pandas as pd
 
 from priors.backtest import rolling_origin
 
-
-def _wait(client, location, timeout=60.0):
-    deadline = time.monotonic() + timeout
-    while time.monotonic() < deadline:
-        job = client.get(location).json()
-        if job["status"] in ("succeeded", "failed", "cancelled"):
-            return job
-        time.sleep(0.05)
-    raise AssertionError(job)
+from .helpers import wait_for_job
 
 
 def test_backtest_job_returns_the_engine_scores(client, demo):
@@ -30,7 +20,7 @@ def test_backtest_job_returns_the_engine_scores(client, demo):
     job_id = r.json()["id"]
     early = client.get(f"/v1/backtests/{job_id}")
     assert early.status_code in (200, 409)
-    job = _wait(client, r.headers["location"])
+    job = wait_for_job(client, r.headers["location"])
     assert job["status"] == "succeeded" and job["result"] == f"/v1/backtests/{job_id}"
     out = client.get(job["result"]).json()
     assert out["origins"] == 4

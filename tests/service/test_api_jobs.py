@@ -13,6 +13,8 @@ from service.app import create_app
 from service.config import Settings
 from service.orm import Job
 
+from .helpers import wait_for_job
+
 ASYNC = {"Prefer": "respond-async"}
 
 
@@ -22,21 +24,11 @@ def model_body(demo_body):
     return {**body, "lags": 2}
 
 
-def _wait(client, location, timeout=60.0):
-    deadline = time.monotonic() + timeout
-    while time.monotonic() < deadline:
-        job = client.get(location).json()
-        if job["status"] in ("succeeded", "failed", "cancelled"):
-            return job
-        time.sleep(0.05)
-    raise AssertionError(f"job not finished within {timeout} s: {job}")
-
-
 def test_async_fit_runs_as_a_job_and_links_the_model(client, model_body):
     r = client.post("/v1/models", json=model_body, headers=ASYNC)
     assert r.status_code == 202 and r.headers["location"].startswith("/v1/jobs/")
     assert r.json()["status"] in ("queued", "running", "succeeded")
-    job = _wait(client, r.headers["location"])
+    job = wait_for_job(client, r.headers["location"])
     assert job["status"] == "succeeded" and job["progress"] == 1.0 and job["attempts"] == 1
     stored = client.get(job["result"]).json()
     direct = client.post("/v1/models", json=model_body).json()
@@ -47,7 +39,7 @@ def test_async_fit_runs_as_a_job_and_links_the_model(client, model_body):
 def test_a_failing_fit_ends_failed_with_a_problem(client, model_body):
     body = {**model_body, "series": {"tyres": [5.0] * 48, "chains": list(range(48))}}
     r = client.post("/v1/models", json=body, headers=ASYNC)
-    job = _wait(client, r.headers["location"])
+    job = wait_for_job(client, r.headers["location"])
     assert job["status"] == "failed" and job["result"] is None
     assert job["problem"]["status"] == 422 and "no variation" in job["problem"]["detail"]
 
@@ -95,7 +87,7 @@ def test_a_restart_finishes_what_a_crashed_server_left(tmp_path, model_body):
                 lease_until=dt.datetime.now(dt.UTC) - dt.timedelta(seconds=1)))
             s.commit()
     with TestClient(create_app(Settings(database_url=url, job_workers=1))) as c:
-        job = _wait(c, location)
+        job = wait_for_job(c, location)
         assert job["status"] == "succeeded" and job["attempts"] == 2
         assert c.get(job["result"]).status_code == 200
 
@@ -135,7 +127,7 @@ def test_heartbeat_keeps_a_long_fit_leased(tmp_path, model_body, monkeypatch):
                         job_lease_s=0.3, job_recovery_interval_s=0.1)
     with TestClient(create_app(settings)) as c:
         location = c.post("/v1/models", json=model_body, headers=ASYNC).headers["location"]
-        job = _wait(c, location)
+        job = wait_for_job(c, location)
     assert job["status"] == "succeeded" and job["attempts"] == 1  # never taken away
 
 
@@ -148,7 +140,7 @@ def test_fit_past_its_time_limit_loses_the_lease(tmp_path, model_body, monkeypat
                         job_max_attempts=1)
     with TestClient(create_app(settings)) as c:
         location = c.post("/v1/models", json=model_body, headers=ASYNC).headers["location"]
-        job = _wait(c, location)
+        job = wait_for_job(c, location)
     assert job["status"] == "failed" and "stopped 1 time(s)" in job["problem"]["detail"]
 
 

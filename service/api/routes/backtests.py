@@ -11,7 +11,7 @@ from starlette.exceptions import HTTPException
 
 from ...engine import check_model_limits, frame_from_spec
 from ...errors import PROBLEM_JSON
-from ...jobs import get_job, submit_backtest
+from ...jobs import get_job, submit_job
 from ...schemas import BacktestCreate, JobPublic
 from ..deps import SessionDep, SettingsDep, TenantDep
 from .jobs import job_public
@@ -35,8 +35,8 @@ def create_backtest(body: BacktestCreate, request: Request, session: SessionDep,
     if body.draws > settings.max_draws:
         raise HTTPException(422, f"draws: {body.draws} is over this server's limit of "
                                  f"{settings.max_draws}; lower draws")
-    job = submit_backtest(session=session, tenant=tenant, spec=body,
-                          max_attempts=settings.job_max_attempts)
+    job = submit_job(session=session, tenant=tenant, kind="backtest", spec=body,
+                     max_attempts=settings.job_max_attempts)
     request.app.state.jobs.wake()
     return JSONResponse(job_public(job), status_code=202,
                         headers={"Location": f"/v1/jobs/{job.id}", "Retry-After": "1"})

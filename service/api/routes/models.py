@@ -26,7 +26,7 @@ from ...engine import (
     model_params,
 )
 from ...errors import PROBLEM_JSON, problem
-from ...jobs import submit_fit
+from ...jobs import submit_job
 from ...orm import StoredModel
 from ...schemas import (
     FanChartPublic,
@@ -124,7 +124,7 @@ async def create_model(
         frame = frame_from_spec(body)
         check_model_limits(body, frame.shape[1], frame.shape[0], settings)
         if wants_async or _large(body, frame, settings):
-            job = submit_fit(session=session, tenant=tenant, spec=body,
+            job = submit_job(session=session, tenant=tenant, kind="fit_model", spec=body,
                              max_attempts=settings.job_max_attempts, commit=False)
             status, out, location = 202, job_public(job), f"/v1/jobs/{job.id}"
         else:

@@ -9,10 +9,12 @@ from .conjugate import NIWPosterior, flat_posterior, log_marginal_likelihood, po
 from .data import (
     Design,
     Deterministics,
+    RaggedEdge,
     SeriesData,
     build_design,
     future_exogenous_rows,
     load_series,
+    split_ragged_edge,
 )
 from .errors import (
     ConstantSeriesError,
@@ -31,9 +33,29 @@ from .errors import (
     TooFewObservationsError,
 )
 from .forecast import Forecast, fan_bands
+from .inventory import (
+    ReplenishmentAdvice,
+    exceedance_probabilities,
+    expected_shortage,
+    fill_rate_reorder_point,
+    lead_time_covariance,
+    reorder_point,
+    replenishment_advice,
+    window_totals,
+)
+from .irf import (
+    ResponseBands,
+    cumulative,
+    impulse_responses,
+    ma_coefficients,
+    response_units,
+    summarize_draws,
+    variance_decomposition,
+)
 from .model import FanfoldVAR, LagChoice
 from .predictive import companion_spectral_radius, simulate_paths, simulate_paths_from_draws
 from .sampling import Draws, sample_posterior
+from .scenarios import Condition, Scenario, conditional_paths, model_unit_conditions
 from .shrinkage import MinnesotaHyper, NIWPrior, minnesota_prior
 from .transforms import TRANSFORMS
 from .tuning import TightnessProfile, TuningResult, tune_hyperparameters
@@ -41,6 +63,7 @@ from .tuning import TightnessProfile, TuningResult, tune_hyperparameters
 __all__ = [
     "TRANSFORMS",
     "Calendar",
+    "Condition",
     "ConstantSeriesError",
     "ConvergenceWarning",
     "DataError",
@@ -61,6 +84,10 @@ __all__ = [
     "NotFittedError",
     "NotPositiveDefiniteError",
     "PriorsError",
+    "RaggedEdge",
+    "ReplenishmentAdvice",
+    "ResponseBands",
+    "Scenario",
     "SeriesData",
     "SpecificationError",
     "TightnessProfile",
@@ -69,15 +96,31 @@ __all__ = [
     "TuningResult",
     "build_design",
     "companion_spectral_radius",
+    "conditional_paths",
+    "cumulative",
+    "exceedance_probabilities",
+    "expected_shortage",
     "fan_bands",
+    "fill_rate_reorder_point",
     "flat_posterior",
     "future_exogenous_rows",
+    "impulse_responses",
+    "lead_time_covariance",
     "load_series",
     "log_marginal_likelihood",
+    "ma_coefficients",
     "minnesota_prior",
+    "model_unit_conditions",
     "posterior",
+    "reorder_point",
+    "replenishment_advice",
+    "response_units",
     "sample_posterior",
     "simulate_paths",
     "simulate_paths_from_draws",
+    "split_ragged_edge",
+    "summarize_draws",
     "tune_hyperparameters",
+    "variance_decomposition",
+    "window_totals",
 ]

@@ -31,10 +31,12 @@ from .transforms import DIFFERENCING, check_transforms, forward
 __all__ = [
     "Deterministics",
     "Design",
+    "RaggedEdge",
     "SeriesData",
     "build_design",
     "future_exogenous_rows",
     "load_series",
+    "split_ragged_edge",
 ]
 
 
@@ -220,6 +222,62 @@ def load_series(
     ex = ex[drop:]
     _check_finite(ex, ex_names, calendar, "exogenous regressor")
     return SeriesData(series_names, levels, values, calendar, tr, ex, ex_names)
+
+
+@dataclass(frozen=True)
+class RaggedEdge:
+    """The incomplete last periods of the data: ``values`` (r, n) in the user's units with
+    NaN where a series is not yet known; ``exog`` (r, q) their exogenous values."""
+
+    values: FloatArray
+    exog: FloatArray | None
+
+
+def split_ragged_edge(
+    data: pd.DataFrame | FloatArray,
+    exog: pd.DataFrame | FloatArray | None = None,
+    names: Sequence[str] | None = None,
+) -> tuple[pd.DataFrame, pd.DataFrame | FloatArray | None, RaggedEdge | None]:
+    """Cut the trailing rows where some (not all) series are missing.
+
+    Returns the complete part of the data and of ``exog``, and the cut rows (None when
+    the last row is complete). A trailing row with no value at all is refused: it carries
+    no information, so it should be dropped. Missing values before the last complete row
+    are left in place for :func:`load_series` to report.
+    """
+    frame = _as_frame(data, names)
+    try:
+        arr = frame.to_numpy(dtype=np.float64, na_value=np.nan)
+    except (TypeError, ValueError):
+        return frame, exog, None  # load_series names the non-numeric column
+    complete = np.all(np.isfinite(arr), axis=1)
+    if arr.shape[0] == 0 or complete[-1]:
+        return frame, exog, None
+    last = int(np.flatnonzero(complete)[-1]) if complete.any() else -1
+    tail = arr[last + 1 :]
+    empty = ~np.any(np.isfinite(tail), axis=1)
+    if empty.any():
+        row = last + 1 + int(np.flatnonzero(empty)[0])
+        label = frame.index[row]
+        raise MissingValuesError(
+            f"row {label} has no value for any series; drop empty trailing rows (only "
+            "the last periods may be incomplete, and each needs at least one value)")
+    if np.any(np.isinf(tail)):
+        raise MissingValuesError("the incomplete last periods contain an infinite value")
+    ex_tail = None
+    if exog is not None:
+        if isinstance(exog, pd.DataFrame | pd.Series):
+            ex_frame = exog.to_frame() if isinstance(exog, pd.Series) else exog
+            ex_tail = ex_frame.iloc[last + 1 :].to_numpy(dtype=np.float64, na_value=np.nan)
+            exog = ex_frame.iloc[: last + 1]
+        else:
+            ex = np.asarray(exog, dtype=np.float64)
+            ex = ex[:, None] if ex.ndim == 1 else ex
+            ex_tail, exog = ex[last + 1 :], ex[: last + 1]
+        if not np.all(np.isfinite(ex_tail)):
+            raise ExogenousError("exogenous regressors must be known in the incomplete last "
+                                 "periods too")
+    return frame.iloc[: last + 1], exog, RaggedEdge(tail, ex_tail)
 
 
 def _load_exog(

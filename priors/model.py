@@ -24,6 +24,7 @@ from .data import (
     build_design,
     future_exogenous_rows,
     load_series,
+    split_ragged_edge,
 )
 from .errors import (
     DataError,
@@ -35,6 +36,14 @@ from .errors import (
 from .forecast import Forecast
 from .predictive import companion_spectral_radius, simulate_paths, simulate_paths_from_draws
 from .sampling import Draws, check_size, sample_posterior
+from .scenarios import (
+    DEFAULT_SWEEPS,
+    Condition,
+    Scenario,
+    conditional_paths,
+    conditions_from_table,
+    model_unit_conditions,
+)
 from .shrinkage import MinnesotaHyper, NIWPrior, ar_residual_variances, minnesota_prior
 from .transforms import default_prior_mean, inverse_paths
 from .tuning import tune_hyperparameters
@@ -238,8 +247,15 @@ class FanfoldVAR:
         names: Sequence[str] | None = None,
         period: int | None = None,
     ) -> FanfoldVAR:
-        """Fit to ``data`` (T, n): a DataFrame with a regular DatetimeIndex or an array."""
+        """Fit to ``data`` (T, n): a DataFrame with a regular DatetimeIndex or an array.
+
+        The last rows may be incomplete (a "ragged edge": some series not yet known for
+        the latest periods). The model is fitted on the complete rows, and forecasts
+        start at the first incomplete period, conditioned on the values already known
+        there (see :meth:`forecast`).
+        """
         self._check_settings()
+        data, exog, ragged = split_ragged_edge(data, exog, names)
         series = load_series(data, transforms=self.transforms, exog=exog, names=names,
                              period=period)
         det = Deterministics(self.constant, self.trend, self.seasonal)
@@ -254,6 +270,7 @@ class FanfoldVAR:
         else:
             hyper, prior, post = self._fit_minnesota(design, prior_mean)
         self.series_ = series
+        self.ragged_ = ragged
         self.deterministics_ = det
         self.prior_mean_ = prior_mean
         self.design_ = design
@@ -292,6 +309,7 @@ class FanfoldVAR:
         """
         model = cls(**params)  # type: ignore[arg-type]
         model._check_settings()
+        data, exog, ragged = split_ragged_edge(data, exog, names)
         series = load_series(data, transforms=model.transforms, exog=exog, names=names,
                              period=period)
         det = Deterministics(model.constant, model.trend, model.seasonal)
@@ -303,6 +321,7 @@ class FanfoldVAR:
         prior_mean = model._prior_mean(series)
         prior = None if hyper is None else minnesota_prior(design, hyper, prior_mean)
         model.series_ = series
+        model.ragged_ = ragged
         model.deterministics_ = det
         model.prior_mean_ = prior_mean
         model.design_ = design
@@ -324,7 +343,9 @@ class FanfoldVAR:
 
         Lags, hyperparameters and the prior stay as fitted (no tuning again); the
         posterior equals a full refit on all the data under that same prior. The new
-        rows must continue the data: same series, following dates.
+        rows must continue the complete data: same series, following dates. Incomplete
+        last periods (a ragged edge) are replaced by the new rows, which may themselves
+        end incomplete.
         """
         self._check_fitted()
         old = self.series_
@@ -347,15 +368,18 @@ class FanfoldVAR:
                                 columns=list(old.exog_names))
             if isinstance(combined, pd.DataFrame):
                 exog.index = combined.index
+        combined, exog, ragged = split_ragged_edge(combined, exog, old.names)
         series = load_series(combined, transforms=self.transforms, exog=exog,
                              names=old.names, period=old.calendar.period)
         design = build_design(series, self.lags_, self.deterministics_)
         added = series.nobs - old.nobs
-        if added < 1:
+        if added < 1 and ragged is None:
             raise DataError("no new observations to append")
-        post = update_posterior(self.posterior_, design.X[-added:], design.Y[-added:])
+        post = (update_posterior(self.posterior_, design.X[-added:], design.Y[-added:])
+                if added else self.posterior_)
         model = type(self)(**self.get_params())  # type: ignore[arg-type]
         model.series_ = series
+        model.ragged_ = ragged
         model.deterministics_ = self.deterministics_
         model.prior_mean_ = self.prior_mean_
         model.design_ = design
@@ -405,13 +429,20 @@ class FanfoldVAR:
         exog_future : (horizon, q) future values of exogenous regressors, if any.
         reject_explosive : drop parameter draws whose companion matrix has spectral
             radius >= 1 (this truncates the posterior; the share dropped is reported).
+
+        With a ragged edge (data whose last r periods are incomplete), the forecast
+        covers those r periods and then ``horizon`` more: the values already known are
+        fixed as conditions and the missing ones are drawn given them (see
+        :meth:`scenario`).
         """
         self._check_fitted()
-        if int(horizon) != horizon or horizon < 1:
-            raise SpecificationError(f"horizon must be an integer >= 1; got {horizon!r}")
+        horizon = self._check_horizon(horizon)
+        if self.ragged_ is not None:
+            return self.scenario(horizon, [], rng=rng, draws=draws, exog_future=exog_future,
+                                 reject_explosive=reject_explosive).forecast
         draws = check_size(draws)
         series, post = self.series_, self.posterior_
-        exog_rows = future_exogenous_rows(series, self.deterministics_, int(horizon), exog_future)
+        exog_rows = future_exogenous_rows(series, self.deterministics_, horizon, exog_future)
         history = series.values[-self.lags_:]
         rejected = None
         if reject_explosive:
@@ -420,7 +451,144 @@ class FanfoldVAR:
         else:
             paths = simulate_paths(rng, post, history, exog_rows, draws)
         user = inverse_paths(paths, series.transforms, series.levels[-1])
-        return Forecast(user, series.names, series.calendar.future(int(horizon)), rejected)
+        return Forecast(user, series.names, series.calendar.future(horizon), rejected)
+
+    @staticmethod
+    def _check_horizon(horizon: int) -> int:
+        if int(horizon) != horizon or horizon < 1:
+            raise SpecificationError(f"horizon must be an integer >= 1; got {horizon!r}")
+        return int(horizon)
+
+    def _ragged_rows(self) -> int:
+        return 0 if self.ragged_ is None else self.ragged_.values.shape[0]
+
+    def _future_rows(self, steps: int, exog_future: pd.DataFrame | FloatArray | None
+                     ) -> FloatArray:
+        """Deterministic/exogenous rows for ``steps`` periods after the complete data; the
+        exogenous values of a ragged edge come first, then ``exog_future``."""
+        ragged = self.ragged_
+        if ragged is not None and ragged.exog is not None and ragged.exog.size:
+            names = list(self.series_.exog_names)
+            if exog_future is None:
+                fut = np.empty((0, len(names)))
+            elif isinstance(exog_future, pd.DataFrame):
+                missing = [c for c in names if c not in exog_future.columns]
+                if missing:
+                    raise ExogenousError(
+                        f"future values of exogenous regressor {missing[0]!r} missing")
+                fut = exog_future[names].to_numpy(dtype=np.float64, na_value=np.nan)
+            else:
+                fut = np.asarray(exog_future, dtype=np.float64).reshape(-1, len(names))
+            exog_future = np.vstack([ragged.exog, fut])
+        return future_exogenous_rows(self.series_, self.deterministics_, steps, exog_future)
+
+    def condition(
+        self,
+        series: str,
+        at: int | str | pd.Timestamp,
+        *,
+        value: float | None = None,
+        lower: float | None = None,
+        upper: float | None = None,
+        horizon: int | None = None,
+    ) -> Condition:
+        """A scenario condition in the user's units, by series name and step or date.
+
+        ``at`` is a step (1 = the first forecast period) or a date of a forecast period.
+        Give ``value`` for a fixed level, or ``lower`` and/or ``upper`` for a range.
+        ``horizon`` (the scenario's, before any ragged-edge rows) is needed for dates.
+        """
+        self._check_fitted()
+        names = self.series_.names
+        if series not in names:
+            raise SpecificationError(f"unknown series {series!r}; series are {', '.join(names)}")
+        j = names.index(series)
+        if isinstance(at, int | np.integer) and not isinstance(at, bool):
+            step = int(at)
+        else:
+            steps = self._ragged_rows() + (horizon if horizon is not None else 0)
+            dates = self.series_.calendar.future(max(steps, 1))
+            if dates is None:
+                raise SpecificationError("the data have no dates; give the step as a number")
+            when = pd.Timestamp(at)
+            hits = np.flatnonzero(dates == when)
+            if not hits.size:
+                raise SpecificationError(
+                    f"{when.date()} is not a forecast period; the forecast covers "
+                    f"{dates[0].date()} to {dates[-1].date()} at the data's frequency")
+            step = int(hits[0]) + 1
+        if value is not None:
+            if lower is not None or upper is not None:
+                raise SpecificationError(f"condition on {series!r}: give a value or a range, "
+                                         "not both")
+            return Condition(j, step, float(value), float(value))
+        if lower is None and upper is None:
+            raise SpecificationError(f"condition on {series!r}: give a value, or a lower "
+                                     "and/or upper bound")
+        lo = -np.inf if lower is None else float(lower)
+        hi = np.inf if upper is None else float(upper)
+        if lo == hi:
+            raise SpecificationError(f"condition on {series!r}: lower equals upper; give it "
+                                     "as a value")
+        return Condition(j, step, lo, hi)
+
+    def scenario(
+        self,
+        horizon: int,
+        conditions: Sequence[Condition],
+        *,
+        rng: np.random.Generator,
+        draws: int = 2000,
+        exog_future: pd.DataFrame | FloatArray | None = None,
+        reject_explosive: bool = False,
+        sweeps: int = DEFAULT_SWEEPS,
+    ) -> Scenario:
+        """Conditional forecast: paths drawn given fixed values and ranges.
+
+        Parameters
+        ----------
+        horizon : steps ahead (after any ragged-edge periods, which are always included).
+        conditions : from :meth:`condition`; steps count from the first forecast period.
+        rng, draws, exog_future, reject_explosive : as in :meth:`forecast`.
+        sweeps : Gibbs sweeps per draw for ranges (see :mod:`priors.scenarios`).
+
+        Returns a :class:`~priors.scenarios.Scenario` with the conditional forecast, the
+        unconditional baseline from the same parameter draws, and how likely each
+        condition was before conditioning.
+        """
+        self._check_fitted()
+        horizon = self._check_horizon(horizon)
+        draws = check_size(draws)
+        series = self.series_
+        r = self._ragged_rows()
+        steps = r + horizon
+        conds = list(conditions)
+        if self.ragged_ is not None:
+            known = conditions_from_table(self.ragged_.values)
+            cells = {(c.series, c.step) for c in known}
+            for c in conds:
+                if (c.series, c.step) in cells:
+                    raise SpecificationError(
+                        f"step {c.step} of {series.names[c.series]!r} is already known "
+                        "(an incomplete last period of the data); drop that condition")
+            conds = known + conds
+        cset = model_unit_conditions(conds, series.transforms, series.levels[-1], steps,
+                                     series.names)
+        exog_rows = self._future_rows(steps, exog_future)
+        rejected = None
+        if reject_explosive:
+            kept, rejected = self._stable_draws(rng, draws)
+        else:
+            kept = sample_posterior(rng, self.posterior_, draws)
+        out = conditional_paths(rng, kept.B, np.linalg.cholesky(kept.Sigma),
+                                series.values[-self.lags_:], exog_rows, cset,
+                                n_det=self.design_.n_det, sweeps=sweeps)
+        dates = series.calendar.future(steps)
+        def user(paths: FloatArray) -> Forecast:
+            return Forecast(inverse_paths(paths, series.transforms, series.levels[-1]),
+                            series.names, dates, rejected)
+        return Scenario(user(out.conditional), user(out.baseline), tuple(conds),
+                        out.prior_probability, out.soft_probability, out.sweeps, r)
 
     def _stable_draws(self, rng: np.random.Generator, draws: int,
                       max_rounds: int = 20) -> tuple[Draws, float]:

@@ -35,6 +35,7 @@ from .sampling import Draws, check_size, draw_sigma_roots
 __all__ = [
     "METHODS",
     "companion_spectral_radius",
+    "recursion_with_shocks",
     "simulate_paths",
     "simulate_paths_from_draws",
 ]
@@ -227,16 +228,26 @@ def _recursion(
     rng: np.random.Generator, B: FloatArray, M: FloatArray, history: FloatArray,
     exog_rows: FloatArray,
 ) -> FloatArray:
-    """y_h = B_s'x_h + M_s z_h for each draw s, feeding paths back as lags; (S, h, n).
+    """y_h = B_s'x_h + M_s z_h for each draw s, feeding paths back as lags; (S, h, n)."""
+    size, _, n = B.shape
+    h = exog_rows.shape[0]
+    shocks = np.matmul(M, rng.standard_normal((size, n, h))).transpose(0, 2, 1)
+    return recursion_with_shocks(B, shocks, history, exog_rows)
 
-    The shocks M_s z_h and the deterministic part are formed for all steps at once.
-    Values are stored newest first, so the p lags of every step are one contiguous
-    window (lag 1 first) and each step costs one batched (n x np)(np) product.
+
+def recursion_with_shocks(
+    B: FloatArray, shocks: FloatArray, history: FloatArray, exog_rows: FloatArray
+) -> FloatArray:
+    """y_h = B_s'x_h + e_{s,h} for given innovations e (S, h, n); paths (S, h, n).
+
+    The deterministic part is formed for all steps at once. Values are stored newest
+    first, so the p lags of every step are one contiguous window (lag 1 first) and each
+    step costs one batched (n x np)(np) product.
     """
-    size, k, n = B.shape
+    size, _, n = B.shape
     h, m = exog_rows.shape
     p = history.shape[0]
-    base = np.matmul(M, rng.standard_normal((size, n, h))).transpose(0, 2, 1)  # (S, h, n)
+    base = shocks
     if m:
         base = base + np.matmul(exog_rows[None], B[:, :m])
     buf = np.empty((size, h + p, n))  # position h - 1 - step holds step's value

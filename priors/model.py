@@ -35,6 +35,7 @@ from .errors import (
 )
 from .forecast import Forecast
 from .predictive import companion_spectral_radius, simulate_paths, simulate_paths_from_draws
+from .propagation import ShockResponses, VarianceShares, shock_responses, variance_shares
 from .sampling import Draws, check_size, sample_posterior
 from .scenarios import (
     DEFAULT_SWEEPS,
@@ -645,6 +646,51 @@ class FanfoldVAR:
         self._check_fitted()
         B = self.sample(draws, rng=rng).B
         return companion_spectral_radius(B, self.design_.n_det, self.lags_)
+
+    def impulse_responses(
+        self,
+        horizon: int = 24,
+        *,
+        rng: np.random.Generator,
+        draws: int = 1000,
+        identification: str = "recursive",
+        shock_size: str = "sd",
+        ordering: Sequence[str] | None = None,
+        cumulative: bool = False,
+    ) -> ShockResponses:
+        """How a shock to one series spreads to the others, with posterior bands.
+
+        One response per exact posterior draw of (B, Sigma), steps 0 (impact) to
+        ``horizon``, in the user's units where the transform allows (see
+        :func:`priors.irf.response_units`). ``identification``: "recursive" (Cholesky,
+        series in ``ordering``, a list of names, default the data's order) or
+        "generalised" (Pesaran & Shin 1998, no ordering). ``shock_size``: "sd" or
+        "unit". ``cumulative`` sums the responses over steps.
+        """
+        self._check_fitted()
+        d = self.sample(draws, rng=rng)
+        return shock_responses(d.B, d.Sigma, n_det=self.design_.n_det, lags=self.lags_,
+                               horizon=horizon, names=self.series_.names,
+                               transforms=self.series_.transforms,
+                               identification=identification, shock_size=shock_size,
+                               ordering=ordering, cumulative=cumulative)
+
+    def variance_decomposition(
+        self,
+        horizon: int = 24,
+        *,
+        rng: np.random.Generator,
+        draws: int = 1000,
+        identification: str = "recursive",
+        ordering: Sequence[str] | None = None,
+    ) -> VarianceShares:
+        """Shares of each series' 1..horizon-step forecast error variance due to each
+        shock (Lutkepohl 2005, sec. 2.3.3), one decomposition per posterior draw."""
+        self._check_fitted()
+        d = self.sample(draws, rng=rng)
+        return variance_shares(d.B, d.Sigma, n_det=self.design_.n_det, lags=self.lags_,
+                               horizon=horizon, names=self.series_.names,
+                               identification=identification, ordering=ordering)
 
     def coefficients(self, level: float = 0.9) -> pd.DataFrame:
         """Posterior mean, s.d. and central credible interval of every coefficient.

@@ -12,7 +12,7 @@ from fastapi.openapi.docs import get_swagger_ui_html
 from fastapi.openapi.utils import get_openapi
 from fastapi.responses import HTMLResponse, JSONResponse
 
-from .api.routes import backtests, forecasts, health, jobs, models
+from .api.routes import backtests, forecasts, health, jobs, models, planning
 from .auth import authenticate
 from .config import Settings, get_settings
 from .db import make_engine, make_session_factory
@@ -70,6 +70,7 @@ def create_app(settings: Settings | None = None) -> FastAPI:
     app.include_router(health.metrics_router, dependencies=protected)
     app.include_router(forecasts.router, dependencies=protected)
     app.include_router(models.router, dependencies=protected)
+    app.include_router(planning.router, dependencies=protected)
     app.include_router(jobs.router, dependencies=protected)
     app.include_router(backtests.router, dependencies=protected)
     if settings.docs_enabled:

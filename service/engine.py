@@ -7,18 +7,20 @@ from __future__ import annotations
 
 import contextlib
 import secrets
+from collections.abc import Sequence
 from typing import Any
 
 import numpy as np
 import pandas as pd
 
-from priors import DataError, FanfoldVAR, TimeIndexError
+from priors import DataError, FanfoldVAR, Forecast, SpecificationError, TimeIndexError
+from priors.inventory import window_totals
 from priors.model import default_max_lags
 
 from .config import Settings
 from .errors import LimitExceeded
 from .schemas import ForecastSettings, ModelSettings, OutputSettings, SeriesData
-from .serialization import forecast_to_dict
+from .serialization import forecast_to_dict, quantile_key
 
 __all__ = [
     "blas_threads",
@@ -27,6 +29,7 @@ __all__ = [
     "fan_chart",
     "fit_model",
     "forecast_answer",
+    "lead_time_totals",
     "frame_from_spec",
     "limit_blas_threads",
     "model_params",
@@ -160,11 +163,31 @@ def forecast_answer(model: FanfoldVAR, spec: OutputSettings, limits: Settings) -
     seed = secrets.randbits(32) if spec.seed is None else spec.seed
     fc = model.forecast(spec.horizon, rng=np.random.default_rng(seed), draws=spec.draws,
                         reject_explosive=spec.reject_explosive)
+    totals = None
+    if spec.lead_time is not None:
+        known = 0 if model.ragged_ is None else model.ragged_.values.shape[0]
+        totals = lead_time_totals(fc, spec.lead_time, spec.quantiles, first=known + 1)
     if spec.cumulative:
         fc = fc.cumulative()
     payload = forecast_to_dict(model, fc, quantiles=spec.quantiles, seed=seed, draws=spec.draws)
     payload["cumulative"] = spec.cumulative
+    payload["lead_time_totals"] = totals
     return payload
+
+
+def lead_time_totals(fc: Forecast, lead_time: int, quantiles: Sequence[float],
+                     first: int = 1) -> dict[str, Any]:
+    """Mean, median and quantiles of each series' total over ``lead_time`` steps from
+    step ``first``, path by path."""
+    if first - 1 + lead_time > fc.horizon:
+        raise SpecificationError(f"lead_time {lead_time} is longer than the horizon "
+                                 f"{fc.horizon - first + 1}; raise the horizon")
+    tot = window_totals(fc.paths, first, first - 1 + lead_time)  # (S, n)
+    qs = np.quantile(tot, quantiles, axis=0)
+    return {name: {"mean": float(tot[:, j].mean()), "median": float(np.median(tot[:, j])),
+                   "quantiles": {quantile_key(q): float(qs[i, j])
+                                 for i, q in enumerate(quantiles)}}
+            for j, name in enumerate(fc.names)}
 
 
 def run_forecast(spec: ForecastSettings, frame: pd.DataFrame, limits: Settings) -> dict[str, Any]:

@@ -30,7 +30,6 @@ from .schemas import OutputSettings
 from .serialization import _nums, forecast_to_dict, quantile_key
 
 __all__ = [
-    "lead_time_totals",
     "replenishment_answer",
     "scenario_answer",
     "shares_answer",
@@ -137,21 +136,6 @@ def _series_index(model: FanfoldVAR, name: str) -> int:
     if name not in names:
         raise SpecificationError(f"unknown series {name!r}; series are {', '.join(names)}")
     return names.index(name)
-
-
-def lead_time_totals(fc: Forecast, lead_time: int, quantiles: Sequence[float],
-                     first: int = 1) -> dict[str, Any]:
-    """Mean, median and quantiles of each series' total over ``lead_time`` steps from
-    step ``first``, path by path."""
-    if first - 1 + lead_time > fc.horizon:
-        raise SpecificationError(f"lead_time {lead_time} is longer than the horizon "
-                                 f"{fc.horizon - first + 1}; raise the horizon")
-    tot = window_totals(fc.paths, first, first - 1 + lead_time)  # (S, n)
-    qs = np.quantile(tot, quantiles, axis=0)
-    return {name: {"mean": float(tot[:, j].mean()), "median": float(np.median(tot[:, j])),
-                   "quantiles": {quantile_key(q): float(qs[i, j])
-                                 for i, q in enumerate(quantiles)}}
-            for j, name in enumerate(fc.names)}
 
 
 def replenishment_answer(model: FanfoldVAR, spec: ReplenishmentCreate, limits: Settings

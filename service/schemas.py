@@ -100,6 +100,9 @@ class OutputSettings(BaseModel):
     seed: int | None = Field(None, ge=0, lt=2**63, description="default: a fresh seed")
     cumulative: Flag = Field(False, description="running totals over steps 1..horizon")
     reject_explosive: Flag = False
+    lead_time: int | None = Field(
+        None, ge=1, le=104, description="also report each series' total over the first "
+        "lead_time periods (lead-time demand), path by path")
 
     @field_validator("quantiles")
     @classmethod
@@ -121,8 +124,10 @@ class SeriesData(BaseModel):
     model_config = ConfigDict(extra="forbid")
 
     series: dict[Annotated[str, Field(min_length=1, max_length=100)],
-                 Annotated[list[Number], Field(min_length=3)]] = Field(
-        ..., min_length=1, description="values per series name, oldest first, equal lengths")
+                 Annotated[list[Number | None], Field(min_length=3)]] = Field(
+        ..., min_length=1, description="values per series name, oldest first, equal lengths; "
+        "null only in the last periods for values not known yet (forecasts then start at "
+        "the first incomplete period, conditioned on the known values)")
     start: dt.date | None = Field(None, description="date of the first value")
     frequency: str | None = Field(
         None, description="pandas frequency of the dates, e.g. MS (month start), QS, W, D")
@@ -190,6 +195,14 @@ class SeriesForecast(BaseModel):
     quantiles: dict[str, list[float | None]]
 
 
+class LeadTimeTotal(BaseModel):
+    """One series' demand summed over the lead time."""
+
+    mean: float
+    median: float
+    quantiles: dict[str, float]
+
+
 class ForecastPublic(BaseModel):
     """The one-shot forecast answer (the CLI's ``forecast --json`` has the same layout)."""
 
@@ -202,6 +215,9 @@ class ForecastPublic(BaseModel):
     horizon: int
     rejected_explosive_share: float | None
     cumulative: bool
+    lead_time_totals: dict[str, LeadTimeTotal] | None = Field(
+        None, description="with lead_time: mean, median and quantiles of each series' "
+        "total over the lead time")
 
 
 class Coefficient(BaseModel):

@@ -285,15 +285,16 @@ def hyper_from_dict(values: dict[str, Any]) -> MinnesotaHyper | None:
 
 
 def data_to_dict(frame: pd.DataFrame) -> dict[str, Any]:
-    """A dated frame as JSON: ISO dates and values per series (floats round-trip exactly)."""
+    """A dated frame as JSON: ISO dates and values per series (floats round-trip exactly;
+    a missing value, as in incomplete last periods, is null)."""
     dates = ([d.date().isoformat() for d in frame.index]
              if isinstance(frame.index, pd.DatetimeIndex) else None)
     return {"dates": dates,
-            "series": {str(c): [float(v) for v in frame[c].to_numpy()] for c in frame}}
+            "series": {str(c): [_num(v) for v in frame[c].to_numpy()] for c in frame}}
 
 
 def data_from_dict(data: dict[str, Any]) -> pd.DataFrame:
-    frame = pd.DataFrame(data["series"])
+    frame = pd.DataFrame(data["series"], dtype=np.float64)
     if data.get("dates") is not None:
         frame.index = pd.DatetimeIndex(pd.to_datetime(data["dates"]), name="date")
     return frame

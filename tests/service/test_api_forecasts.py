@@ -20,7 +20,8 @@ def test_json_forecast_layout_and_values(client, demo_body):
     assert r.status_code == 200, r.text
     out = r.json()
     assert set(out) == {"forecasts", "lags", "hyperparameters", "log_marginal_likelihood",
-                        "seed", "draws", "horizon", "rejected_explosive_share", "cumulative"}
+                        "seed", "draws", "horizon", "rejected_explosive_share", "cumulative",
+                        "lead_time_totals"}
     assert (out["lags"], out["seed"], out["draws"], out["horizon"]) == (2, 11, 300, 4)
     tyres = out["forecasts"]["tyres"]
     assert tyres["dates"] == ["2020-01-01", "2020-02-01", "2020-03-01", "2020-04-01"]

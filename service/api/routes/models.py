@@ -2,7 +2,6 @@
 
 from __future__ import annotations
 
-import asyncio
 import hashlib
 import time
 import uuid
@@ -10,7 +9,6 @@ from typing import Annotated, Any
 
 import pandas as pd
 from fastapi import APIRouter, Header, Query, Request, Response
-from fastapi.concurrency import run_in_threadpool
 from fastapi.responses import JSONResponse
 from sqlalchemy.exc import IntegrityError
 from starlette.exceptions import HTTPException
@@ -43,7 +41,6 @@ from ...store import (
     BadCursor,
     delete_model,
     find_idempotent,
-    get_model,
     list_models,
     load_fitted,
     remember_idempotent,
@@ -51,22 +48,19 @@ from ...store import (
     save_model,
 )
 from ..deps import SessionDep, SettingsDep, TenantDep
+from ._shared import (
+    INVALID,
+    NOT_FOUND,
+    NOT_MODIFIED,
+    etag_for,
+    not_modified,
+    parse_bands,
+    row_or_404,
+    timed,
+)
 from .jobs import job_public
 
 router = APIRouter(prefix="/v1/models", tags=["models"])
-
-_NOT_FOUND = {404: {"description": "no such model for this caller",
-                    "content": {PROBLEM_JSON: {}}}}
-_INVALID = {422: {"description": "invalid input or a limit exceeded",
-                  "content": {PROBLEM_JSON: {}}}}
-
-
-def _row_or_404(session: Any, tenant: str, model_id: uuid.UUID) -> StoredModel:
-    row = get_model(session=session, tenant=tenant, model_id=str(model_id))
-    if row is None:
-        raise HTTPException(404, f"model {model_id} not found")
-    return row
-
 
 def _public(row: StoredModel, model: FanfoldVAR | None = None) -> dict[str, Any]:
     """The model resource; ``model`` is the fitted model when at hand (else restored)."""
@@ -83,13 +77,8 @@ def _public(row: StoredModel, model: FanfoldVAR | None = None) -> dict[str, Any]
     }
 
 
-async def _timed(settings: Any, fn: Any, *args: Any) -> Any:
-    return await asyncio.wait_for(run_in_threadpool(fn, *args),
-                                  timeout=settings.request_timeout_s)
-
-
 @router.post("", status_code=201, response_model=ModelPublic,
-             responses={**_INVALID, 202: {"model": JobPublic, "description":
+             responses={**INVALID, 202: {"model": JobPublic, "description":
                         "queued as a job (large fit, or 'Prefer: respond-async'); poll "
                         "Location"}},
              summary="Fit a model to the series and store it",
@@ -155,7 +144,7 @@ async def create_model(
                                 headers={"Location": location, "Retry-After": "1"})
         return JSONResponse(out, status_code=201, headers={"Location": location})
 
-    return await _timed(settings, work)
+    return await timed(settings, work)
 
 
 def _large(spec: ModelCreate, frame: Any, settings: Any) -> bool:
@@ -182,13 +171,13 @@ def list_stored(request: Request, response: Response, session: SessionDep, tenan
     return {"data": data, "next": nxt}
 
 
-@router.get("/{model_id}", response_model=ModelPublic, responses=_NOT_FOUND,
+@router.get("/{model_id}", response_model=ModelPublic, responses=NOT_FOUND,
             summary="A stored model: settings, data span, hyperparameters, coefficients")
 def read_model(model_id: uuid.UUID, session: SessionDep, tenant: TenantDep) -> dict[str, Any]:
-    return _public(_row_or_404(session, tenant, model_id))
+    return _public(row_or_404(session, tenant, model_id))
 
 
-@router.delete("/{model_id}", status_code=204, responses=_NOT_FOUND,
+@router.delete("/{model_id}", status_code=204, responses=NOT_FOUND,
                summary="Delete a stored model")
 def remove_model(model_id: uuid.UUID, session: SessionDep, tenant: TenantDep) -> Response:
     if not delete_model(session=session, tenant=tenant, model_id=str(model_id)):
@@ -197,29 +186,18 @@ def remove_model(model_id: uuid.UUID, session: SessionDep, tenant: TenantDep) ->
 
 
 @router.post("/{model_id}/forecasts", response_model=ForecastPublic,
-             responses={**_NOT_FOUND, **_INVALID},
+             responses={**NOT_FOUND, **INVALID},
              summary="Forecast from a stored model without refitting")
 async def forecast_stored(model_id: uuid.UUID, body: ModelForecastCreate, session: SessionDep,
                           settings: SettingsDep, tenant: TenantDep) -> JSONResponse:
-    row = _row_or_404(session, tenant, model_id)
-    payload = await _timed(settings, lambda: forecast_answer(load_fitted(row), body, settings))
+    row = row_or_404(session, tenant, model_id)
+    payload = await timed(settings, lambda: forecast_answer(load_fitted(row), body, settings))
     return JSONResponse(payload)
 
 
-def _bands(text: str) -> list[float]:
-    try:
-        values = sorted({float(b) for b in text.split(",") if b.strip()})
-    except ValueError:
-        values = []
-    if not values or not all(0 < v < 100 for v in values):
-        raise HTTPException(422, f"bands must be percentages between 0 and 100 like "
-                                 f"50,80,95; got {text!r}")
-    return values
-
-
 @router.get("/{model_id}/fan-chart", response_model=FanChartPublic,
-            responses={**_NOT_FOUND, **_INVALID,
-                       304: {"description": "unchanged since the ETag given"}},
+            responses={**NOT_FOUND, **INVALID,
+                       **NOT_MODIFIED},
             summary="Nested bands and history for a dashboard (ETag, 304 when unchanged)")
 def fan_chart_data(
     model_id: uuid.UUID, request: Request, session: SessionDep, settings: SettingsDep,
@@ -230,13 +208,10 @@ def fan_chart_data(
     seed: Annotated[int, Query(ge=0, lt=2**63)] = 0,
     history: Annotated[int, Query(ge=0, le=10_000, description="past periods")] = 24,
 ) -> Response:
-    row = _row_or_404(session, tenant, model_id)
-    levels = _bands(bands)
-    key = f"{row.id}|{row.version}|{horizon}|{levels}|{draws}|{seed}|{history}"
-    etag = f'W/"{hashlib.sha256(key.encode()).hexdigest()[:32]}"'
-    headers = {"ETag": etag, "Cache-Control": "private, no-cache"}
-    given = request.headers.get("if-none-match", "")
-    if etag in [t.strip() for t in given.split(",")] or given.strip() == "*":
+    row = row_or_404(session, tenant, model_id)
+    levels = parse_bands(bands)
+    etag, headers = etag_for(row, horizon, levels, draws, seed, history)
+    if not_modified(request, etag):
         return Response(status_code=304, headers=headers)
     chart = fan_chart(load_fitted(row), horizon=horizon, bands=levels, draws=draws, seed=seed,
                       history=history, limits=settings)
@@ -245,12 +220,12 @@ def fan_chart_data(
 
 
 @router.post("/{model_id}/observations", response_model=ModelPublic,
-             responses={**_NOT_FOUND, **_INVALID},
+             responses={**NOT_FOUND, **INVALID},
              summary="Append new periods; the posterior is updated exactly, no refit")
 async def append_observations(model_id: uuid.UUID, body: ObservationsCreate,
                               session: SessionDep, settings: SettingsDep,
                               tenant: TenantDep) -> dict[str, Any]:
-    row = _row_or_404(session, tenant, model_id)
+    row = row_or_404(session, tenant, model_id)
 
     def work() -> dict[str, Any]:
         model = load_fitted(row)
@@ -260,7 +235,9 @@ async def append_observations(model_id: uuid.UUID, body: ObservationsCreate,
             raise HTTPException(422, "send every series of the model, in its order: "
                                      + ", ".join(map(str, old.columns)))
         grown = model.append(new)
-        replace_fitted(session=session, row=row, frame=pd.concat([old, new]), model=grown)
+        known = 0 if model.ragged_ is None else model.ragged_.values.shape[0]
+        kept = old.iloc[: old.shape[0] - known]  # incomplete last periods are replaced
+        replace_fitted(session=session, row=row, frame=pd.concat([kept, new]), model=grown)
         return _public(row, grown)
 
-    return await _timed(settings, work)
+    return await timed(settings, work)

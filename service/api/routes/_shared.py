@@ -1,0 +1,61 @@
+"""Helpers shared by the model routes: lookup, timeouts, band lists and ETags."""
+
+from __future__ import annotations
+
+import asyncio
+import hashlib
+import uuid
+from typing import Any
+
+from fastapi import Request
+from fastapi.concurrency import run_in_threadpool
+from starlette.exceptions import HTTPException
+
+from ...errors import PROBLEM_JSON
+from ...orm import StoredModel
+from ...store import get_model
+
+NOT_FOUND = {404: {"description": "no such model for this caller",
+                   "content": {PROBLEM_JSON: {}}}}
+INVALID = {422: {"description": "invalid input or a limit exceeded",
+                 "content": {PROBLEM_JSON: {}}}}
+NOT_MODIFIED = {304: {"description": "unchanged since the ETag given"}}
+
+
+def row_or_404(session: Any, tenant: str, model_id: uuid.UUID) -> StoredModel:
+    row = get_model(session=session, tenant=tenant, model_id=str(model_id))
+    if row is None:
+        raise HTTPException(404, f"model {model_id} not found")
+    return row
+
+
+async def timed(settings: Any, fn: Any, *args: Any) -> Any:
+    """Run blocking work in the thread pool under the request timeout."""
+    return await asyncio.wait_for(run_in_threadpool(fn, *args),
+                                  timeout=settings.request_timeout_s)
+
+
+def parse_bands(text: str) -> list[float]:
+    """"50,80,95" -> [50.0, 80.0, 95.0]; 422 unless every value is in (0, 100)."""
+    try:
+        values = sorted({float(b) for b in text.split(",") if b.strip()})
+    except ValueError:
+        values = []
+    if not values or not all(0 < v < 100 for v in values):
+        raise HTTPException(422, f"bands must be percentages between 0 and 100 like "
+                                 f"50,80,95; got {text!r}")
+    return values
+
+
+def etag_for(row: StoredModel, *parts: object) -> tuple[str, dict[str, str]]:
+    """A weak ETag of the model's version and the query, with its caching headers. The
+    answers behind it are deterministic (fixed seed), so equal tags mean equal bodies."""
+    key = "|".join([row.id, str(row.version), *map(str, parts)])
+    etag = f'W/"{hashlib.sha256(key.encode()).hexdigest()[:32]}"'
+    return etag, {"ETag": etag, "Cache-Control": "private, no-cache"}
+
+
+def not_modified(request: Request, etag: str) -> bool:
+    """Whether If-None-Match matches ``etag`` (RFC 9110 sec. 13.1.2, weak comparison)."""
+    given = request.headers.get("if-none-match", "")
+    return given.strip() == "*" or etag in [t.strip() for t in given.split(",")]

@@ -15,7 +15,7 @@ from typing import Any
 import httpx
 import pandas as pd
 
-__all__ = ["FanfoldAPIError", "FanfoldClient", "forecast_table"]
+__all__ = ["FanfoldAPIError", "FanfoldClient", "forecast_table", "pointwise_table"]
 
 
 class FanfoldAPIError(Exception):
@@ -39,6 +39,26 @@ def forecast_table(answer: dict[str, Any]) -> pd.DataFrame:
             for level, values in fc["quantiles"].items():
                 row[f"q{level}"] = values[h]
             rows.append(row)
+    return pd.DataFrame(rows)
+
+
+def pointwise_table(answer: dict[str, Any], key: str) -> pd.DataFrame:
+    """Impulse responses (``key="responses"``, nested shock -> response) or variance
+    shares (``key="shares"``, nested series -> shock) as a tidy table with the median and
+    one lower/upper column pair per band."""
+    outer, inner = ("shock", "response") if key == "responses" else ("response", "shock")
+    rows = []
+    for a, by_b in answer[key].items():
+        for b, values in by_b.items():
+            for i, step in enumerate(answer["steps"]):
+                row: dict[str, Any] = {outer: a, inner: b, "step": step,
+                                       "median": values["median"][i]}
+                for band, lu in values["bands"].items():
+                    row[f"lower{band}"] = lu["lower"][i]
+                    row[f"upper{band}"] = lu["upper"][i]
+                if key == "responses":
+                    row["unit"] = answer["units"][b]
+                rows.append(row)
     return pd.DataFrame(rows)
 
 
@@ -120,6 +140,53 @@ class FanfoldClient:
         """Append new periods to a stored model (exact update, no refit)."""
         return self._post(f"/v1/models/{model_id}/observations", json=_series_body(data))
 
+    def scenario(self, model_id: str, conditions: list[dict[str, Any]], **settings: Any
+                 ) -> tuple[pd.DataFrame, pd.DataFrame]:
+        """Conditional forecast of a stored model: (forecast table with a
+        ``baseline_median`` column, conditions table with their prior probabilities).
+
+        ``conditions``: dicts like ``{"series": "tyres", "step": 1, "value": 1300}`` or
+        ``{"series": "chains", "date": "2026-03-01", "lower": 500, "upper": 560}``.
+        """
+        answer = self._post(f"/v1/models/{model_id}/scenarios",
+                            json={"conditions": conditions, **settings})
+        table = forecast_table(answer)
+        base = forecast_table({"forecasts": answer["baseline"]})
+        table["baseline_median"] = base["median"].to_numpy()
+        return table, pd.DataFrame(answer["conditions"])
+
+    def impulse_responses(self, model_id: str, **params: Any) -> pd.DataFrame:
+        """How shocks spread (GET impulse-responses); a tidy table, see
+        :func:`pointwise_table`. ``params``: horizon, identification, ordering (a list or a
+        comma-separated string), shock_size, cumulative, draws, seed, bands."""
+        params = _listed(params)
+        answer = self._request("GET", f"/v1/models/{model_id}/impulse-responses",
+                               params=params).json()
+        return pointwise_table(answer, "responses")
+
+    def variance_decomposition(self, model_id: str, **params: Any) -> pd.DataFrame:
+        """Variance shares by shock; a tidy table, see :func:`pointwise_table`."""
+        answer = self._request("GET", f"/v1/models/{model_id}/variance-decomposition",
+                               params=_listed(params)).json()
+        return pointwise_table(answer, "shares")
+
+    def replenishment(self, model_id: str, *, lead_time: int,
+                      items: list[dict[str, Any]] | None = None,
+                      alerts: list[dict[str, Any]] | None = None,
+                      **settings: Any) -> dict[str, Any]:
+        """Reorder advice: {"items": DataFrame (one row per item), "alerts": DataFrame (one
+        row per alert and period), "window": {...}}. Model estimates: review them before
+        ordering."""
+        answer = self._post(f"/v1/models/{model_id}/replenishment",
+                            json={"lead_time": lead_time, "items": items or [],
+                                  "alerts": alerts or [], **settings})
+        items_frame = pd.DataFrame(answer["items"])
+        rows = [{"series": a["series"], "threshold": a["threshold"], "below": a["below"],
+                 "date": d, "probability": p, "any_step": a["any_step"]}
+                for a in answer["alerts"] for d, p in zip(a["dates"], a["probability"],
+                                                          strict=True)]
+        return {"items": items_frame, "alerts": pd.DataFrame(rows), "window": answer["window"]}
+
     def fan_chart(self, model_id: str, **params: Any) -> dict[str, Any]:
         return self._request("GET", f"/v1/models/{model_id}/fan-chart", params=params).json()
 
@@ -127,8 +194,22 @@ class FanfoldClient:
         self._request("DELETE", f"/v1/models/{model_id}")
 
 
+def _listed(params: dict[str, Any]) -> dict[str, Any]:
+    """Query parameters: lists joined by commas, booleans as true/false."""
+    out = {}
+    for k, v in params.items():
+        if isinstance(v, list | tuple):
+            v = ",".join(map(str, v))
+        elif isinstance(v, bool):
+            v = "true" if v else "false"
+        out[k] = v
+    return out
+
+
 def _series_body(data: pd.DataFrame) -> dict[str, Any]:
+    """Series as JSON; NaN (a value not known yet in the last periods) becomes null."""
     if not isinstance(data.index, pd.DatetimeIndex):
         raise TypeError("data needs a DatetimeIndex (one row per period)")
-    return {"series": {str(c): data[c].astype(float).tolist() for c in data.columns},
+    return {"series": {str(c): [None if pd.isna(v) else float(v) for v in data[c]]
+                       for c in data.columns},
             "dates": [d.date().isoformat() for d in data.index]}

@@ -185,6 +185,9 @@ class ReplenishmentCreate(BaseModel):
     lead_time: int = Field(..., ge=1, le=104, description="periods until an order arrives")
     review_period: int = Field(0, ge=0, le=104,
                                description="periods between reviews (periodic review)")
+    start: int = Field(1, ge=1, le=104, description="first period of the demand window "
+                       "(1 = the next period); the window has lead_time + review_period "
+                       "periods")
     items: list[ReplenishmentItem] = Field(default_factory=list, max_length=200)
     alerts: list[AlertIn] = Field(default_factory=list, max_length=200)
     quantiles: list[Probability] = Field([0.05, 0.5, 0.95], min_length=1, max_length=25)

@@ -143,7 +143,7 @@ def replenishment_answer(model: FanfoldVAR, spec: ReplenishmentCreate, limits: S
     """Reorder advice per item and alert probabilities (:class:`ReplenishmentPublic`)."""
     window = spec.lead_time + spec.review_period
     known = 0 if model.ragged_ is None else model.ragged_.values.shape[0]
-    check_output_limits(OutputSettings(horizon=window + known, draws=spec.draws,
+    check_output_limits(OutputSettings(horizon=spec.start - 1 + window + known, draws=spec.draws,
                                        quantiles=spec.quantiles), model.design_.n, limits)
     items = []
     for item in spec.items:
@@ -156,8 +156,10 @@ def replenishment_answer(model: FanfoldVAR, spec: ReplenishmentCreate, limits: S
     for alert in spec.alerts:
         _series_index(model, alert.series)
     seed = _seed(spec.seed)
-    fc = model.forecast(window, rng=np.random.default_rng(seed), draws=spec.draws)
-    start, end = known + 1, known + window
+    fc = model.forecast(spec.start - 1 + window, rng=np.random.default_rng(seed),
+                        draws=spec.draws)
+    start = known + spec.start
+    end = start + window - 1
     out_items = []
     for item, names in zip(spec.items, items, strict=True):
         weights = np.zeros(model.series_.n)
@@ -192,6 +194,6 @@ def replenishment_answer(model: FanfoldVAR, spec: ReplenishmentCreate, limits: S
                        "below": alert.below, "dates": steps,
                        "probability": per_step[:, j].tolist(),
                        "any_step": float(any_step[j])})
-    return {"window": {"start": steps[0], "end": steps[-1], "steps": window,
+    return {"window": {"first": steps[0], "last": steps[-1], "steps": window,
                        "lead_time": spec.lead_time, "review_period": spec.review_period},
             "items": out_items, "alerts": alerts, "seed": seed, "draws": int(spec.draws)}

@@ -350,3 +350,24 @@ def test_bad_shapes_and_windows_are_rejected():
         lead_time_covariance(np.zeros((5, 2, 1)), AR1_SIGMA, 1, 1, 3)
     with pytest.raises(SpecificationError, match="lead_time must be >= 1"):
         lead_time_covariance(AR1_B, AR1_SIGMA, 1, 1, 0)
+
+
+def test_lead_time_covariance_at_the_posterior_mean_of_a_fitted_var():
+    # The issue's check on a fitted model: Lutkepohl (2005) example data E1 (West German
+    # investment, income, consumption, 1960Q1-1978Q4, in levels; tests/data/e1.dat),
+    # Minnesota VAR(2). Holding theta at the posterior mean (B_bar, E[Sigma]), the
+    # simulated covariance of the 4-quarter sums equals sum_s C_s Sigma C_s'
+    # (methods brief sec. 12) within Monte Carlo error (normal D: s.e. as above).
+    from pathlib import Path
+
+    from priors.model import FanfoldVAR
+
+    e1 = Path(__file__).resolve().parents[1] / "data" / "e1.dat"
+    levels = np.loadtxt(e1, skiprows=7)[:76]
+    model = FanfoldVAR(lags=2, tightness=0.2).fit(levels, names=["inv", "inc", "cons"])
+    B, Sig = model.posterior_.B, model.posterior_.sigma_mean()
+    S, L = 200_000, 4
+    paths = _fixed_parameter_paths(B, Sig, levels[-2:], L, S, seed=11)
+    V = lead_time_covariance(B, Sig, n_det=1, lags=2, lead_time=L)
+    se = np.sqrt((np.outer(np.diag(V), np.diag(V)) + V**2) / S)
+    assert np.all(np.abs(np.cov(window_totals(paths), rowvar=False) - V) < Z * se)

@@ -135,7 +135,7 @@ def test_replenishment_advice_and_alerts(client, model_id, part):
     r = client.post(f"/v1/models/{model_id}/replenishment", json=body)
     assert r.status_code == 200, r.text
     out = r.json()
-    assert out["window"] == {"start": "2021-01-01", "end": "2021-03-01", "steps": 3,
+    assert out["window"] == {"first": "2021-01-01", "last": "2021-03-01", "steps": 3,
                              "lead_time": 3, "review_period": 0}
     tyres, kit = out["items"]
     assert tyres["name"] == "tyres" and kit["name"] == "tyre kit"
@@ -148,6 +148,9 @@ def test_replenishment_advice_and_alerts(client, model_id, part):
     model = FanfoldVAR(lags=2).fit(part)
     fc = model.forecast(3, rng=np.random.default_rng(5), draws=2000)
     assert kit["mean_demand"] == pytest.approx(fc.paths[:, :, :2].sum(axis=(1, 2)).mean())
+    later = client.post(f"/v1/models/{model_id}/replenishment",
+                        json={**body, "start": 4, "review_period": 1}).json()
+    assert later["window"]["first"] == "2021-04-01" and later["window"]["steps"] == 4
     pads, low = out["alerts"]
     assert len(pads["probability"]) == 3 and pads["any_step"] >= max(pads["probability"])
     assert low["below"] is True

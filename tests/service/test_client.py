@@ -56,3 +56,29 @@ def test_stored_model_round_trip(fanfold, demo):
     with pytest.raises(FanfoldAPIError) as info:
         fanfold.forecast_model(model["id"], horizon=2)
     assert info.value.status == 404
+
+
+def test_planning_calls_return_tables(fanfold, demo):
+    part = demo[["tyres", "inner_tubes"]].iloc[:72].copy()
+    part.iloc[-1, 1] = float("nan")  # ragged edge: sent as null
+    model = fanfold.create_model(part, lags=2)
+    table, conds = fanfold.scenario(model["id"], [{"series": "tyres", "step": 2,
+                                                   "value": 1400}],
+                                    horizon=3, draws=200, seed=1)
+    assert list(conds["kind"]) == ["known", "value"]
+    fixed = table[(table["series"] == "tyres") & (table["step"] == 2)]
+    assert fixed["median"].iloc[0] == pytest.approx(1400)
+    assert "baseline_median" in table.columns
+    irf = fanfold.impulse_responses(model["id"], horizon=4, draws=100,
+                                    ordering=["inner_tubes", "tyres"], cumulative=True)
+    assert set(irf.columns) >= {"shock", "response", "step", "median", "lower68", "unit"}
+    assert len(irf) == 2 * 2 * 5
+    shares = fanfold.variance_decomposition(model["id"], horizon=3, draws=100, bands="90")
+    assert set(shares.columns) == {"response", "shock", "step", "median", "lower90",
+                                   "upper90"}
+    advice = fanfold.replenishment(model["id"], lead_time=2, draws=500, seed=3,
+                                   items=[{"series": "tyres", "on_hand": 1000,
+                                           "service_level": 0.9}],
+                                   alerts=[{"series": "inner_tubes", "threshold": 2500}])
+    assert advice["items"]["reorder_point"].iloc[0] > 0
+    assert len(advice["alerts"]) == 2

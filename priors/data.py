@@ -253,6 +253,8 @@ def split_ragged_edge(
     complete = np.all(np.isfinite(arr), axis=1)
     if arr.shape[0] == 0 or complete[-1]:
         return frame, exog, None
+    if isinstance(frame.index, pd.DatetimeIndex):
+        calendar_from_index(frame.index)  # the incomplete rows' dates must be regular too
     last = int(np.flatnonzero(complete)[-1]) if complete.any() else -1
     tail = arr[last + 1 :]
     empty = ~np.any(np.isfinite(tail), axis=1)

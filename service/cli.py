@@ -26,7 +26,7 @@ import pandas as pd
 from priors import TRANSFORMS, ConvergenceWarning, FanfoldVAR, PriorsError, SpecificationError
 from priors.model import default_max_lags
 
-from .engine import blas_threads
+from .engine import blas_threads, lead_time_totals
 from .serialization import forecast_to_dict, frame_from_csv, quantile_key, summary_to_dict
 from .tables import format_backtest, format_fit, format_forecast, format_ranking
 
@@ -223,7 +223,8 @@ def _model_options() -> argparse.ArgumentParser:
 
 
 def build_parser() -> argparse.ArgumentParser:
-    """The ``fanfold`` parser with its ``forecast`` and ``fit`` commands."""
+    """The ``fanfold`` parser with its commands (the planning ones from
+    :mod:`service.cli_planning`)."""
     parser = _Parser(prog="fanfold", formatter_class=_HelpFormatter,
                      description="Bayesian VAR forecasts of monthly (or other regular) "
                                  "demand series from a CSV file.")
@@ -254,10 +255,16 @@ def build_parser() -> argparse.ArgumentParser:
     fc.add_argument("--cumulative", action="store_true",
                     help="report running totals over steps 1..h (e.g. total demand up to each "
                          "date), summed path by path so cross-period correlation counts")
+    fc.add_argument("--lead-time", type=_integer(1), metavar="L",
+                    help="also report each series' total demand over steps 1..L (path by "
+                         "path), e.g. over a replenishment lead time (default: off)")
     fc.add_argument("--reject-explosive", action="store_true",
                     help="drop parameter draws with explosive dynamics (companion spectral "
                          "radius >= 1) and report the share dropped")
     fc.add_argument("--json", action="store_true", help="print JSON instead of tables")
+    fc.add_argument("--plot", metavar="FILE.png",
+                    help="also draw a fan chart (50, 80, 95%% bands after the last 36 "
+                         "periods of data) as a PNG (default: no file)")
     fc.set_defaults(run=_forecast)
 
     fit = sub.add_parser("fit", help="fit the model and summarise the posterior",
@@ -326,6 +333,10 @@ def build_parser() -> argparse.ArgumentParser:
                          "(default: no file)")
     bt.set_defaults(run=_backtest)
 
+    from .cli_planning import add_planning_commands  # imports this module: not at the top
+
+    add_planning_commands(sub, data_help=data_help, **common)
+
     keys = sub.add_parser("keys", help="manage API keys", formatter_class=_HelpFormatter,
                           description="Create API keys. The server stores only their hashes.")
     keys_sub = keys.add_subparsers(dest="keys_command", metavar="ACTION", required=True)
@@ -369,6 +380,10 @@ def _forecast(args: argparse.Namespace) -> str:
     seed = secrets.randbits(32) if args.seed is None else args.seed
     fc = model.forecast(args.horizon, rng=np.random.default_rng(seed), draws=args.draws,
                         reject_explosive=args.reject_explosive)
+    totals = None
+    if args.lead_time is not None:
+        known = 0 if model.ragged_ is None else model.ragged_.values.shape[0]
+        totals = lead_time_totals(fc, args.lead_time, args.quantiles, first=known + 1)
     if args.cumulative:
         fc = fc.cumulative()
     if args.out:
@@ -378,8 +393,13 @@ def _forecast(args: argparse.Namespace) -> str:
         except OSError as exc:
             raise InputError(f"cannot write {args.out!r}: {_one_line(exc)}") from exc
         print(f"fanfold: wrote {len(table)} rows to {args.out}", file=sys.stderr)
+    if args.plot:
+        from .cli_planning import plot_forecast
+
+        plot_forecast(args.plot, model, fc, cumulative=args.cumulative)
     payload = forecast_to_dict(model, fc, quantiles=args.quantiles, seed=seed, draws=args.draws)
     payload["cumulative"] = bool(args.cumulative)
+    payload["lead_time_totals"] = totals
     return _json(payload) if args.json else format_forecast(payload)
 
 

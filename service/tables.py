@@ -82,6 +82,16 @@ def format_forecast(payload: dict[str, Any]) -> str:
             for h, date in enumerate(fc["dates"])
         ]
         out += ["", name, render_table(["date", *columns], rows)]
+    totals = payload.get("lead_time_totals")
+    if totals:
+        first = next(iter(totals.values()))
+        keys = list(first["quantiles"])
+        dec = decimals_for(v for t in totals.values()
+                           for v in [t["mean"], *t["quantiles"].values()])
+        rows = [[name, _fixed(t["mean"], dec), _fixed(t["median"], dec),
+                 *(_fixed(t["quantiles"][k], dec) for k in keys)] for name, t in totals.items()]
+        out += ["", "total over the lead time (summed path by path):",
+                render_table(["series", "mean", "median", *(f"q{k}" for k in keys)], rows)]
     return "\n".join(out)
 
 

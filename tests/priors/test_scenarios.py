@@ -14,7 +14,7 @@ import pandas as pd
 import pytest
 from scipy import stats
 
-from priors.errors import MissingValuesError, SpecificationError
+from priors.errors import MissingValuesError, SpecificationError, TimeIndexError
 from priors.model import FanfoldVAR
 from priors.scenarios import Condition, conditional_paths, model_unit_conditions
 
@@ -308,3 +308,14 @@ def test_append_replaces_the_ragged_rows():
     np.testing.assert_array_equal(updated.series_.levels, frame.to_numpy())
     again = updated.append(ragged.iloc[-1:].set_axis([frame.index[-1] + pd.offsets.MonthBegin()]))
     assert again.ragged_ is not None and again.series_.nobs == updated.series_.nobs
+
+
+def test_ragged_rows_must_keep_the_calendar():
+    frame = _demand()
+    skipped = frame.copy()
+    skipped.iloc[-1, 1] = np.nan
+    idx = skipped.index.to_list()
+    idx[-1] = idx[-1] + pd.offsets.MonthBegin()  # a month missing before the last row
+    skipped.index = pd.DatetimeIndex(idx)
+    with pytest.raises(TimeIndexError):
+        FanfoldVAR(lags=1).fit(skipped)

@@ -44,7 +44,7 @@ def test_forecast_json_layout(run) -> None:
     out = _forecast_json(run, "--seed", 1)
     assert set(out) == {"forecasts", "lags", "hyperparameters", "log_marginal_likelihood",
                         "seed", "draws", "horizon",
-                        "rejected_explosive_share", "cumulative"}
+                        "rejected_explosive_share", "cumulative", "lead_time_totals"}
     assert (out["lags"], out["seed"], out["draws"], out["horizon"]) == (2, 1, 200, 3)
     assert set(out["hyperparameters"]) == {"tightness", "decay", "det_scale", "sum_coef",
                                            "initial"}
@@ -400,3 +400,15 @@ def test_backtest_ranks_candidate_settings(run) -> None:
     assert crps == sorted(crps)
     code, _, err = run("backtest", DEMO, "--candidate", "bad:wheels=2")
     assert code == 2 and "unknown setting" in err
+
+
+def test_forecast_lead_time_totals(capsys):
+    # totals are per-path sums over steps 1..L: their mean is the sum of the step means
+    code = main(["forecast", str(DEMO), "--horizon", "4", "--lead-time", "3", "--draws", "300",
+                 "--seed", "2", "--json"])
+    assert code == 0
+    out = json.loads(capsys.readouterr().out)
+    tyres = out["lead_time_totals"]["tyres"]
+    assert tyres["mean"] == pytest.approx(sum(out["forecasts"]["tyres"]["mean"][:3]))
+    assert main(["forecast", str(DEMO), "--horizon", "2", "--lead-time", "3"]) == 2
+    assert "longer than the horizon" in capsys.readouterr().err

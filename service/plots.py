@@ -1,0 +1,215 @@
+"""PNG charts for the command line: fan charts, scenarios and shock responses.
+
+matplotlib is imported inside the functions with the Agg backend (no display needed),
+as in :mod:`service.report`. Each function writes one PNG to ``path`` and returns the
+figure, already closed (its axes stay readable, e.g. for tests). Values are in the
+series' own units; ``OSError`` from an unwritable path is left to the caller.
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Sequence
+from typing import Any
+
+import numpy as np
+import pandas as pd
+
+from priors import Forecast
+from priors.propagation import ShockResponses
+from priors.scenarios import Scenario
+
+__all__ = ["fan_chart_png", "period_name", "responses_png", "scenario_png"]
+
+_BLUE = "#2f6db5"
+_PERIODS = {"monthly": "months", "quarterly": "quarters", "weekly": "weeks", "daily": "days"}
+
+
+def period_name(kind: str) -> str:
+    """Plural name of a period for a calendar kind: "monthly" -> "months" (else
+    "periods")."""
+    return _PERIODS.get(kind, "periods")
+
+
+def _pyplot() -> Any:
+    import matplotlib
+
+    matplotlib.use("Agg")
+    import matplotlib.pyplot as plt
+
+    return plt
+
+
+def _grid(plt: Any, panels: int, *, cols: int, width: float, height: float
+          ) -> tuple[Any, list[Any]]:
+    """A figure with ``panels`` axes in rows of ``cols``; unused cells removed."""
+    cols = max(1, min(cols, panels))
+    rows = math.ceil(panels / cols)
+    fig, axes = plt.subplots(rows, cols, figsize=(width * cols, height * rows),
+                             squeeze=False, layout="constrained")
+    flat = list(axes.ravel())
+    for ax in flat[panels:]:
+        ax.remove()
+    return fig, flat[:panels]
+
+
+def _legend(fig: Any, axes: Sequence[Any]) -> None:
+    """One legend below the panels with every label used in any of them, once."""
+    entries: dict[str, Any] = {}
+    for ax in axes:
+        for handle, label in zip(*ax.get_legend_handles_labels(), strict=True):
+            entries.setdefault(label, handle)
+    fig.legend(list(entries.values()), list(entries), loc="outside lower center",
+               ncols=min(len(entries), 4), fontsize=8, frameon=False)
+
+
+def _save(fig: Any, plt: Any, path: str) -> Any:
+    try:
+        fig.savefig(path, format="png", dpi=110)
+    finally:
+        plt.close(fig)
+    return fig
+
+
+def _dates_axis(ax: Any) -> None:
+    import matplotlib.dates as mdates
+
+    locator = mdates.AutoDateLocator(minticks=3, maxticks=7)
+    ax.xaxis.set_major_locator(locator)
+    ax.xaxis.set_major_formatter(mdates.ConciseDateFormatter(locator))
+
+
+def _x(forecast: Forecast) -> np.ndarray:
+    """Forecast x values: dates, or steps 1..h for data without dates."""
+    if forecast.dates is None:
+        return np.arange(1, forecast.horizon + 1)
+    return forecast.dates.to_numpy()
+
+
+def _history_x(history: pd.DataFrame) -> np.ndarray:
+    if isinstance(history.index, pd.DatetimeIndex):
+        return history.index.to_numpy()
+    return np.arange(-len(history) + 1, 1)  # plain rows: 0 is the last observation
+
+
+def _fan(ax: Any, x: np.ndarray, forecast: Forecast, j: int, bands: Sequence[float],
+         history: pd.DataFrame | None, name: str) -> None:
+    """History, nested bands (widest lightest) and the median of series ``j``."""
+    if history is not None and name in history.columns and len(history):
+        ax.plot(_history_x(history), history[name].to_numpy(dtype=np.float64),
+                color="black", lw=1.1, label="history")
+    band = forecast.bands(bands)
+    for i, cov in enumerate(sorted(band, reverse=True)):
+        lo, hi = band[cov][0, :, j], band[cov][1, :, j]
+        ax.fill_between(x, lo, hi, color=_BLUE, alpha=0.18 + 0.12 * i, lw=0,
+                        label=f"{cov:g}% band")
+    ax.plot(x, forecast.median()[:, j], color=_BLUE, lw=1.6, label="median")
+    ax.set_ylabel(f"{name} (units)")
+    if forecast.dates is not None:
+        _dates_axis(ax)
+    else:
+        ax.set_xlabel("step")
+
+
+def fan_chart_png(path: str, history: pd.DataFrame | None, forecast: Forecast, *,
+                  bands: Sequence[float] = (50, 80, 95), title: str | None = None) -> Any:
+    """One panel per series: the recent history, nested central bands and the median.
+
+    ``history`` (dates x series, the series' own units; e.g. the last 36 periods) may be
+    None, e.g. for running totals that have no past counterpart.
+    """
+    plt = _pyplot()
+    fig, axes = _grid(plt, len(forecast.names), cols=2, width=5.6, height=3.0)
+    x = _x(forecast)
+    for j, (ax, name) in enumerate(zip(axes, forecast.names, strict=True)):
+        _fan(ax, x, forecast, j, bands, history, name)
+        ax.set_title(name)
+    _legend(fig, axes)
+    fig.suptitle(title or "Forecast: median and central bands")
+    return _save(fig, plt, path)
+
+
+def scenario_png(path: str, history: pd.DataFrame | None, scenario: Scenario, *,
+                 bands: Sequence[float] = (50, 80, 95)) -> Any:
+    """The conditional forecast as a fan chart per series, with the baseline median
+    (dashed), fixed values (dots) and ranges (bars; arrows for one-sided ranges).
+
+    Every series is shown, since conditions on one move the others; the titles of the
+    conditioned series say so.
+    """
+    plt = _pyplot()
+    fc, base = scenario.forecast, scenario.baseline
+    fig, axes = _grid(plt, len(fc.names), cols=2, width=5.6, height=3.0)
+    x = _x(fc)
+    table = scenario.table()
+    base_median = base.median()
+    for j, (ax, name) in enumerate(zip(axes, fc.names, strict=True)):
+        _fan(ax, x, fc, j, bands, history, name)
+        ax.plot(x, base_median[:, j], color="#555555", lw=1.2, ls="--",
+                label="baseline median")
+        rows = table[table["series"] == name]
+        for kind, marker, label in (("value", "o", "fixed value"), ("known", "s", "known")):
+            fixed = rows[rows["kind"] == kind]
+            if len(fixed):
+                ax.plot(x[fixed["step"].to_numpy() - 1], fixed["lower"].to_numpy(),
+                        ls="none", marker=marker, ms=5, color="#c0392b", label=label)
+        ranges = rows[rows["kind"] == "range"]
+        for r in ranges.itertuples():
+            lower = -math.inf if pd.isna(r.lower) else float(r.lower)
+            upper = math.inf if pd.isna(r.upper) else float(r.upper)
+            _range(ax, x[int(r.step) - 1], lower, upper)
+        ax.set_title(f"{name} (conditioned)" if len(rows) else name,
+                     fontweight="bold" if len(rows) else "normal")
+    _legend(fig, axes)
+    fig.suptitle("Scenario: conditional forecast (bands, median) and baseline (dashed)")
+    return _save(fig, plt, path)
+
+
+def _range(ax: Any, x: Any, lower: float, upper: float) -> None:
+    color = "#d35400"
+    if math.isfinite(lower) and math.isfinite(upper):
+        mid, half = (lower + upper) / 2, (upper - lower) / 2
+        ax.errorbar([x], [mid], yerr=[[half], [half]], fmt="none", ecolor=color, elinewidth=2,
+                    capsize=4, label="range")
+    elif math.isfinite(lower):
+        ax.plot([x], [lower], ls="none", marker="^", ms=7, color=color, label="at least")
+    else:
+        ax.plot([x], [upper], ls="none", marker="v", ms=7, color=color, label="at most")
+
+
+def responses_png(path: str, responses: ShockResponses, *, shocks: Sequence[str] | None = None,
+                  coverages: Sequence[float] = (68, 90), period_name: str = "months") -> Any:
+    """Impulse responses: one row per responding series, one column per shock, with the
+    pointwise median, central bands and the zero line; y axes in each series' unit."""
+    names = list(responses.names)
+    chosen = names if shocks is None else list(shocks)
+    unknown = [s for s in chosen if s not in names]
+    if unknown:
+        raise ValueError(f"unknown shock {unknown[0]!r}; series are {', '.join(names)}")
+    plt = _pyplot()
+    rows, cols = len(names), len(chosen)
+    fig, axes = plt.subplots(rows, cols, figsize=(3.4 * cols, 2.3 * rows), squeeze=False,
+                             sharex=True, layout="constrained")
+    steps = np.arange(responses.steps)
+    med, band = responses.median(), responses.bands(coverages)
+    for c, shock in enumerate(chosen):
+        j = names.index(shock)
+        for r, resp in enumerate(names):
+            ax = axes[r, c]
+            for i, cov in enumerate(sorted(band, reverse=True)):
+                ax.fill_between(steps, band[cov][0, :, r, j], band[cov][1, :, r, j],
+                                color=_BLUE, alpha=0.18 + 0.14 * i, lw=0,
+                                label=f"{cov:g}% band")
+            ax.plot(steps, med[:, r, j], color=_BLUE, lw=1.5, label="median")
+            ax.axhline(0.0, color="grey", lw=0.8)
+            ax.set_title(f"shock: {shock} -> {resp}", fontsize=8)
+            ax.tick_params(labelsize=7)
+            if c == 0:
+                ax.set_ylabel(f"{resp} ({responses.units[r]})", fontsize=8)
+            if r == rows - 1:
+                ax.set_xlabel(f"{period_name} after the shock", fontsize=8)
+    _legend(fig, [axes[0, 0]])
+    size = "one-s.d." if responses.shock_size == "sd" else "unit"
+    total = ", summed over steps" if responses.cumulative else ""
+    fig.suptitle(f"Responses to a {size} shock ({responses.identification}{total})")
+    return _save(fig, plt, path)

@@ -180,6 +180,16 @@ def _names(text: str) -> list[str]:
 
 
 # ---------------------------------------------------------------------- parser
+def _add_sampling(parser: argparse.ArgumentParser, *, draws: int, quantiles: str) -> None:
+    """--draws, --seed (fresh by default) and --quantiles, shared by scenario and reorder."""
+    parser.add_argument("--draws", type=_positive_int, default=draws, metavar="N",
+                        help="simulated paths")
+    parser.add_argument("--seed", type=_seed, metavar="S", help="random seed (default: a "
+                        "fresh random seed, printed with the output)")
+    parser.add_argument("--quantiles", type=_quantiles, default="0.05,0.5,0.95",
+                        metavar="Q,...", help=quantiles)
+
+
 def add_planning_commands(sub: Any, *, parents: list[argparse.ArgumentParser],
                           formatter_class: type[argparse.HelpFormatter], data_help: str
                           ) -> None:
@@ -201,12 +211,7 @@ def add_planning_commands(sub: Any, *, parents: list[argparse.ArgumentParser],
     sc.add_argument("--plan", metavar="PLAN.csv",
                     help="fixed values from a CSV file: dates in the first column, one column "
                          "per conditioned series, blank cells free (default: none)")
-    sc.add_argument("--draws", type=_positive_int, default=2000, metavar="N",
-                    help="simulated paths")
-    sc.add_argument("--seed", type=_seed, metavar="S",
-                    help="random seed (default: a fresh random seed, printed with the output)")
-    sc.add_argument("--quantiles", type=_quantiles, default="0.05,0.5,0.95", metavar="Q,...",
-                    help="comma-separated quantile levels in (0, 1)")
+    _add_sampling(sc, draws=2000, quantiles="comma-separated quantile levels in (0, 1)")
     sc.add_argument("--sweeps", type=_positive_int, default=25, metavar="N",
                     help="Gibbs sweeps per draw for ranges (ignored without ranges)")
     sc.add_argument("--json", action="store_true",
@@ -287,12 +292,7 @@ def add_planning_commands(sub: Any, *, parents: list[argparse.ArgumentParser],
                     metavar="'NAME>T'|'NAME<T'",
                     help="probability that a series goes above (or below) a threshold in "
                          "the window, repeatable")
-    ro.add_argument("--draws", type=_positive_int, default=4000, metavar="N",
-                    help="simulated paths")
-    ro.add_argument("--seed", type=_seed, metavar="S",
-                    help="random seed (default: a fresh random seed, printed with the output)")
-    ro.add_argument("--quantiles", type=_quantiles, default="0.05,0.5,0.95", metavar="Q,...",
-                    help="quantile levels of lead-time demand to report")
+    _add_sampling(ro, draws=4000, quantiles="quantile levels of lead-time demand to report")
     ro.add_argument("--json", action="store_true",
                     help="print the HTTP API's replenishment answer as JSON instead of a table")
     ro.set_defaults(run=_reorder)

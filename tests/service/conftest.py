@@ -10,6 +10,7 @@ import pytest
 from fastapi.testclient import TestClient
 
 from service.app import create_app
+from service.cli import main
 from service.config import Settings, get_settings
 
 DEMO_CSV = Path(__file__).resolve().parents[2] / "examples" / "bike_parts_demand.csv"
@@ -51,3 +52,15 @@ def demo_body(demo: pd.DataFrame) -> dict:
     return {"series": {c: part[c].astype(float).tolist() for c in part},
             "start": "2016-01-01", "frequency": "MS", "horizon": 4, "draws": 300, "seed": 11,
             "lags": 2}
+
+
+@pytest.fixture
+def run(capsys: pytest.CaptureFixture[str]):
+    """Run ``fanfold ARGS`` in-process; returns (exit status, stdout, stderr)."""
+
+    def _run(*args: object) -> tuple[int, str, str]:
+        code = main([str(a) for a in args])
+        out, err = capsys.readouterr()
+        return code, out, err
+
+    return _run

@@ -21,16 +21,6 @@ NAMES = ["tyres", "inner_tubes", "brake_pads", "chains", "cassettes"]
 FAST = ["--lags", "2", "--draws", "200"]
 
 
-@pytest.fixture
-def run(capsys: pytest.CaptureFixture[str]):
-    """Run ``fanfold ARGS`` in-process; returns (exit status, stdout, stderr)."""
-
-    def _run(*args: object) -> tuple[int, str, str]:
-        code = main([str(a) for a in args])
-        out, err = capsys.readouterr()
-        return code, out, err
-
-    return _run
 
 
 def _forecast_json(run, *extra: object) -> dict:

@@ -10,7 +10,7 @@ import numpy as np
 import pytest
 
 from priors import FanfoldVAR
-from service.cli import main, read_data
+from service.cli import read_data
 from service.config import Settings
 from service.plan_schemas import (
     ReplenishmentCreate,
@@ -28,16 +28,6 @@ NAMES = ["tyres", "inner_tubes", "brake_pads", "chains", "cassettes"]
 PNG = b"\x89PNG\r\n\x1a\n"
 
 
-@pytest.fixture
-def run(capsys: pytest.CaptureFixture[str]):
-    """Run ``fanfold ARGS`` in-process; returns (exit status, stdout, stderr)."""
-
-    def _run(*args: object) -> tuple[int, str, str]:
-        code = main([str(a) for a in args])
-        out, err = capsys.readouterr()
-        return code, out, err
-
-    return _run
 
 
 def _json(run, *args: object) -> dict:

@@ -4,24 +4,17 @@ are checked against statsmodels and Pesaran & Shin (1998) in test_irf.py)."""
 from __future__ import annotations
 
 import numpy as np
-import pandas as pd
 import pytest
 
 from priors.errors import SpecificationError
 from priors.irf import impulse_responses
 from priors.model import FanfoldVAR
 
+from .helpers import two_lines
 
-def _frame(T=80, seed=4):
-    """Invented demo-style data (no reference values): two related positive lines."""
-    rng = np.random.default_rng(seed)
-    y = np.zeros((T, 2))
-    y[0] = [200.0, 300.0]
-    for t in range(1, T):
-        y[t] = [40 + 0.8 * y[t - 1, 0], 60 + 0.3 * y[t - 1, 0] + 0.5 * y[t - 1, 1]]
-        y[t] += rng.normal(0, [8.0, 10.0])
-    return pd.DataFrame(y, index=pd.date_range("2018-01-01", periods=T, freq="MS"),
-                        columns=["tyres", "inner_tubes"])
+
+def _frame():
+    return two_lines(80, 4, "2018-01-01")
 
 
 def test_responses_are_the_draws_responses_in_user_units():

@@ -18,6 +18,8 @@ from priors.errors import MissingValuesError, SpecificationError, TimeIndexError
 from priors.model import FanfoldVAR
 from priors.scenarios import Condition, conditional_paths, model_unit_conditions
 
+from .helpers import two_lines
+
 # A fixed VAR(2) with n = 2 and a constant: theta known, no parameter uncertainty.
 N, P, H = 2, 2, 4
 A1 = np.array([[0.5, 0.2], [0.3, 0.4]])
@@ -226,16 +228,8 @@ def test_levels_a_log_series_cannot_reach():
 
 
 # ------------------------------------------------------------------ facade
-def _demand(T=96, seed=11):
-    """Invented demo-style data (demo only, no reference values): two related lines."""
-    rng = np.random.default_rng(seed)
-    y = np.zeros((T, 2))
-    y[0] = [200.0, 300.0]
-    for t in range(1, T):
-        y[t] = [40 + 0.8 * y[t - 1, 0], 60 + 0.3 * y[t - 1, 0] + 0.5 * y[t - 1, 1]]
-        y[t] += rng.normal(0, [8.0, 10.0])
-    idx = pd.date_range("2017-01-01", periods=T, freq="MS")
-    return pd.DataFrame(y, index=idx, columns=["tyres", "inner_tubes"])
+def _demand():
+    return two_lines()
 
 
 @pytest.mark.parametrize("transform", ["none", "log", "diff", "logdiff", "log1p"])

@@ -539,6 +539,10 @@ def _store_demo(base: str) -> str:
         f"  curl -s{key} -X POST {base}/v1/models/{row.id}/forecasts "
         "-H 'Content-Type: application/json' -d '{\"horizon\": 6, \"seed\": 1}'",
         f"  curl -s{key} '{base}/v1/models/{row.id}/fan-chart?horizon=12&bands=50,80,95'",
+        f"  curl -s{key} '{base}/v1/models/{row.id}/impulse-responses?horizon=12'",
+        f"  curl -s{key} -X POST {base}/v1/models/{row.id}/replenishment "
+        "-H 'Content-Type: application/json' -d '{\"lead_time\": 3, \"items\": "
+        "[{\"series\": \"tyres\", \"on_hand\": 2600, \"service_level\": 0.95}]}'",
         f"  curl -s{key} -X POST '{base}/v1/forecasts?horizon=6&seed=1' "
         "-H 'Content-Type: text/csv' --data-binary @examples/bike_parts_demand.csv",
     ])

@@ -8,7 +8,7 @@ from typing import Annotated, Literal
 
 from pydantic import BaseModel, ConfigDict, Field, model_validator
 
-from .schemas import Flag, Number, OutputSettings, SeriesForecast
+from .schemas import Flag, LeadTimeTotal, Number, OutputSettings, SeriesForecast
 
 __all__ = [
     "AlertIn",
@@ -93,6 +93,10 @@ class ScenarioPublic(BaseModel):
     seed: int
     draws: int
     horizon: int
+    cumulative: bool
+    lead_time_totals: dict[str, LeadTimeTotal] | None = Field(
+        None, description="with lead_time: each series' total over the lead time, given "
+                          "the conditions")
 
 
 class Band(BaseModel):

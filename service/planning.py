@@ -24,7 +24,7 @@ from priors.inventory import (
 from priors.propagation import ShockResponses, VarianceShares
 
 from .config import Settings
-from .engine import check_output_limits
+from .engine import check_output_limits, lead_time_totals
 from .plan_schemas import ReplenishmentCreate, ScenarioCreate
 from .schemas import OutputSettings
 from .serialization import _nums, forecast_to_dict, quantile_key
@@ -54,6 +54,10 @@ def scenario_answer(model: FanfoldVAR, spec: ScenarioCreate, limits: Settings) -
     sc = model.scenario(spec.horizon, conds, rng=np.random.default_rng(seed), draws=spec.draws,
                         reject_explosive=spec.reject_explosive, sweeps=spec.sweeps)
     conditional, baseline = sc.forecast, sc.baseline
+    totals = None
+    if spec.lead_time is not None:
+        totals = lead_time_totals(conditional, spec.lead_time, spec.quantiles,
+                                  first=sc.known_periods + 1)
     if spec.cumulative:
         conditional, baseline = conditional.cumulative(), baseline.cumulative()
     def layout(fc: Forecast) -> dict[str, Any]:
@@ -69,7 +73,8 @@ def scenario_answer(model: FanfoldVAR, spec: ScenarioCreate, limits: Settings) -
     return {"forecasts": layout(conditional), "baseline": layout(baseline),
             "conditions": conditions, "ranges_probability": float(sc.soft_probability),
             "known_periods": int(sc.known_periods), "sweeps": int(sc.sweeps), "seed": seed,
-            "draws": int(spec.draws), "horizon": int(conditional.horizon)}
+            "draws": int(spec.draws), "horizon": int(conditional.horizon),
+            "cumulative": bool(spec.cumulative), "lead_time_totals": totals}
 
 
 def _pointwise(median: np.ndarray, bands: dict[float, np.ndarray], r: int, j: int

@@ -39,7 +39,8 @@ def test_scenario_fixes_values_and_reports_their_percentiles(client, model_id, p
     assert r.status_code == 200, r.text
     out = r.json()
     assert set(out) == {"forecasts", "baseline", "conditions", "ranges_probability",
-                        "known_periods", "sweeps", "seed", "draws", "horizon"}
+                        "known_periods", "sweeps", "seed", "draws", "horizon", "cumulative",
+                        "lead_time_totals"}
     tyres = out["forecasts"]["tyres"]
     assert tyres["dates"][0] == "2021-01-01"
     assert tyres["mean"][0] == pytest.approx(1500) and tyres["quantiles"]["0.1"][0] == \
@@ -74,6 +75,16 @@ def test_bad_conditions_are_422_problems_naming_the_fault(client, model_id, cond
     assert r.status_code == 422, r.text
     assert r.headers["content-type"].startswith("application/problem+json")
     assert needle in r.text
+
+
+def test_scenario_lead_time_totals_follow_the_plan(client, model_id):
+    body = {"horizon": 3, "draws": 300, "seed": 3, "lead_time": 2,
+            "conditions": [{"series": "tyres", "step": 1, "value": 1500},
+                           {"series": "tyres", "step": 2, "value": 1600}]}
+    out = client.post(f"/v1/models/{model_id}/scenarios", json=body).json()
+    assert out["lead_time_totals"]["tyres"]["quantiles"]["0.05"] == pytest.approx(3100)
+    assert out["lead_time_totals"]["inner_tubes"]["mean"] == pytest.approx(
+        sum(out["forecasts"]["inner_tubes"]["mean"][:2]))
 
 
 def test_impulse_responses_match_the_engine_and_cache_with_etags(client, model_id, part):

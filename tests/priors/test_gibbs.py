@@ -19,7 +19,7 @@ import pytest
 from scipy.linalg import solve_triangular
 
 from priors.conjugate import posterior
-from priors.data import Deterministics, build_design, load_series
+from priors.data import Design, Deterministics, build_design, load_series
 from priors.errors import SpecificationError
 from priors.gibbs import (
     GibbsSettings,
@@ -229,8 +229,8 @@ def test_geweke_joint_distribution_test():
     sc = np.empty_like(mc)
     for m in range(M):
         y = _simulate_y(rng, B, Sigma, T, y0)
-        design = build_design(load_series(y), 1, Deterministics(constant=True))
-        pre = precompute(design, prior)
+        X = np.column_stack([np.ones(T), y[:-1]])
+        pre = precompute(Design(y[1:], X, 1, 1, ("const", "a", "b"), ("a", "b")), prior)
         state = init_state(pre, B[None], Sigma[None])
         z = gens[0].standard_normal((1, 2, 3))
         Bn, G = draw_coefficients(z, state.B, state.G, np.linalg.inv(state.Sigma), pre)

@@ -36,7 +36,6 @@ from dataclasses import dataclass
 from typing import NamedTuple
 
 import numpy as np
-from scipy.linalg import solve_triangular
 
 from ._types import FloatArray
 from .data import Design
@@ -182,11 +181,10 @@ def _iw_batch(rngs: Sequence[np.random.Generator], S: FloatArray, df: float) -> 
     except np.linalg.LinAlgError as exc:
         raise NotPositiveDefiniteError("the posterior scale of Sigma is not positive "
                                        "definite; check the data for collinear series") from exc
-    out = np.empty_like(S)
-    for c in range(C):
-        M = solve_triangular(A[c], L[c].T, lower=True, check_finite=False).T  # L A^-T
-        out[c] = M @ M.T
-    return out
+    # numpy's LAPACK only: scipy ships another OpenBLAS whose threads compete for the
+    # cores in this hot loop (measured 7 ms per 20 x 20 solve instead of microseconds)
+    M = L @ np.linalg.inv(A).transpose(0, 2, 1)  # L A^-T
+    return M @ M.transpose(0, 2, 1)
 
 
 def draw_coefficients(z: FloatArray, B: FloatArray, G: FloatArray, W: FloatArray,
@@ -197,7 +195,7 @@ def draw_coefficients(z: FloatArray, B: FloatArray, G: FloatArray, W: FloatArray
     for i in range(B.shape[2]):
         w = W[:, :, i]  # (C, n)
         c = w[:, i][:, None]  # (C, 1): (Sigma^-1)_ii
-        rhs = (pre.prior_rhs[:, i] + np.einsum("ckn,cn->ck", pre.XtY - G, w)
+        rhs = (pre.prior_rhs[:, i] + ((pre.XtY - G) @ w[:, :, None])[:, :, 0]
                + c * G[:, :, i])
         Qi, wh = pre.Q[i], pre.wh[i]
         d = 1.0 + c * pre.lam[i]  # (C, k)
@@ -211,8 +209,9 @@ def draw_coefficients(z: FloatArray, B: FloatArray, G: FloatArray, W: FloatArray
 def draw_sigma(rngs: Sequence[np.random.Generator], B: FloatArray, G: FloatArray,
                pre: Precomputed) -> FloatArray:
     """Sigma | B ~ IW(S0 + E'E, df + T) per chain, E'E from the cross-products."""
-    BtXtY = np.einsum("ckn,km->cnm", B, pre.XtY)
-    EtE = pre.YtY - BtXtY - BtXtY.transpose(0, 2, 1) + np.einsum("ckn,ckm->cnm", B, G)
+    Bt = B.transpose(0, 2, 1)
+    BtXtY = Bt @ pre.XtY  # batched matmul: BLAS, unlike einsum here
+    EtE = pre.YtY - BtXtY - BtXtY.transpose(0, 2, 1) + Bt @ G
     EtE = 0.5 * (EtE + EtE.transpose(0, 2, 1))
     return _iw_batch(rngs, pre.S0 + EtE, pre.df + pre.nobs)
 
@@ -341,3 +340,23 @@ def run_chains(
     B = np.concatenate([p[0] for p in parts if p is not None])
     S = np.concatenate([p[1] for p in parts if p is not None])
     return GibbsDraws(B, S, settings)
+
+
+def gibbs_convergence(draws: GibbsDraws, design: Design):  # -> ConvergenceReport | None
+    """R-hat, bulk/tail ESS and MCSE of every coefficient and every distinct element of
+    Sigma (see :func:`priors.convergence.chain_diagnostics`); None with one chain
+    (split R-hat across chains needs two or more)."""
+    from .convergence import chain_diagnostics
+
+    if draws.chains < 2 or draws.B.shape[1] < 4:
+        return None
+    names, labels = design.names, design.labels
+    k, n = draws.B.shape[2:]
+    rows, cols = np.triu_indices(n)
+    return chain_diagnostics(
+        {"B": draws.B.astype(np.float64),
+         "Sigma": draws.Sigma[:, :, rows, cols].astype(np.float64)},
+        labels={"B": [f"{labels[r]} -> {names[i]}" for r in range(k) for i in range(n)],
+                "Sigma": [f"Sigma[{names[a]}, {names[b]}]" for a, b in zip(rows, cols,
+                                                                           strict=True)]},
+    )

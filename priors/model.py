@@ -6,8 +6,9 @@ computes the closed-form posterior and sets the fitted attributes (names ending 
 
 from __future__ import annotations
 
+import dataclasses
 import inspect
-from collections.abc import Mapping, Sequence
+from collections.abc import Callable, Mapping, Sequence
 from dataclasses import dataclass
 
 import numpy as np
@@ -26,6 +27,7 @@ from .data import (
     load_series,
     split_ragged_edge,
 )
+from .draw_summaries import coefficient_table, mixture_log_density
 from .errors import (
     DataError,
     ExogenousError,
@@ -34,6 +36,14 @@ from .errors import (
     TooFewObservationsError,
 )
 from .forecast import Forecast
+from .gibbs import (
+    GibbsDraws,
+    GibbsSettings,
+    gibbs_convergence,
+    independent_minnesota_prior,
+    precompute,
+    run_chains,
+)
 from .predictive import companion_spectral_radius, simulate_paths, simulate_paths_from_draws
 from .propagation import ShockResponses, VarianceShares, shock_responses, variance_shares
 from .sampling import Draws, check_size, sample_posterior
@@ -51,7 +61,7 @@ from .tuning import tune_hyperparameters
 
 __all__ = ["FanfoldVAR", "LagChoice", "default_max_lags"]
 
-PRIORS = ("minnesota", "flat")
+PRIORS = ("minnesota", "flat", "independent")
 _MAX_LAGS = {"monthly": 13, "quarterly": 5, "weekly": 8, "daily": 14}
 
 
@@ -94,10 +104,19 @@ class FanfoldVAR:
         common sample (Schwarz criterion with ``prior="flat"``).
     max_lags : int, optional
         Largest order tried by "auto"; default by frequency (see :func:`default_max_lags`).
-    prior : "minnesota" or "flat"
+    prior : "minnesota", "independent" or "flat"
+        "minnesota": natural-conjugate form, closed-form posterior and exact draws.
+        "independent": the full Minnesota pattern as an independent Normal prior on the
+        coefficients (own and other series' lags shrunk separately, see ``cross``) with
+        an inverse-Wishart prior on Sigma, sampled by Gibbs (:mod:`priors.gibbs`).
         "flat" is the flat-prior limit (OLS posterior mean, Jeffreys prior on Sigma).
     tightness : float or "auto"
-        Prior s.d. of the own first lag; "auto" maximises the marginal likelihood.
+        Prior s.d. of the own first lag; "auto" maximises the marginal likelihood (of
+        the conjugate form, also for "independent", whose marginal likelihood has no
+        closed form).
+    cross : float
+        "independent" only: other series' lags get prior s.d. ``cross`` times that of
+        own lags (1 = the conjugate pattern; smaller shrinks cross-effects harder).
     decay : float
         Lag decay of the prior s.d. (s.d. ~ 1 / lag**decay).
     det_scale : float
@@ -115,6 +134,9 @@ class FanfoldVAR:
         Deterministic terms.
     transforms : str, sequence or mapping, optional
         none, log, log1p, diff or logdiff, for all or per series.
+    chains, burn, keep, thin, workers : int
+        "independent" only: Gibbs chains, sweeps discarded and draws kept per chain,
+        sweeps per kept draw, and worker processes (see :class:`priors.gibbs.GibbsSettings`).
     """
 
     def __init__(
@@ -134,6 +156,12 @@ class FanfoldVAR:
         trend: bool = False,
         seasonal: bool = False,
         transforms: str | Sequence[str] | Mapping[str, str] | None = None,
+        cross: float = 1.0,
+        chains: int = 4,
+        burn: int = 500,
+        keep: int = 1000,
+        thin: int = 1,
+        workers: int = 1,
     ) -> None:
         self.lags = lags
         self.max_lags = max_lags
@@ -149,6 +177,12 @@ class FanfoldVAR:
         self.trend = trend
         self.seasonal = seasonal
         self.transforms = transforms
+        self.cross = cross
+        self.chains = chains
+        self.burn = burn
+        self.keep = keep
+        self.thin = thin
+        self.workers = workers
 
     # ------------------------------------------------------------------ settings
     def _check_settings(self) -> None:
@@ -165,6 +199,15 @@ class FanfoldVAR:
                 raise SpecificationError(f"{name} must be a number or 'auto'; got {v!r}")
         if self.tightness is None:
             raise SpecificationError("tightness must be a number or 'auto'")
+        if self.prior != "independent" and self.cross != 1.0:
+            raise SpecificationError(
+                f"cross = {self.cross!r} needs prior='independent': the conjugate Minnesota "
+                "prior shrinks own and other series' lags alike (cross = 1)")
+        self._gibbs_settings()  # validates chains, burn, keep, thin, workers
+
+    def _gibbs_settings(self) -> GibbsSettings:
+        return GibbsSettings(chains=self.chains, burn=self.burn, keep=self.keep,
+                             thin=self.thin, workers=self.workers)
 
     def _base_hyper(self) -> tuple[MinnesotaHyper, tuple[str, ...]]:
         tune = []
@@ -247,8 +290,13 @@ class FanfoldVAR:
         exog: pd.DataFrame | FloatArray | None = None,
         names: Sequence[str] | None = None,
         period: int | None = None,
+        rng: np.random.Generator | None = None,
+        progress: Callable[[int, int], None] | None = None,
     ) -> FanfoldVAR:
         """Fit to ``data`` (T, n): a DataFrame with a regular DatetimeIndex or an array.
+
+        ``rng`` and ``progress(done, total)`` are used by the Gibbs sampler of
+        ``prior="independent"`` (required there; the same seed gives the same draws).
 
         The last rows may be incomplete (a "ragged edge": some series not yet known for
         the latest periods). The model is fitted on the complete rows, and forecasts
@@ -281,7 +329,31 @@ class FanfoldVAR:
         self.prior_ = prior
         self.posterior_ = post
         self.log_ml_ = post.log_ml
+        self.sampler_ = None
+        self.convergence_ = None
+        if self.prior == "independent":
+            self._run_gibbs(rng, progress)
         return self
+
+    def _run_gibbs(self, rng: np.random.Generator | None,
+                   progress: Callable[[int, int], None] | None) -> None:
+        """Independent prior at the chosen hyperparameters (cross applied), Gibbs chains
+        started at the conjugate posterior mean; sets ``prior_``, ``sampler_`` and
+        ``convergence_``."""
+        if rng is None:
+            raise SpecificationError("prior='independent' is sampled by Gibbs: pass "
+                                     "rng=np.random.default_rng(seed) to fit")
+        assert self.hyper_ is not None and self.posterior_ is not None
+        hyper = dataclasses.replace(self.hyper_, cross=float(self.cross))
+        prior = independent_minnesota_prior(self.design_, hyper, self.prior_mean_)
+        pre = precompute(self.design_, prior)
+        draws = run_chains(rng, pre, self.posterior_.B, self.posterior_.sigma_mean(),
+                           self._gibbs_settings(), progress=progress)
+        self.hyper_ = hyper
+        self.prior_ = prior
+        self.sampler_ = draws
+        self.log_ml_ = None
+        self.convergence_ = gibbs_convergence(draws, self.design_)
 
     def get_params(self) -> dict[str, object]:
         """The settings given to ``__init__`` (enough to build an identical model)."""
@@ -300,8 +372,11 @@ class FanfoldVAR:
         exog: pd.DataFrame | FloatArray | None = None,
         names: Sequence[str] | None = None,
         period: int | None = None,
+        draws: GibbsDraws | None = None,
     ) -> FanfoldVAR:
         """A fitted model from stored parts, without tuning or fitting again.
+
+        ``draws``: the stored Gibbs draws of a ``prior="independent"`` model.
 
         ``params`` are :meth:`get_params` of the original; ``lags``, ``hyper`` and
         ``posterior`` its fitted ``lags_``, ``hyper_`` and ``posterior_``. The data are
@@ -320,7 +395,8 @@ class FanfoldVAR:
                 f"stored posterior has shape {posterior.B.shape} but the data and settings "
                 f"give {(design.k, design.n)}; the stored model does not match its data")
         prior_mean = model._prior_mean(series)
-        prior = None if hyper is None else minnesota_prior(design, hyper, prior_mean)
+        prior = None if hyper is None else minnesota_prior(
+            design, dataclasses.replace(hyper, cross=1.0), prior_mean)
         model.series_ = series
         model.ragged_ = ragged
         model.deterministics_ = det
@@ -332,6 +408,16 @@ class FanfoldVAR:
         model.prior_ = prior
         model.posterior_ = posterior
         model.log_ml_ = posterior.log_ml
+        model.sampler_ = None
+        model.convergence_ = None
+        if model.prior == "independent":
+            if draws is None:
+                raise SpecificationError("a model with prior='independent' needs its stored "
+                                         "Gibbs draws to be restored")
+            model.prior_ = independent_minnesota_prior(design, hyper, prior_mean)
+            model.sampler_ = draws
+            model.log_ml_ = None
+            model.convergence_ = gibbs_convergence(draws, design)
         return model
 
     def append(
@@ -339,6 +425,8 @@ class FanfoldVAR:
         new_data: pd.DataFrame | FloatArray,
         *,
         new_exog: pd.DataFrame | FloatArray | None = None,
+        rng: np.random.Generator | None = None,
+        progress: Callable[[int, int], None] | None = None,
     ) -> FanfoldVAR:
         """A new model with ``new_data`` appended, its posterior updated exactly.
 
@@ -346,7 +434,8 @@ class FanfoldVAR:
         posterior equals a full refit on all the data under that same prior. The new
         rows must continue the complete data: same series, following dates. Incomplete
         last periods (a ragged edge) are replaced by the new rows, which may themselves
-        end incomplete.
+        end incomplete. A ``prior="independent"`` model has no exact update: its Gibbs
+        chains run again on all the data (pass ``rng``).
         """
         self._check_fitted()
         old = self.series_
@@ -390,6 +479,11 @@ class FanfoldVAR:
         model.prior_ = self.prior_
         model.posterior_ = post
         model.log_ml_ = post.log_ml
+        model.sampler_ = None
+        model.convergence_ = None
+        if self.prior == "independent":  # no exact update: the chains run again
+            model.hyper_ = dataclasses.replace(self.hyper_, cross=1.0)
+            model._run_gibbs(rng, progress)
         return model
 
     def _level_index(self) -> pd.DatetimeIndex:
@@ -407,9 +501,16 @@ class FanfoldVAR:
 
     # ------------------------------------------------------------------ results
     def sample(self, draws: int, *, rng: np.random.Generator) -> Draws:
-        """Exact i.i.d. posterior draws of (B, Sigma)."""
+        """Posterior draws of (B, Sigma): exact i.i.d. draws for the conjugate and flat
+        priors; for "independent", draws picked at random from the stored Gibbs draws
+        (without replacement while there are enough)."""
         self._check_fitted()
-        return sample_posterior(rng, self.posterior_, draws)
+        if self.sampler_ is None:
+            return sample_posterior(rng, self.posterior_, draws)
+        draws = check_size(draws)
+        B, Sig = self.sampler_.flat()
+        pick = rng.choice(B.shape[0], size=draws, replace=draws > B.shape[0])
+        return Draws(B[pick], Sig[pick])
 
     def forecast(
         self,
@@ -449,6 +550,9 @@ class FanfoldVAR:
         if reject_explosive:
             kept, rejected = self._stable_draws(rng, draws)
             paths = simulate_paths_from_draws(rng, kept, history, exog_rows)
+        elif self.sampler_ is not None:
+            paths = simulate_paths_from_draws(rng, self.sample(draws, rng=rng), history,
+                                              exog_rows)
         else:
             paths = simulate_paths(rng, post, history, exog_rows, draws)
         user = inverse_paths(paths, series.transforms, series.levels[-1])
@@ -580,7 +684,7 @@ class FanfoldVAR:
         if reject_explosive:
             kept, rejected = self._stable_draws(rng, draws)
         else:
-            kept = sample_posterior(rng, self.posterior_, draws)
+            kept = self.sample(draws, rng=rng)
         out = conditional_paths(rng, kept.B, np.linalg.cholesky(kept.Sigma),
                                 series.values[-self.lags_:], exog_rows, cset,
                                 n_det=self.design_.n_det, sweeps=sweeps)
@@ -596,7 +700,7 @@ class FanfoldVAR:
         kept_B, kept_S, total = [], [], 0
         have = 0
         for _ in range(max_rounds):
-            batch = sample_posterior(rng, self.posterior_, draws)
+            batch = self.sample(draws, rng=rng)
             total += draws
             ok = companion_spectral_radius(batch.B, self.design_.n_det, self.lags_) < 1.0
             kept_B.append(batch.B[ok])
@@ -621,7 +725,8 @@ class FanfoldVAR:
         exog_next: pd.DataFrame | FloatArray | None = None,
     ) -> float:
         """log p(y_T+1 | data), exactly: the one-step predictive is multivariate t,
-        t_{nu-n+1}(B_bar'x, (1 + x'P^-1 x) S / (nu - n + 1)) (Zellner 1971).
+        t_{nu-n+1}(B_bar'x, (1 + x'P^-1 x) S / (nu - n + 1)) (Zellner 1971). For
+        "independent", the mixture of normals over the stored Gibbs draws.
 
         ``y_next`` (n,) is in model units (after transforms; the same as the data's units
         when no transform is used). Equals log p(data + y_next) - log p(data) under the
@@ -631,6 +736,9 @@ class FanfoldVAR:
         post, n = self.posterior_, self.posterior_.n
         exog = future_exogenous_rows(self.series_, self.deterministics_, 1, exog_next)[0]
         x = np.concatenate([exog, self.series_.values[-self.lags_:][::-1].ravel()])
+        if self.sampler_ is not None:
+            B, Sig = self.sampler_.flat()
+            return mixture_log_density(B, Sig, x, np.asarray(y_next, dtype=np.float64))
         v = solve_triangular(post.R, x, trans=1, lower=False, check_finite=False)
         dof = post.df - n + 1
         shape = (1.0 + v @ v) * post.S / dof
@@ -695,12 +803,16 @@ class FanfoldVAR:
     def coefficients(self, level: float = 0.9) -> pd.DataFrame:
         """Posterior mean, s.d. and central credible interval of every coefficient.
 
-        Analytic matrix-t marginals: B_ri ~ t_{nu-n+1}(B_bar_ri, P^-1_rr S_ii / (nu-n+1)).
+        Analytic matrix-t marginals: B_ri ~ t_{nu-n+1}(B_bar_ri, P^-1_rr S_ii / (nu-n+1));
+        for "independent", moments and quantiles of the Gibbs draws.
         Columns: equation, regressor, mean, sd, lower, upper.
         """
         self._check_fitted()
         if not 0 < level < 1:
             raise SpecificationError(f"level must lie strictly between 0 and 1; got {level}")
+        if self.sampler_ is not None:
+            return coefficient_table(self.sampler_.flat()[0], self.design_.labels,
+                                     self.design_.names, level)
         post, design = self.posterior_, self.design_
         n = post.n
         dof = post.df - n + 1
@@ -720,7 +832,9 @@ class FanfoldVAR:
         """Posterior mean of Sigma, labelled by series."""
         self._check_fitted()
         names = list(self.design_.names)
-        return pd.DataFrame(self.posterior_.sigma_mean(), index=names, columns=names)
+        mean = (self.posterior_.sigma_mean() if self.sampler_ is None
+                else self.sampler_.flat()[1].mean(axis=0))
+        return pd.DataFrame(mean, index=names, columns=names)
 
     def hyperparameters(self) -> dict[str, float | int | None]:
         """Chosen lags and hyperparameters (None where switched off or flat)."""
@@ -729,6 +843,7 @@ class FanfoldVAR:
         return {
             "lags": self.lags_,
             "tightness": None if h is None else h.tightness,
+            "cross": None if h is None else h.cross,
             "decay": None if h is None else h.decay,
             "det_scale": None if h is None else h.det_scale,
             "sum_coef": None if h is None else h.sum_coef,

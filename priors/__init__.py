@@ -6,6 +6,7 @@ environment access. The estimator facade is :class:`FanfoldVAR`.
 
 from .calendar import Calendar
 from .conjugate import NIWPosterior, flat_posterior, log_marginal_likelihood, posterior
+from .convergence import ConvergenceReport, chain_diagnostics
 from .data import (
     Design,
     Deterministics,
@@ -33,6 +34,13 @@ from .errors import (
     TooFewObservationsError,
 )
 from .forecast import Forecast, fan_bands
+from .gibbs import (
+    GibbsDraws,
+    GibbsSettings,
+    IndependentPrior,
+    independent_minnesota_prior,
+    run_chains,
+)
 from .inventory import (
     ReplenishmentAdvice,
     exceedance_probabilities,
@@ -65,6 +73,7 @@ __all__ = [
     "Calendar",
     "Condition",
     "ConstantSeriesError",
+    "ConvergenceReport",
     "ConvergenceWarning",
     "DataError",
     "Design",
@@ -74,6 +83,9 @@ __all__ = [
     "ExogenousError",
     "FanfoldVAR",
     "Forecast",
+    "GibbsDraws",
+    "GibbsSettings",
+    "IndependentPrior",
     "LagChoice",
     "MinnesotaHyper",
     "MissingValuesError",
@@ -95,6 +107,7 @@ __all__ = [
     "TooFewObservationsError",
     "TuningResult",
     "build_design",
+    "chain_diagnostics",
     "companion_spectral_radius",
     "conditional_paths",
     "cumulative",
@@ -105,6 +118,7 @@ __all__ = [
     "flat_posterior",
     "future_exogenous_rows",
     "impulse_responses",
+    "independent_minnesota_prior",
     "lead_time_covariance",
     "load_series",
     "log_marginal_likelihood",
@@ -115,6 +129,7 @@ __all__ = [
     "reorder_point",
     "replenishment_advice",
     "response_units",
+    "run_chains",
     "sample_posterior",
     "simulate_paths",
     "simulate_paths_from_draws",

@@ -296,7 +296,12 @@ def _run_group(rngs: list[np.random.Generator], pre: Precomputed, B0: FloatArray
 
 
 def _worker(args: tuple) -> tuple[np.ndarray, np.ndarray]:
-    return _run_group(*args)
+    """A group of chains in a worker process, with one BLAS thread (the processes are
+    the parallelism; BLAS threads on top would fight over the same cores)."""
+    from threadpoolctl import threadpool_limits
+
+    with threadpool_limits(limits=1, user_api="blas"):
+        return _run_group(*args)
 
 
 def run_chains(

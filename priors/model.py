@@ -18,6 +18,7 @@ from scipy.linalg import solve_triangular
 
 from ._types import FloatArray
 from .conjugate import NIWPosterior, flat_posterior, posterior, update_posterior
+from .convergence import ConvergenceReport
 from .data import (
     Design,
     Deterministics,
@@ -330,7 +331,6 @@ class FanfoldVAR:
         self.posterior_ = post
         self.log_ml_ = post.log_ml
         self.sampler_ = None
-        self.convergence_ = None
         if self.prior == "independent":
             self._run_gibbs(rng, progress)
         return self
@@ -338,8 +338,7 @@ class FanfoldVAR:
     def _run_gibbs(self, rng: np.random.Generator | None,
                    progress: Callable[[int, int], None] | None) -> None:
         """Independent prior at the chosen hyperparameters (cross applied), Gibbs chains
-        started at the conjugate posterior mean; sets ``prior_``, ``sampler_`` and
-        ``convergence_``."""
+        started at the conjugate posterior mean; sets ``prior_`` and ``sampler_``."""
         if rng is None:
             raise SpecificationError("prior='independent' is sampled by Gibbs: pass "
                                      "rng=np.random.default_rng(seed) to fit")
@@ -353,7 +352,6 @@ class FanfoldVAR:
         self.prior_ = prior
         self.sampler_ = draws
         self.log_ml_ = None
-        self.convergence_ = gibbs_convergence(draws, self.design_)
 
     def get_params(self) -> dict[str, object]:
         """The settings given to ``__init__`` (enough to build an identical model)."""
@@ -409,7 +407,6 @@ class FanfoldVAR:
         model.posterior_ = posterior
         model.log_ml_ = posterior.log_ml
         model.sampler_ = None
-        model.convergence_ = None
         if model.prior == "independent":
             if draws is None:
                 raise SpecificationError("a model with prior='independent' needs its stored "
@@ -417,7 +414,6 @@ class FanfoldVAR:
             model.prior_ = independent_minnesota_prior(design, hyper, prior_mean)
             model.sampler_ = draws
             model.log_ml_ = None
-            model.convergence_ = gibbs_convergence(draws, design)
         return model
 
     def append(
@@ -480,7 +476,6 @@ class FanfoldVAR:
         model.posterior_ = post
         model.log_ml_ = post.log_ml
         model.sampler_ = None
-        model.convergence_ = None
         if self.prior == "independent":  # no exact update: the chains run again
             model.hyper_ = dataclasses.replace(self.hyper_, cross=1.0)
             model._run_gibbs(rng, progress)
@@ -511,6 +506,20 @@ class FanfoldVAR:
         B, Sig = self.sampler_.flat()
         pick = rng.choice(B.shape[0], size=draws, replace=draws > B.shape[0])
         return Draws(B[pick], Sig[pick])
+
+    def convergence(self) -> ConvergenceReport | None:
+        """R-hat, bulk and tail ESS and MCSE of every coefficient and Sigma element of the
+        Gibbs draws, with ``ok`` False when any R-hat > 1.01 or ESS < 400 (then do not
+        trust the fit: run longer chains). None for exact samplers (no chains) and for a
+        single chain. Computed on first call (seconds for large models), then kept."""
+        self._check_fitted()
+        if self.sampler_ is None:
+            return None
+        cached = getattr(self, "_convergence", None)
+        if cached is None or cached[0] is not self.sampler_:
+            cached = (self.sampler_, gibbs_convergence(self.sampler_, self.design_))
+            self._convergence = cached
+        return cached[1]
 
     def forecast(
         self,

@@ -203,6 +203,7 @@ GOOD = np.zeros((4, 10, 2)) + np.arange(10)[None, :, None]
     ({"B": GOOD}, {"labels": {"B": ["a"]}}, "2 elements \\(2,\\) but 1 labels"),
     ({"B": GOOD}, {"labels": {"C": ["a", "b"]}}, "unknown variables \\['C'\\]"),
     ({"B": GOOD}, {"rhat_max": 0.99}, "rhat_max"),
+    ({"B": GOOD}, {"rhat_max": "high"}, "rhat_max"),
     ({"B": GOOD}, {"ess_min": -1}, "ess_min"),
     ({"B": GOOD}, {"backend": "stan"}, "backend"),
 ])

@@ -40,6 +40,13 @@ import numpy as np
 from ._types import FloatArray
 from .data import Design
 from .errors import NotPositiveDefiniteError, SpecificationError
+from .outliers import (
+    OutlierRows,
+    draw_scales,
+    low_rank_draw,
+    outlier_rows,
+    weighted_cross_products,
+)
 from .shrinkage import (
     MinnesotaHyper,
     ar_residual_variances,
@@ -123,7 +130,8 @@ class Precomputed:
 
     XtX (k, k), XtY (k, n), YtY (n, n), nobs (rows incl. dummies); wh (n, k) = sqrt of V
     per equation; Q (n, k, k) and lam (n, k): eigen-decomposition of
-    ``diag(wh_i) X'X diag(wh_i)``; prior_rhs (k, n) = B0 / V.
+    ``diag(wh_i) X'X diag(wh_i)``; prior_rhs (k, n) = B0 / V; out: the rows of known-date
+    outlier periods, whose shock scale is sampled (None: constant volatility).
     """
 
     XtX: FloatArray
@@ -136,10 +144,15 @@ class Precomputed:
     prior_rhs: FloatArray
     S0: FloatArray
     df: float
+    out: OutlierRows | None = None
 
 
-def precompute(design: Design, prior: IndependentPrior) -> Precomputed:
-    """Cross-products of the data plus dummies, and one eigh per equation."""
+def precompute(design: Design, prior: IndependentPrior,
+               outliers: Sequence[Sequence[int]] = ()) -> Precomputed:
+    """Cross-products of the data plus dummies, and one eigh per equation.
+
+    ``outliers``: for each outlier period, the rows of ``design`` it covers (each period
+    gets its own shock scale, see :mod:`priors.outliers`)."""
     X = np.vstack([design.X, prior.Xd]) if prior.Xd.size else design.X
     Y = np.vstack([design.Y, prior.Yd]) if prior.Yd.size else design.Y
     XtX, XtY, YtY = X.T @ X, X.T @ Y, Y.T @ Y
@@ -148,22 +161,32 @@ def precompute(design: Design, prior: IndependentPrior) -> Precomputed:
     wh = np.sqrt(prior.V.T)  # (n, k)
     lam, Q = np.linalg.eigh(wh[:, :, None] * XtX[None] * wh[:, None, :])
     lam = np.maximum(lam, 0.0)  # X'X is PSD; clip rounding below zero
+    out = None
+    if any(len(r) for r in outliers):
+        rows = [int(t) for r in outliers for t in r]
+        period = [k for k, r in enumerate(outliers) for _ in r]
+        if len(set(rows)) != len(rows) or min(rows) < 0 or max(rows) >= design.nobs:
+            raise SpecificationError("outlier periods must be distinct rows of the sample")
+        out = outlier_rows(design.X, design.Y, rows, period, Q, wh)
     return Precomputed(XtX, XtY, YtY, X.shape[0], wh, Q, lam, prior.B0 / prior.V,
-                       prior.S0, prior.df)
+                       prior.S0, prior.df, out)
 
 
 class GibbsState(NamedTuple):
-    """What the next sweep needs: B (C, k, n), Sigma (C, n, n), G = X'X B (C, k, n)."""
+    """What the next sweep needs: B (C, k, n), Sigma (C, n, n), G = X'X B (C, k, n) and,
+    with outlier periods, v = 1 / scale^2 (C, K)."""
 
     B: FloatArray
     Sigma: FloatArray
     G: FloatArray
+    v: FloatArray | None = None
 
 
 def init_state(pre: Precomputed, B: FloatArray, Sigma: FloatArray) -> GibbsState:
-    """State from starting values B (C, k, n) and Sigma (C, n, n)."""
+    """State from starting values B (C, k, n) and Sigma (C, n, n); scales start at 1."""
     B = np.array(B, dtype=np.float64)
-    return GibbsState(B, np.array(Sigma, dtype=np.float64), np.matmul(pre.XtX, B))
+    v = None if pre.out is None else np.ones((B.shape[0], pre.out.K))
+    return GibbsState(B, np.array(Sigma, dtype=np.float64), np.matmul(pre.XtX, B), v)
 
 
 def _iw_batch(rngs: Sequence[np.random.Generator], S: FloatArray, df: float) -> FloatArray:
@@ -188,30 +211,44 @@ def _iw_batch(rngs: Sequence[np.random.Generator], S: FloatArray, df: float) -> 
 
 
 def draw_coefficients(z: FloatArray, B: FloatArray, G: FloatArray, W: FloatArray,
-                      pre: Precomputed) -> tuple[FloatArray, FloatArray]:
+                      pre: Precomputed, XtY: FloatArray | None = None,
+                      d: FloatArray | None = None) -> tuple[FloatArray, FloatArray]:
     """Draw beta_1, ..., beta_n in turn from their exact full conditionals given Sigma^-1
-    = W (C, n, n), with z (C, n, k) standard normals; returns new (B, G = X'X B)."""
+    = W (C, n, n), with z (C, n, k) standard normals; returns new (B, G = X'X B).
+
+    With outlier rows, ``d`` (C, r) = 1 - v of each outlier row, ``XtY`` (C, k, n) the
+    weighted X~'Y and G = X~'X~ B (see :mod:`priors.outliers`)."""
     B, G = B.copy(), G.copy()
+    XtY = pre.XtY if XtY is None else XtY
+    out = pre.out if d is not None else None
     for i in range(B.shape[2]):
         w = W[:, :, i]  # (C, n)
         c = w[:, i][:, None]  # (C, 1): (Sigma^-1)_ii
-        rhs = (pre.prior_rhs[:, i] + ((pre.XtY - G) @ w[:, :, None])[:, :, 0]
+        rhs = (pre.prior_rhs[:, i] + ((XtY - G) @ w[:, :, None])[:, :, 0]
                + c * G[:, :, i])
         Qi, wh = pre.Q[i], pre.wh[i]
-        d = 1.0 + c * pre.lam[i]  # (C, k)
-        u = ((rhs * wh) @ Qi) / d + z[:, i] / np.sqrt(d)
+        Dc = 1.0 + c * pre.lam[i]  # (C, k)
+        if out is None:
+            u = ((rhs * wh) @ Qi) / Dc + z[:, i] / np.sqrt(Dc)
+        else:
+            u = low_rank_draw((rhs * wh) @ Qi, z[:, i], Dc, c, out.U[i], d)
         beta = (u @ Qi.T) * wh
         B[:, :, i] = beta
         G[:, :, i] = beta @ pre.XtX
+        if out is not None:
+            G[:, :, i] -= ((beta @ out.Xo.T) * d) @ out.Xo
     return B, G
 
 
 def draw_sigma(rngs: Sequence[np.random.Generator], B: FloatArray, G: FloatArray,
-               pre: Precomputed) -> FloatArray:
-    """Sigma | B ~ IW(S0 + E'E, df + T) per chain, E'E from the cross-products."""
+               pre: Precomputed, XtY: FloatArray | None = None,
+               YtY: FloatArray | None = None) -> FloatArray:
+    """Sigma | B ~ IW(S0 + E'E, df + T) per chain, E'E from the cross-products (weighted
+    ones, per chain, with outlier periods)."""
     Bt = B.transpose(0, 2, 1)
-    BtXtY = Bt @ pre.XtY  # batched matmul: BLAS, unlike einsum here
-    EtE = pre.YtY - BtXtY - BtXtY.transpose(0, 2, 1) + Bt @ G
+    BtXtY = Bt @ (pre.XtY if XtY is None else XtY)  # batched matmul: BLAS, unlike einsum
+    EtE = ((pre.YtY if YtY is None else YtY) - BtXtY - BtXtY.transpose(0, 2, 1)
+           + Bt @ G)
     EtE = 0.5 * (EtE + EtE.transpose(0, 2, 1))
     return _iw_batch(rngs, pre.S0 + EtE, pre.df + pre.nobs)
 
@@ -221,8 +258,18 @@ def sweep(rngs: Sequence[np.random.Generator], state: GibbsState, pre: Precomput
     """One Gibbs sweep for every chain: B equation by equation, then Sigma."""
     C, k, n = state.B.shape
     z = np.stack([rng.standard_normal((n, k)) for rng in rngs])  # (C, n, k)
-    B, G = draw_coefficients(z, state.B, state.G, np.linalg.inv(state.Sigma), pre)
-    return GibbsState(B, draw_sigma(rngs, B, G, pre), G)
+    W = np.linalg.inv(state.Sigma)
+    out = pre.out
+    if out is None or state.v is None:
+        B, G = draw_coefficients(z, state.B, state.G, W, pre)
+        return GibbsState(B, draw_sigma(rngs, B, G, pre), G)
+    d = 1.0 - state.v[:, out.period]  # (C, r)
+    XtY, YtY = weighted_cross_products(pre.XtX, pre.XtY, pre.YtY, out, d)
+    # G = X~'X~ B for this sweep's weights
+    G = pre.XtX @ state.B - np.einsum("rk,cr,crn->ckn", out.Xo, d, out.Xo[None] @ state.B)
+    B, G = draw_coefficients(z, state.B, G, W, pre, XtY, d)
+    Sigma = draw_sigma(rngs, B, G, pre, XtY, YtY)
+    return GibbsState(B, Sigma, G, draw_scales(rngs, B, Sigma, out))
 
 
 @dataclass(frozen=True)
@@ -250,12 +297,14 @@ class GibbsSettings:
 
 @dataclass(frozen=True)
 class GibbsDraws:
-    """Kept draws: B (C, D, k, n) and Sigma (C, D, n, n), stored as float32 (computation
-    is float64; float32 keeps 7 significant digits, far below Monte Carlo error)."""
+    """Kept draws: B (C, D, k, n), Sigma (C, D, n, n) and, with outlier periods, their
+    shock scales (C, D, K); stored as float32 (computation is float64; float32 keeps 7
+    significant digits, far below Monte Carlo error)."""
 
     B: np.ndarray
     Sigma: np.ndarray
     settings: GibbsSettings
+    scales: np.ndarray | None = None  # (C, D, K) shock scales s_k of outlier periods
 
     @property
     def chains(self) -> int:
@@ -275,13 +324,16 @@ class GibbsDraws:
 def _run_group(rngs: list[np.random.Generator], pre: Precomputed, B0: FloatArray,
                Sigma0: FloatArray, settings: GibbsSettings,
                progress: Progress | None = None, offset: int = 0, total: int = 0,
-               ) -> tuple[np.ndarray, np.ndarray]:
-    """Run a group of chains in lockstep; kept draws (C, D, k, n), (C, D, n, n)."""
+               ) -> tuple[np.ndarray, np.ndarray, np.ndarray | None]:
+    """Run a group of chains in lockstep; kept draws (C, D, k, n), (C, D, n, n) and the
+    outlier scales (C, D, K) or None."""
     C = len(rngs)
     state = init_state(pre, np.repeat(B0[None], C, axis=0), np.repeat(Sigma0[None], C, axis=0))
     k, n = B0.shape
     keep_B = np.empty((C, settings.keep, k, n), dtype=np.float32)
     keep_S = np.empty((C, settings.keep, n, n), dtype=np.float32)
+    keep_s = None if pre.out is None else np.empty((C, settings.keep, pre.out.K),
+                                                   dtype=np.float32)
     every = max(1, settings.sweeps // 100)
     for s in range(settings.sweeps):
         state = sweep(rngs, state, pre)
@@ -290,12 +342,14 @@ def _run_group(rngs: list[np.random.Generator], pre: Precomputed, B0: FloatArray
             d = kept // settings.thin
             keep_B[:, d] = state.B
             keep_S[:, d] = state.Sigma
+            if keep_s is not None and state.v is not None:
+                keep_s[:, d] = 1.0 / np.sqrt(state.v)
         if progress is not None and ((s + 1) % every == 0 or s + 1 == settings.sweeps):
             progress(offset + (s + 1) * C, total)
-    return keep_B, keep_S
+    return keep_B, keep_S, keep_s
 
 
-def _worker(args: tuple) -> tuple[np.ndarray, np.ndarray]:
+def _worker(args: tuple) -> tuple[np.ndarray, np.ndarray, np.ndarray | None]:
     """A group of chains in a worker process, with one BLAS thread (the processes are
     the parallelism; BLAS threads on top would fight over the same cores)."""
     from threadpoolctl import threadpool_limits
@@ -323,13 +377,13 @@ def run_chains(
     total = settings.chains * settings.sweeps
     workers = min(settings.workers, settings.chains)
     if workers == 1:
-        B, S = _run_group(rngs, pre, start_B, start_Sigma, settings, progress, 0, total)
-        return GibbsDraws(B, S, settings)
+        B, S, sc = _run_group(rngs, pre, start_B, start_Sigma, settings, progress, 0, total)
+        return GibbsDraws(B, S, settings, sc)
     import multiprocessing as mp
     from concurrent.futures import ProcessPoolExecutor
 
     groups = [list(g) for g in np.array_split(np.arange(settings.chains), workers)]
-    parts: list[tuple[np.ndarray, np.ndarray] | None] = [None] * len(groups)
+    parts: list[tuple[np.ndarray, np.ndarray, np.ndarray | None] | None] = [None] * len(groups)
     done = 0
     with ProcessPoolExecutor(max_workers=workers, mp_context=mp.get_context("spawn")) as pool:
         futures = {pool.submit(_worker, ([rngs[c] for c in g], pre, start_B, start_Sigma,
@@ -342,9 +396,11 @@ def run_chains(
             done += len(groups[j]) * settings.sweeps
             if progress is not None:
                 progress(done, total)
-    B = np.concatenate([p[0] for p in parts if p is not None])
-    S = np.concatenate([p[1] for p in parts if p is not None])
-    return GibbsDraws(B, S, settings)
+    done_parts = [p for p in parts if p is not None]
+    B = np.concatenate([p[0] for p in done_parts])
+    S = np.concatenate([p[1] for p in done_parts])
+    sc = None if pre.out is None else np.concatenate([p[2] for p in done_parts])
+    return GibbsDraws(B, S, settings, sc)
 
 
 def gibbs_convergence(draws: GibbsDraws, design: Design):  # -> ConvergenceReport | None

@@ -135,6 +135,10 @@ class FanfoldVAR:
         Deterministic terms.
     transforms : str, sequence or mapping, optional
         none, log, log1p, diff or logdiff, for all or per series.
+    outliers : sequence of (first period, number of periods), optional
+        "independent" only: known-date periods (a promotion, a stock-out, a supply shock)
+        whose shocks get their own scale, estimated (Lenza & Primiceri 2022); the first
+        period is a date (or a 0-based row of the data for plain arrays).
     chains, burn, keep, thin, workers : int
         "independent" only: Gibbs chains, sweeps discarded and draws kept per chain,
         sweeps per kept draw, and worker processes (see :class:`priors.gibbs.GibbsSettings`).
@@ -158,6 +162,7 @@ class FanfoldVAR:
         seasonal: bool = False,
         transforms: str | Sequence[str] | Mapping[str, str] | None = None,
         cross: float = 1.0,
+        outliers: Sequence[tuple[str | int, int]] | None = None,
         chains: int = 4,
         burn: int = 500,
         keep: int = 1000,
@@ -179,6 +184,7 @@ class FanfoldVAR:
         self.seasonal = seasonal
         self.transforms = transforms
         self.cross = cross
+        self.outliers = outliers
         self.chains = chains
         self.burn = burn
         self.keep = keep
@@ -200,6 +206,9 @@ class FanfoldVAR:
                 raise SpecificationError(f"{name} must be a number or 'auto'; got {v!r}")
         if self.tightness is None:
             raise SpecificationError("tightness must be a number or 'auto'")
+        if self.prior != "independent" and self.outliers:
+            raise SpecificationError("outlier periods need prior='independent' (their "
+                                     "shock scales are sampled by Gibbs)")
         if self.prior != "independent" and self.cross != 1.0:
             raise SpecificationError(
                 f"cross = {self.cross!r} needs prior='independent': the conjugate Minnesota "
@@ -345,13 +354,47 @@ class FanfoldVAR:
         assert self.hyper_ is not None and self.posterior_ is not None
         hyper = dataclasses.replace(self.hyper_, cross=float(self.cross))
         prior = independent_minnesota_prior(self.design_, hyper, self.prior_mean_)
-        pre = precompute(self.design_, prior)
+        pre = precompute(self.design_, prior, self._outlier_rows())
         draws = run_chains(rng, pre, self.posterior_.B, self.posterior_.sigma_mean(),
                            self._gibbs_settings(), progress=progress)
         self.hyper_ = hyper
         self.prior_ = prior
         self.sampler_ = draws
         self.log_ml_ = None
+
+    def _outlier_rows(self) -> list[list[int]]:
+        """Rows of the design covered by each outlier period (dates or 0-based data rows
+        as given by the user)."""
+        if not self.outliers:
+            return []
+        series, design = self.series_, self.design_
+        first = series.levels.shape[0] - design.nobs  # data row of design row 0
+        index = self._level_index() if series.calendar.index is not None else None
+        rows = []
+        for item in self.outliers:
+            try:
+                start, length = item
+            except (TypeError, ValueError):
+                raise SpecificationError(f"an outlier period is (first period, number of "
+                                         f"periods); got {item!r}") from None
+            if int(length) != length or length < 1:
+                raise SpecificationError(f"outlier period length must be >= 1; got {length!r}")
+            if index is not None:
+                hit = np.flatnonzero(index == pd.Timestamp(start))
+                if not hit.size:
+                    raise SpecificationError(f"outlier period start {start!r} is not a date "
+                                             "of the data")
+                row0 = int(hit[0])
+            else:
+                row0 = int(start)
+            covered = [r - first for r in range(row0, row0 + int(length))
+                       if 0 <= r - first < design.nobs]
+            if len(covered) != int(length):
+                raise SpecificationError(
+                    f"outlier period {item!r} must lie within the estimation sample (after "
+                    f"the first {first} rows used as lags, up to the last complete period)")
+            rows.append(covered)
+        return rows
 
     def get_params(self) -> dict[str, object]:
         """The settings given to ``__init__`` (enough to build an identical model)."""

@@ -85,3 +85,22 @@ def test_append_runs_the_chains_again_and_restore_keeps_the_draws(fitted):
     with pytest.raises(SpecificationError, match="stored Gibbs draws"):
         FanfoldVAR.restore(model.get_params(), frame, lags=model.lags_, hyper=model.hyper_,
                            posterior=model.posterior_)
+
+
+def test_outlier_periods_by_date_get_their_own_scale():
+    frame = two_lines(120, 7)
+    frame.iloc[60:63] += np.array([[90.0, -120.0], [-70.0, 100.0], [80.0, 90.0]])  # shocks
+    model = FanfoldVAR(prior="independent", lags=1, tightness=0.2, chains=2, burn=100,
+                       keep=400, outliers=[(frame.index[60].date().isoformat(), 3),
+                                           (frame.index[20], 2)])
+    model.fit(frame, rng=np.random.default_rng(0))
+    s = model.sampler_.scales.reshape(-1, 2)
+    assert np.median(s[:, 0]) > 3 and np.median(s[:, 1]) < 2
+    with pytest.raises(SpecificationError, match="not a date"):
+        FanfoldVAR(prior="independent", lags=1, outliers=[("1990-01-01", 2)], **FAST).fit(
+            frame, rng=np.random.default_rng(0))
+    with pytest.raises(SpecificationError, match="within the estimation sample"):
+        FanfoldVAR(prior="independent", lags=1, outliers=[(frame.index[-1], 3)], **FAST).fit(
+            frame, rng=np.random.default_rng(0))
+    with pytest.raises(SpecificationError, match="need prior='independent'"):
+        FanfoldVAR(outliers=[(frame.index[5], 1)]).fit(frame)

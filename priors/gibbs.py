@@ -31,6 +31,7 @@ Shapes: B (C, k, n), Sigma (C, n, n) for C chains; stored draws (C, D, k, n).
 
 from __future__ import annotations
 
+import dataclasses
 from collections.abc import Callable, Sequence
 from dataclasses import dataclass
 from typing import NamedTuple
@@ -40,6 +41,7 @@ import numpy as np
 from ._types import FloatArray
 from .data import Design
 from .errors import NotPositiveDefiniteError, SpecificationError
+from .hyper_mh import HyperSampler
 from .outliers import (
     OutlierRows,
     draw_scales,
@@ -170,6 +172,17 @@ def precompute(design: Design, prior: IndependentPrior,
         out = outlier_rows(design.X, design.Y, rows, period, Q, wh)
     return Precomputed(XtX, XtY, YtY, X.shape[0], wh, Q, lam, prior.B0 / prior.V,
                        prior.S0, prior.df, out)
+
+
+def with_variances(pre: Precomputed, V: FloatArray, B0: FloatArray) -> Precomputed:
+    """The same data with prior variances V (k, n): new eigendecompositions (n eigh)."""
+    wh = np.sqrt(V.T)
+    lam, Q = np.linalg.eigh(wh[:, :, None] * pre.XtX[None] * wh[:, None, :])
+    out = pre.out
+    if out is not None:
+        out = dataclasses.replace(out, U=np.einsum("nkj,nk,rk->njr", Q, wh, out.Xo))
+    return dataclasses.replace(pre, wh=wh, Q=Q, lam=np.maximum(lam, 0.0),
+                               prior_rhs=B0 / V, out=out)
 
 
 class GibbsState(NamedTuple):
@@ -305,6 +318,7 @@ class GibbsDraws:
     Sigma: np.ndarray
     settings: GibbsSettings
     scales: np.ndarray | None = None  # (C, D, K) shock scales s_k of outlier periods
+    hyper: np.ndarray | None = None  # (C, D, 2) sampled tightness and cross tightness
 
     @property
     def chains(self) -> int:
@@ -324,9 +338,13 @@ class GibbsDraws:
 def _run_group(rngs: list[np.random.Generator], pre: Precomputed, B0: FloatArray,
                Sigma0: FloatArray, settings: GibbsSettings,
                progress: Progress | None = None, offset: int = 0, total: int = 0,
-               ) -> tuple[np.ndarray, np.ndarray, np.ndarray | None]:
-    """Run a group of chains in lockstep; kept draws (C, D, k, n), (C, D, n, n) and the
-    outlier scales (C, D, K) or None."""
+               hyper: HyperSampler | None = None, hyper_start: tuple[float, float] = (0, 0),
+               ) -> tuple[np.ndarray, ...]:
+    """Run a group of chains in lockstep; kept draws (C, D, k, n), (C, D, n, n), the
+    outlier scales (C, D, K) or None, and the sampled hyperparameters (C, D, 2) or None."""
+    if hyper is not None:
+        return _run_group_hyper(rngs, pre, B0, Sigma0, settings, progress, offset, total,
+                                hyper, hyper_start)
     C = len(rngs)
     state = init_state(pre, np.repeat(B0[None], C, axis=0), np.repeat(Sigma0[None], C, axis=0))
     k, n = B0.shape
@@ -346,10 +364,48 @@ def _run_group(rngs: list[np.random.Generator], pre: Precomputed, B0: FloatArray
                 keep_s[:, d] = 1.0 / np.sqrt(state.v)
         if progress is not None and ((s + 1) % every == 0 or s + 1 == settings.sweeps):
             progress(offset + (s + 1) * C, total)
-    return keep_B, keep_S, keep_s
+    return keep_B, keep_S, keep_s, None
 
 
-def _worker(args: tuple) -> tuple[np.ndarray, np.ndarray, np.ndarray | None]:
+def _run_group_hyper(rngs: list[np.random.Generator], pre: Precomputed, B0: FloatArray,
+                     Sigma0: FloatArray, settings: GibbsSettings, progress: Progress | None,
+                     offset: int, total: int, hyper: HyperSampler,
+                     hyper_start: tuple[float, float]) -> tuple[np.ndarray, ...]:
+    """Chains with the tightness and cross tightness sampled (Metropolis within Gibbs):
+    each chain has its own prior variances, so chains are swept one by one."""
+    C = len(rngs)
+    k, n = B0.shape
+    lam = np.full(C, float(hyper_start[0]))
+    theta = np.full(C, float(hyper_start[1]))
+    first = with_variances(pre, hyper.variances(lam[0], theta[0]), hyper.B0)
+    pres = [first] * C
+    states = [init_state(first, B0[None], Sigma0[None]) for _ in range(C)]
+    keep_B = np.empty((C, settings.keep, k, n), dtype=np.float32)
+    keep_S = np.empty((C, settings.keep, n, n), dtype=np.float32)
+    keep_s = None if pre.out is None else np.empty((C, settings.keep, pre.out.K),
+                                                   dtype=np.float32)
+    keep_h = np.empty((C, settings.keep, 2), dtype=np.float32)
+    every = max(1, settings.sweeps // 100)
+    for s in range(settings.sweeps):
+        states = [sweep([rngs[c]], states[c], pres[c]) for c in range(C)]
+        B = np.concatenate([st.B for st in states])
+        lam, theta, accepted = hyper.step_all(rngs, B, lam, theta)
+        for c in np.flatnonzero(accepted):
+            pres[c] = with_variances(pre, hyper.variances(lam[c], theta[c]), hyper.B0)
+        kept = s - settings.burn
+        if kept >= 0 and (kept + 1) % settings.thin == 0:
+            d = kept // settings.thin
+            keep_B[:, d] = B
+            keep_S[:, d] = np.concatenate([st.Sigma for st in states])
+            keep_h[:, d, 0], keep_h[:, d, 1] = lam, theta
+            if keep_s is not None:
+                keep_s[:, d] = 1.0 / np.sqrt(np.concatenate([st.v for st in states]))
+        if progress is not None and ((s + 1) % every == 0 or s + 1 == settings.sweeps):
+            progress(offset + (s + 1) * C, total)
+    return keep_B, keep_S, keep_s, keep_h
+
+
+def _worker(args: tuple) -> tuple[np.ndarray, ...]:
     """A group of chains in a worker process, with one BLAS thread (the processes are
     the parallelism; BLAS threads on top would fight over the same cores)."""
     from threadpoolctl import threadpool_limits
@@ -366,28 +422,34 @@ def run_chains(
     settings: GibbsSettings = GibbsSettings(),
     *,
     progress: Progress | None = None,
+    hyper: HyperSampler | None = None,
+    hyper_start: tuple[float, float] = (0.2, 1.0),
 ) -> GibbsDraws:
     """Run ``settings.chains`` chains from (start_B, start_Sigma) with independent streams
     ``rng.spawn(chains)``; kept draws as :class:`GibbsDraws`.
 
     With ``workers > 1`` the chains are split into that many groups, each run in a spawned
     process; ``progress(done, total)`` (chain-sweeps) is then called as groups finish.
+    With ``hyper``, the tightness and cross tightness are sampled too (Metropolis within
+    Gibbs, :mod:`priors.hyper_mh`), starting from ``hyper_start``.
     """
     rngs = rng.spawn(settings.chains)
     total = settings.chains * settings.sweeps
     workers = min(settings.workers, settings.chains)
     if workers == 1:
-        B, S, sc = _run_group(rngs, pre, start_B, start_Sigma, settings, progress, 0, total)
-        return GibbsDraws(B, S, settings, sc)
+        B, S, sc, hy = _run_group(rngs, pre, start_B, start_Sigma, settings, progress, 0,
+                                  total, hyper, hyper_start)
+        return GibbsDraws(B, S, settings, sc, hy)
     import multiprocessing as mp
     from concurrent.futures import ProcessPoolExecutor
 
     groups = [list(g) for g in np.array_split(np.arange(settings.chains), workers)]
-    parts: list[tuple[np.ndarray, np.ndarray, np.ndarray | None] | None] = [None] * len(groups)
+    parts: list[tuple[np.ndarray, ...] | None] = [None] * len(groups)
     done = 0
     with ProcessPoolExecutor(max_workers=workers, mp_context=mp.get_context("spawn")) as pool:
         futures = {pool.submit(_worker, ([rngs[c] for c in g], pre, start_B, start_Sigma,
-                                         settings)): j for j, g in enumerate(groups)}
+                                         settings, None, 0, 0, hyper, hyper_start)): j
+                   for j, g in enumerate(groups)}
         from concurrent.futures import as_completed
 
         for fut in as_completed(futures):
@@ -400,7 +462,8 @@ def run_chains(
     B = np.concatenate([p[0] for p in done_parts])
     S = np.concatenate([p[1] for p in done_parts])
     sc = None if pre.out is None else np.concatenate([p[2] for p in done_parts])
-    return GibbsDraws(B, S, settings, sc)
+    hy = None if hyper is None else np.concatenate([p[3] for p in done_parts])
+    return GibbsDraws(B, S, settings, sc, hy)
 
 
 def gibbs_convergence(draws: GibbsDraws, design: Design):  # -> ConvergenceReport | None

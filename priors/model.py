@@ -45,6 +45,7 @@ from .gibbs import (
     precompute,
     run_chains,
 )
+from .hyper_mh import HyperSampler, gamma_from_mode_sd
 from .predictive import companion_spectral_radius, simulate_paths, simulate_paths_from_draws
 from .propagation import ShockResponses, VarianceShares, shock_responses, variance_shares
 from .sampling import Draws, check_size, sample_posterior
@@ -139,6 +140,11 @@ class FanfoldVAR:
         "independent" only: known-date periods (a promotion, a stock-out, a supply shock)
         whose shocks get their own scale, estimated (Lenza & Primiceri 2022); the first
         period is a date (or a 0-based row of the data for plain arrays).
+    sample_hyper : bool
+        "independent" only: sample the tightness and the cross tightness inside the Gibbs
+        loop (Metropolis) under Gamma hyperpriors (tightness: mode 0.2, s.d. 0.4, as in
+        Giannone, Lenza & Primiceri 2015; cross: mode 0.5, s.d. 0.5), starting from the
+        tuned tightness and ``cross``; slower per sweep than fixed values.
     chains, burn, keep, thin, workers : int
         "independent" only: Gibbs chains, sweeps discarded and draws kept per chain,
         sweeps per kept draw, and worker processes (see :class:`priors.gibbs.GibbsSettings`).
@@ -163,6 +169,7 @@ class FanfoldVAR:
         transforms: str | Sequence[str] | Mapping[str, str] | None = None,
         cross: float = 1.0,
         outliers: Sequence[tuple[str | int, int]] | None = None,
+        sample_hyper: bool = False,
         chains: int = 4,
         burn: int = 500,
         keep: int = 1000,
@@ -185,6 +192,7 @@ class FanfoldVAR:
         self.transforms = transforms
         self.cross = cross
         self.outliers = outliers
+        self.sample_hyper = sample_hyper
         self.chains = chains
         self.burn = burn
         self.keep = keep
@@ -206,6 +214,8 @@ class FanfoldVAR:
                 raise SpecificationError(f"{name} must be a number or 'auto'; got {v!r}")
         if self.tightness is None:
             raise SpecificationError("tightness must be a number or 'auto'")
+        if self.prior != "independent" and self.sample_hyper:
+            raise SpecificationError("sample_hyper needs prior='independent'")
         if self.prior != "independent" and self.outliers:
             raise SpecificationError("outlier periods need prior='independent' (their "
                                      "shock scales are sampled by Gibbs)")
@@ -355,8 +365,16 @@ class FanfoldVAR:
         hyper = dataclasses.replace(self.hyper_, cross=float(self.cross))
         prior = independent_minnesota_prior(self.design_, hyper, self.prior_mean_)
         pre = precompute(self.design_, prior, self._outlier_rows())
+        sampler = None
+        if self.sample_hyper:
+            m = self.design_.n_det
+            own = np.tile(np.eye(self.design_.n, dtype=bool), (self.lags_, 1))
+            unit = hyper.tightness**2 * np.where(own, 1.0, hyper.cross**2)
+            sampler = HyperSampler(prior.V[:m], prior.V[m:] / unit, own, prior.B0,
+                                   gamma_from_mode_sd(0.2, 0.4), gamma_from_mode_sd(0.5, 0.5))
         draws = run_chains(rng, pre, self.posterior_.B, self.posterior_.sigma_mean(),
-                           self._gibbs_settings(), progress=progress)
+                           self._gibbs_settings(), progress=progress, hyper=sampler,
+                           hyper_start=(hyper.tightness, hyper.cross))
         self.hyper_ = hyper
         self.prior_ = prior
         self.sampler_ = draws
@@ -889,9 +907,13 @@ class FanfoldVAR:
         return pd.DataFrame(mean, index=names, columns=names)
 
     def hyperparameters(self) -> dict[str, float | int | None]:
-        """Chosen lags and hyperparameters (None where switched off or flat)."""
+        """Chosen lags and hyperparameters (None where switched off or flat); with
+        ``sample_hyper``, the posterior medians of the tightness and cross tightness."""
         self._check_fitted()
         h = self.hyper_
+        if h is not None and self.sampler_ is not None and self.sampler_.hyper is not None:
+            med = np.median(self.sampler_.hyper.reshape(-1, 2), axis=0)
+            h = dataclasses.replace(h, tightness=float(med[0]), cross=float(med[1]))
         return {
             "lags": self.lags_,
             "tightness": None if h is None else h.tightness,

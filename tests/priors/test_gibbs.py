@@ -343,3 +343,65 @@ def test_a_known_shock_scale_jump_is_recovered():
     lo, hi = np.quantile(s[:, 0], [0.05, 0.95])
     assert lo < 4.0 < hi and lo > 1.5, (lo, hi)
     assert np.quantile(s[:, 1], 0.05) < 1.05 and np.quantile(s[:, 1], 0.95) < 3.0
+
+
+# ------------------------------------------------------------------ sampled tightness
+@pytest.mark.slow
+def test_geweke_with_sampled_tightness_and_cross_tightness():
+    # Geweke (2004) again, now with lambda and theta drawn from their Gamma hyperpriors in
+    # the marginal-conditional simulator and updated by the Metropolis step in the
+    # successive-conditional one; test functions add lambda and theta. 20 tests,
+    # family-wise 1e-3 (|z| < 4.06).
+    from priors.gibbs import sweep, with_variances
+    from priors.hyper_mh import HyperSampler, gamma_from_mode_sd
+
+    n, k, T, M = 2, 3, 12, 40_000
+    base = _geweke_prior()
+    hyper = HyperSampler(V_det=np.full((1, n), 0.25), lag_base=np.full((n, n), 0.04),
+                         own=np.eye(n, dtype=bool), B0=base.B0,
+                         tightness=gamma_from_mode_sd(1.0, 0.5),
+                         cross=gamma_from_mode_sd(0.8, 0.5), step=0.5)
+    rng = np.random.default_rng(13)
+    from scipy.stats import invwishart
+
+    def draw_joint():
+        lam = rng.gamma(hyper.tightness.shape, hyper.tightness.scale)
+        theta = rng.gamma(hyper.cross.shape, hyper.cross.scale)
+        B = hyper.B0 + np.sqrt(hyper.variances(lam, theta)) * rng.standard_normal((k, n))
+        Sigma = np.atleast_2d(invwishart.rvs(df=base.df, scale=base.S0, random_state=rng))
+        return B, Sigma, lam, theta
+
+    def g(B, Sigma, lam, theta):
+        return np.concatenate([_g(B, Sigma), [lam, theta]])
+
+    mc = np.array([g(*draw_joint()) for _ in range(M)])
+    B, Sigma, lam, theta = draw_joint()
+    gens = rng.spawn(1)
+    sc = np.empty_like(mc)
+    for m in range(M):
+        y = _simulate_y(rng, B, Sigma, T, np.zeros(2))
+        X = np.column_stack([np.ones(T), y[:-1]])
+        design = Design(y[1:], X, 1, 1, ("const", "a", "b"), ("a", "b"))
+        pre = with_variances(precompute(design, base), hyper.variances(lam, theta), hyper.B0)
+        st = sweep(gens, init_state(pre, B[None], Sigma[None]), pre)
+        B, Sigma = st.B[0], st.Sigma[0]
+        lams, thetas, _ = hyper.step_all(gens, st.B, np.array([lam]), np.array([theta]))
+        lam, theta = float(lams[0]), float(thetas[0])
+        sc[m] = g(B, Sigma, lam, theta)
+    batches = 100
+    b = sc[: M // batches * batches].reshape(batches, -1, sc.shape[1]).mean(axis=1)
+    se = np.sqrt(mc.var(axis=0, ddof=1) / M + b.var(axis=0, ddof=1) / batches)
+    z = (mc.mean(axis=0) - sc.mean(axis=0)) / se
+    assert np.all(np.abs(z) < Z_BONF), z
+
+
+def test_gamma_hyperprior_from_mode_and_sd():
+    # Check value 14 of the methods brief (GLP 2015: mode 0.2, s.d. 0.4)
+    from priors.hyper_mh import gamma_from_mode_sd
+
+    g = gamma_from_mode_sd(0.2, 0.4)
+    assert g.shape == pytest.approx(1.640388, abs=1e-6)
+    assert g.scale == pytest.approx(0.312311, abs=1e-6)
+    g = gamma_from_mode_sd(1.0, 1.0)
+    assert (g.shape, g.scale) == (pytest.approx(2.618034, abs=1e-6),
+                                  pytest.approx(0.618034, abs=1e-6))

@@ -104,3 +104,18 @@ def test_outlier_periods_by_date_get_their_own_scale():
             frame, rng=np.random.default_rng(0))
     with pytest.raises(SpecificationError, match="need prior='independent'"):
         FanfoldVAR(outliers=[(frame.index[5], 1)]).fit(frame)
+
+
+def test_sampled_tightness_is_reported_with_its_posterior():
+    frame = two_lines(100, 9)
+    model = FanfoldVAR(prior="independent", lags=2, tightness=0.2, cross=0.5,
+                       sample_hyper=True, chains=2, burn=100, keep=300)
+    model.fit(frame, rng=np.random.default_rng(0))
+    h = model.sampler_.hyper.reshape(-1, 2)
+    assert h.shape == (600, 2) and np.all(h > 0)
+    assert np.std(h[:, 0]) > 0 and np.std(h[:, 1]) > 0  # the chains move
+    hp = model.hyperparameters()
+    assert hp["tightness"] == pytest.approx(np.median(h[:, 0]), rel=1e-6)
+    assert hp["cross"] == pytest.approx(np.median(h[:, 1]), rel=1e-6)
+    with pytest.raises(SpecificationError, match="sample_hyper needs"):
+        FanfoldVAR(sample_hyper=True).fit(frame)

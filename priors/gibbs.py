@@ -319,6 +319,7 @@ class GibbsDraws:
     settings: GibbsSettings
     scales: np.ndarray | None = None  # (C, D, K) shock scales s_k of outlier periods
     hyper: np.ndarray | None = None  # (C, D, 2) sampled tightness and cross tightness
+    volatility: np.ndarray | None = None  # (C, D, 3) common SV: h_T, phi, sigma_eta^2
 
     @property
     def chains(self) -> int:

@@ -46,7 +46,12 @@ from .gibbs import (
     run_chains,
 )
 from .hyper_mh import HyperSampler, gamma_from_mode_sd
-from .predictive import companion_spectral_radius, simulate_paths, simulate_paths_from_draws
+from .predictive import (
+    companion_spectral_radius,
+    recursion_with_shocks,
+    simulate_paths,
+    simulate_paths_from_draws,
+)
 from .propagation import ShockResponses, VarianceShares, shock_responses, variance_shares
 from .sampling import Draws, check_size, sample_posterior
 from .scenarios import (
@@ -58,6 +63,7 @@ from .scenarios import (
     model_unit_conditions,
 )
 from .shrinkage import MinnesotaHyper, NIWPrior, ar_residual_variances, minnesota_prior
+from .stochvol import run_sv_chains, simulate_log_volatility
 from .transforms import default_prior_mean, inverse_paths
 from .tuning import tune_hyperparameters
 
@@ -145,6 +151,10 @@ class FanfoldVAR:
         loop (Metropolis) under Gamma hyperpriors (tightness: mode 0.2, s.d. 0.4, as in
         Giannone, Lenza & Primiceri 2015; cross: mode 0.5, s.d. 0.5), starting from the
         tuned tightness and ``cross``; slower per sweep than fixed values.
+    volatility : "constant" or "common"
+        "common" (prior "minnesota"): one stochastic volatility for all series, a log-AR(1)
+        process (Carriero, Clark & Marcellino 2016), sampled by Gibbs; forecasts carry
+        the volatility forward from its last value.
     chains, burn, keep, thin, workers : int
         "independent" only: Gibbs chains, sweeps discarded and draws kept per chain,
         sweeps per kept draw, and worker processes (see :class:`priors.gibbs.GibbsSettings`).
@@ -170,6 +180,7 @@ class FanfoldVAR:
         cross: float = 1.0,
         outliers: Sequence[tuple[str | int, int]] | None = None,
         sample_hyper: bool = False,
+        volatility: str = "constant",
         chains: int = 4,
         burn: int = 500,
         keep: int = 1000,
@@ -193,6 +204,7 @@ class FanfoldVAR:
         self.cross = cross
         self.outliers = outliers
         self.sample_hyper = sample_hyper
+        self.volatility = volatility
         self.chains = chains
         self.burn = burn
         self.keep = keep
@@ -214,6 +226,12 @@ class FanfoldVAR:
                 raise SpecificationError(f"{name} must be a number or 'auto'; got {v!r}")
         if self.tightness is None:
             raise SpecificationError("tightness must be a number or 'auto'")
+        if self.volatility not in ("constant", "common"):
+            raise SpecificationError(f"volatility must be 'constant' or 'common'; got "
+                                     f"{self.volatility!r}")
+        if self.volatility == "common" and self.prior != "minnesota":
+            raise SpecificationError("volatility='common' is built for prior='minnesota' "
+                                     "(the conjugate form keeps its Kronecker structure)")
         if self.prior != "independent" and self.sample_hyper:
             raise SpecificationError("sample_hyper needs prior='independent'")
         if self.prior != "independent" and self.outliers:
@@ -352,7 +370,27 @@ class FanfoldVAR:
         self.sampler_ = None
         if self.prior == "independent":
             self._run_gibbs(rng, progress)
+        elif self.volatility == "common":
+            self._run_sv(rng, progress)
         return self
+
+    def _run_sv(self, rng: np.random.Generator | None,
+                progress: Callable[[int, int], None] | None) -> None:
+        """Common stochastic volatility by Gibbs (:mod:`priors.stochvol`) at the tuned
+        prior; sets ``sampler_`` (with the volatility state) and ``log_volatility_``."""
+        if rng is None:
+            raise SpecificationError("volatility='common' is sampled by Gibbs: pass "
+                                     "rng=np.random.default_rng(seed) to fit")
+        settings = self._gibbs_settings()
+        assert self.prior_ is not None
+        sv = run_sv_chains(rng.spawn(settings.chains), self.design_, self.prior_,
+                           burn=settings.burn, keep=settings.keep, thin=settings.thin,
+                           progress=progress)
+        vol = np.stack([sv.h[:, :, -1], sv.phi, sv.sig2], axis=-1)
+        self.sampler_ = GibbsDraws(sv.B, sv.Sigma, settings, volatility=vol)
+        self.log_volatility_ = sv.h
+        self.sv_acceptance_ = sv.acceptance
+        self.log_ml_ = None
 
     def _run_gibbs(self, rng: np.random.Generator | None,
                    progress: Callable[[int, int], None] | None) -> None:
@@ -563,10 +601,17 @@ class FanfoldVAR:
         self._check_fitted()
         if self.sampler_ is None:
             return sample_posterior(rng, self.posterior_, draws)
+        return self._pick(draws, rng)[0]
+
+    def _pick(self, draws: int, rng: np.random.Generator) -> tuple[Draws, FloatArray | None]:
+        """Stored draws picked at random, with their volatility state (S, 3) if any."""
+        assert self.sampler_ is not None
         draws = check_size(draws)
         B, Sig = self.sampler_.flat()
         pick = rng.choice(B.shape[0], size=draws, replace=draws > B.shape[0])
-        return Draws(B[pick], Sig[pick])
+        vol = self.sampler_.volatility
+        state = None if vol is None else vol.reshape(-1, 3).astype(np.float64)[pick]
+        return Draws(B[pick], Sig[pick]), state
 
     def convergence(self) -> ConvergenceReport | None:
         """R-hat, bulk and tail ESS and MCSE of every coefficient and Sigma element of the
@@ -620,6 +665,14 @@ class FanfoldVAR:
         if reject_explosive:
             kept, rejected = self._stable_draws(rng, draws)
             paths = simulate_paths_from_draws(rng, kept, history, exog_rows)
+        elif self.sampler_ is not None and self.sampler_.volatility is not None:
+            picked, state = self._pick(draws, rng)
+            assert state is not None
+            h = simulate_log_volatility(rng, state[:, 0], state[:, 1], state[:, 2], horizon)
+            z = rng.standard_normal((draws, horizon, series.n))
+            shocks = np.exp(h / 2)[:, :, None] * np.einsum(
+                "sij,shj->shi", np.linalg.cholesky(picked.Sigma), z)
+            paths = recursion_with_shocks(picked.B, shocks, history, exog_rows)
         elif self.sampler_ is not None:
             paths = simulate_paths_from_draws(rng, self.sample(draws, rng=rng), history,
                                               exog_rows)
@@ -734,6 +787,10 @@ class FanfoldVAR:
         self._check_fitted()
         horizon = self._check_horizon(horizon)
         draws = check_size(draws)
+        if self.sampler_ is not None and self.sampler_.volatility is not None:
+            raise SpecificationError("scenarios and incomplete last periods are not "
+                                     "supported with stochastic volatility yet; use "
+                                     "volatility='constant'")
         series = self.series_
         r = self._ragged_rows()
         steps = r + horizon

@@ -16,7 +16,7 @@ from .api.routes import backtests, forecasts, health, jobs, models, planning
 from .auth import authenticate
 from .config import Settings, get_settings
 from .db import make_engine, make_session_factory
-from .engine import limit_blas_threads
+from .engine import SWEEP_COST, limit_blas_threads
 from .errors import register_error_handlers
 from .jobs import JobRunner
 from .metrics import Metrics, MetricsMiddleware
@@ -49,6 +49,7 @@ def create_app(settings: Settings | None = None) -> FastAPI:
         title="Fanfold",
         version="0.1.0",
         summary="Probabilistic forecasts of related demand series (Bayesian VAR)",
+        description=_limits(settings),
         lifespan=lifespan,
         docs_url=None,  # added below, behind the API key when keys are configured
         redoc_url=None,
@@ -89,6 +90,36 @@ def create_app(settings: Settings | None = None) -> FastAPI:
     return app
 
 
+def _limits(settings: Settings) -> str:
+    """This server's request limits, for the OpenAPI description."""
+    rows = [
+        ("body", f"{settings.max_body_bytes} bytes", "FANFOLD_MAX_BODY_BYTES"),
+        ("series", str(settings.max_series), "FANFOLD_MAX_SERIES"),
+        ("observations per series", str(settings.max_observations),
+         "FANFOLD_MAX_OBSERVATIONS"),
+        ("lags", str(settings.max_lags), "FANFOLD_MAX_LAGS"),
+        ("coefficients, series x (series x lags + terms)", str(settings.max_coefficients),
+         "FANFOLD_MAX_COEFFICIENTS"),
+        ("draws", str(settings.max_draws), "FANFOLD_MAX_DRAWS"),
+        ("horizon", str(settings.max_horizon), "FANFOLD_MAX_HORIZON"),
+        ("quantiles", str(settings.max_quantiles), "FANFOLD_MAX_QUANTILES"),
+        ("path values, draws x horizon x series", str(settings.max_path_values),
+         "FANFOLD_MAX_PATH_VALUES"),
+        ("Gibbs work (prior 'independent'), chains x (burn + keep x thin) x (series x "
+         f"coefficients per equation^2 + {SWEEP_COST})", f"{settings.max_gibbs_work:.3g}",
+         "FANFOLD_MAX_GIBBS_WORK"),
+        ("stored Gibbs draws, chains x keep x (coefficients + series^2) values",
+         str(settings.max_stored_draws), "FANFOLD_MAX_STORED_DRAWS"),
+        ("Gibbs work answered at once (above it POST /v1/models runs a job and the "
+         "one-shot POST /v1/forecasts refuses the fit)", f"{settings.sync_max_gibbs_work:.3g}",
+         "FANFOLD_SYNC_MAX_GIBBS_WORK"),
+        ("request time", f"{settings.request_timeout_s:g} s", "FANFOLD_REQUEST_TIMEOUT_S"),
+    ]
+    head = ("Limits of this server: a request over one is a 422 problem naming the field "
+            "(413 for the body, 503 past the request time).")
+    return head + "\n\n" + "\n".join(f"- {what}: {value} (`{env}`)" for what, value, env in rows)
+
+
 def _add_docs(app: FastAPI, dependencies: list[Any]) -> None:
     @app.get("/openapi.json", include_in_schema=False, dependencies=dependencies)
     def openapi_document() -> JSONResponse:
@@ -103,7 +134,7 @@ def _openapi(app: FastAPI) -> dict[str, object]:
     """FastAPI's document plus the request schemas that routes read from the raw body."""
     if app.openapi_schema is None:
         schema = get_openapi(title=app.title, version=app.version, summary=app.summary,
-                             routes=app.routes)
+                             description=app.description, routes=app.routes)
         extra = ForecastCreate.model_json_schema(ref_template="#/components/schemas/{model}")
         components = schema.setdefault("components", {}).setdefault("schemas", {})
         components.update(extra.pop("$defs", {}))

@@ -33,7 +33,7 @@ from .tables import format_backtest, format_fit, format_forecast, format_ranking
 __all__ = ["InputError", "UsageError", "build_parser", "main", "read_data"]
 
 EXIT_DATA, EXIT_USAGE = 1, 2
-PRIORS = ("minnesota", "flat")  # as accepted by FanfoldVAR(prior=...)
+PRIORS = ("minnesota", "independent", "flat")  # as accepted by FanfoldVAR(prior=...)
 
 
 class UsageError(Exception):
@@ -194,7 +194,9 @@ def _model_options() -> argparse.ArgumentParser:
                                     ("monthly", "quarterly", "weekly", "daily"))
                         + f", else {default_max_lags('other')})")
     g.add_argument("--prior", choices=PRIORS, default="minnesota",
-                   help="Minnesota shrinkage, or flat (posterior mean = OLS estimates)")
+                   help="Minnesota shrinkage (natural-conjugate: exact posterior), "
+                        "independent (the full Minnesota pattern with --cross, sampled by "
+                        "Gibbs), or flat (posterior mean = OLS estimates)")
     g.add_argument("--tightness", type=_tightness, default="auto", metavar="X|auto",
                    help="prior s.d. of each series' own first lag, or 'auto' to maximise the "
                         "marginal likelihood; ignored with --prior flat")
@@ -219,6 +221,21 @@ def _model_options() -> argparse.ArgumentParser:
     g.add_argument("--trend", action="store_true", help="add a linear time trend")
     g.add_argument("--no-constant", dest="constant", action="store_false",
                    help="leave out the constant (default: keep it)")
+    gibbs = parent.add_argument_group("Gibbs sampler (--prior independent)")
+    gibbs.add_argument("--cross", type=_number, default=1.0, metavar="X",
+                       help="prior s.d. of other series' lags as a multiple of own lags' "
+                            "(below 1: cross-effects shrunk harder)")
+    gibbs.add_argument("--chains", type=_positive_int, default=4, metavar="N",
+                       help="chains (two or more for convergence diagnostics)")
+    gibbs.add_argument("--burn", type=_integer(0), default=500, metavar="N",
+                       help="sweeps discarded at the start of each chain")
+    gibbs.add_argument("--keep", type=_positive_int, default=1000, metavar="N",
+                       help="draws kept per chain")
+    gibbs.add_argument("--thin", type=_positive_int, default=1, metavar="N",
+                       help="sweeps per kept draw")
+    gibbs.add_argument("--workers", type=_positive_int, default=1, metavar="N",
+                       help="processes running the chains (backtest: running origins) in "
+                            "parallel; the same draws for any N, to rounding")
     return parent
 
 
@@ -246,7 +263,8 @@ def build_parser() -> argparse.ArgumentParser:
     fc.add_argument("--draws", type=_positive_int, default=2000, metavar="N",
                     help="simulated paths")
     fc.add_argument("--seed", type=_seed, metavar="S",
-                    help="random seed (default: a fresh random seed, printed with the output)")
+                    help="random seed of the forecast draws and the Gibbs chains (default: "
+                         "a fresh random seed, printed with the output)")
     fc.add_argument("--quantiles", type=_quantiles, default="0.05,0.5,0.95", metavar="Q,...",
                     help="comma-separated quantile levels in (0, 1)")
     fc.add_argument("--out", metavar="FILE.csv",
@@ -273,13 +291,17 @@ def build_parser() -> argparse.ArgumentParser:
                          **common)
     fit.add_argument("data", metavar="DATA.csv", help=data_help)
     fit.add_argument("--summary", action="store_true",
-                     help="also print lag search, coefficients and the error covariance")
+                     help="also print lag search, coefficients, the error covariance and "
+                          "(--prior independent) the chains' convergence: worst R-hat, "
+                          "smallest bulk and tail ESS, and what failed")
     fit.add_argument("--level", type=_level, default=0.9,
                      help="coverage of the coefficients' credible intervals")
     fit.add_argument("--seed", type=_seed, default=0, metavar="S",
-                     help="random seed of the draws behind the spectral-radius summary")
+                     help="random seed of the Gibbs chains and of the draws behind the "
+                          "spectral-radius summary")
     fit.add_argument("--json", action="store_true",
-                     help="print the full summary as JSON (implies --summary)")
+                     help="print the full summary as JSON (implies --summary; "
+                          "\"diagnostics\" is null for exact samplers)")
     fit.set_defaults(run=_fit)
 
     serve = sub.add_parser("serve", help="run the HTTP service",
@@ -324,8 +346,6 @@ def build_parser() -> argparse.ArgumentParser:
     bt.add_argument("--ets", action="store_true",
                     help="add per-series exponential smoothing as a benchmark (needs "
                          "statsmodels: pip install 'fanfold[evaluation]')")
-    bt.add_argument("--workers", type=_positive_int, default=1, metavar="N",
-                    help="processes running origins in parallel (same result for any N)")
     bt.add_argument("--json", action="store_true",
                     help="print the scores as JSON records instead of tables")
     bt.add_argument("--report", metavar="FILE.html",
@@ -358,17 +378,54 @@ def _version() -> str:
 
 
 # ---------------------------------------------------------------------- commands
+def _interactive() -> bool:
+    """Whether stderr is a terminal: progress bars are drawn only there."""
+    return sys.stderr.isatty()
+
+
+def _progress_bar(label: str, unit: str) -> Callable[[int, int], None]:
+    """A ``progress(done, total)`` callback drawing a bar on stderr (terminals only)."""
+
+    def progress(done: int, total: int) -> None:
+        if _interactive():
+            bar = "#" * (30 * done // max(total, 1))
+            print(f"\rfanfold: {label} [{bar:<30}] {done}/{total} {unit}", end="",
+                  file=sys.stderr, flush=True)
+            if done >= total:
+                print(file=sys.stderr)
+
+    return progress
+
+
 def _model_params(args: argparse.Namespace) -> dict[str, Any]:
-    """FanfoldVAR's settings from the model options."""
-    return {"lags": args.lags, "max_lags": args.max_lags, "prior": args.prior,
-            "tightness": args.tightness, "decay": args.decay, "sum_coef": args.sum_coef,
-            "initial": args.initial, "hyperprior": args.hyperprior,
-            "constant": args.constant, "trend": args.trend, "seasonal": args.seasonal,
-            "transforms": args.transform}
+    """FanfoldVAR's settings from the model options (the Gibbs ones for --prior
+    independent, and --cross whenever given, so that FanfoldVAR refuses it elsewhere)."""
+    params = {"lags": args.lags, "max_lags": args.max_lags, "prior": args.prior,
+              "tightness": args.tightness, "decay": args.decay, "sum_coef": args.sum_coef,
+              "initial": args.initial, "hyperprior": args.hyperprior,
+              "constant": args.constant, "trend": args.trend, "seasonal": args.seasonal,
+              "transforms": args.transform}
+    if args.prior == "independent" or args.cross != 1.0:
+        params["cross"] = args.cross
+    if args.prior == "independent":
+        params.update(chains=args.chains, burn=args.burn, keep=args.keep, thin=args.thin,
+                      workers=args.workers)
+    return params
 
 
 def _fitted(args: argparse.Namespace) -> FanfoldVAR:
-    return FanfoldVAR(**_model_params(args)).fit(read_data(args.data))
+    """The model fitted to the data file. The Gibbs chains of --prior independent start
+    from --seed; without one, a fresh seed is drawn and kept in ``args.seed``, so the seed
+    printed with the output reproduces the fit as well as the draws."""
+    model = FanfoldVAR(**_model_params(args))
+    data = read_data(args.data)
+    if args.prior != "independent":
+        return model.fit(data)
+    if getattr(args, "seed", None) is None:
+        args.seed = secrets.randbits(32)
+    return model.fit(data, rng=np.random.default_rng(args.seed),
+                     progress=_progress_bar(f"Gibbs sampler, {args.chains} chain(s)",
+                                            "chain sweeps"))
 
 
 def _json(payload: dict[str, Any]) -> str:
@@ -406,27 +463,30 @@ def _forecast(args: argparse.Namespace) -> str:
 def _fit(args: argparse.Namespace) -> str:
     model = _fitted(args)
     payload = summary_to_dict(model, args.level, rng=np.random.default_rng(args.seed))
+    report = model.convergence()  # None for exact samplers
+    payload["diagnostics"] = None if report is None else report.summary()
     if args.json:
         return _json(payload)
-    return format_fit(payload, prior=args.prior, level=args.level, summary=args.summary)
+    sampler = None
+    if model.sampler_ is not None:
+        sampler = (f"{args.chains} chain(s) x {args.keep} draws after {args.burn} burn-in "
+                   f"sweeps, thin {args.thin}, seed {args.seed}")
+    return format_fit(payload, prior=args.prior, level=args.level, summary=args.summary,
+                      sampler=sampler)
 
 
 def _backtest(args: argparse.Namespace) -> str:
     from priors.backtest import rolling_origin
 
+    if args.prior == "independent":
+        raise UsageError("backtest does not support --prior independent yet (a Gibbs run "
+                         "per origin); backtest --prior minnesota instead")
     frame = read_data(args.data)
     params = _model_params(args)
     benchmarks = ("ols_var", "random_walk") + (("seasonal_naive",) if args.period else ())
     if args.prior == "flat":
         benchmarks = tuple(b for b in benchmarks if b != "ols_var")
-
-    def progress(done: int, total: int) -> None:
-        if sys.stderr.isatty():
-            bar = "#" * (30 * done // total)
-            print(f"\rfanfold: backtest [{bar:<30}] {done}/{total} origins", end="",
-                  file=sys.stderr, flush=True)
-            if done == total:
-                print(file=sys.stderr)
+    progress = _progress_bar("backtest", "origins")
 
     if args.candidate:
         from priors.backtest import rank_settings
@@ -514,7 +574,7 @@ def _store_demo(base: str) -> str:
     from .config import get_settings
     from .db import make_engine, make_session_factory
     from .demo import demo_frame
-    from .engine import fit_model, model_params
+    from .engine import fit_model, stored_settings
     from .migrate import upgrade
     from .schemas import ModelSettings
     from .store import save_model
@@ -524,11 +584,11 @@ def _store_demo(base: str) -> str:
     upgrade(engine)
     frame = demo_frame()
     spec = ModelSettings(seasonal=True)
-    model = fit_model(spec, frame, settings)
+    model, seed = fit_model(spec, frame, settings)
     tenant = settings.api_keys[0].tenant if settings.api_keys else PUBLIC_TENANT
     with make_session_factory(engine)() as session:
         row = save_model(session=session, tenant=tenant, name="bicycle-parts demo",
-                         params=model_params(spec), frame=frame, model=model)
+                         params=stored_settings(spec, seed), frame=frame, model=model)
     engine.dispose()
     key = ' -H "X-API-Key: $FANFOLD_KEY"' if settings.api_keys else ""
     return "\n".join([

@@ -136,9 +136,17 @@ class FanfoldClient:
         """Forecast a stored model (no refit); a tidy table."""
         return forecast_table(self._post(f"/v1/models/{model_id}/forecasts", json=settings))
 
-    def append(self, model_id: str, data: pd.DataFrame) -> dict[str, Any]:
-        """Append new periods to a stored model (exact update, no refit)."""
-        return self._post(f"/v1/models/{model_id}/observations", json=_series_body(data))
+    def append(self, model_id: str, data: pd.DataFrame, *, wait: float = 600.0
+               ) -> dict[str, Any]:
+        """Append new periods to a stored model; the updated model. Exact update for the
+        conjugate priors; with prior "independent" the service reruns the Gibbs chains in
+        a job, which this waits for."""
+        response = self._request("POST", f"/v1/models/{model_id}/observations",
+                                 json=_series_body(data))
+        if response.status_code == 202:
+            job = self.wait_for_job(response.headers["location"], timeout=wait)
+            return self._request("GET", job["result"]).json()
+        return response.json()
 
     def scenario(self, model_id: str, conditions: list[dict[str, Any]], **settings: Any
                  ) -> tuple[pd.DataFrame, pd.DataFrame]:

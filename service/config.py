@@ -35,6 +35,12 @@ class Settings(BaseSettings):
     max_quantiles: int = Field(25, ge=1)
     max_coefficients: int = Field(5_000, ge=1)  # n * (n * p + m) per model
     max_path_values: int = Field(50_000_000, ge=1)  # draws * horizon * series
+    # prior "independent" (Gibbs): work chains * (burn + keep * thin) * (series * k**2 +
+    # engine.SWEEP_COST), k coefficients per equation (measured on one core: 3e8 in about
+    # 1 s at n = 7, 8e9 in about 8 s at n = 20), and the values kept, chains * keep *
+    # (k * series + series**2) (4 bytes each, stored with the model)
+    max_gibbs_work: float = Field(2e10, gt=0)
+    max_stored_draws: int = Field(30_000_000, ge=1)
     request_timeout_s: float = Field(60.0, gt=0)
 
     # background jobs: fits over this size (or with "Prefer: respond-async") become jobs
@@ -44,6 +50,7 @@ class Settings(BaseSettings):
     job_lease_s: float = Field(30.0, gt=0)  # renewed by a heartbeat while the job runs
     job_recovery_interval_s: float = Field(10.0, gt=0)
     sync_max_coefficients: int = Field(2_500, ge=1)
+    sync_max_gibbs_work: float = Field(1e9, gt=0)  # Gibbs fits above it run as jobs
 
     # [{"id": "ops", "sha256": "<hex of the whole key>", "tenant": "acme"}, ...]; create
     # entries with `fanfold keys new --id ops --tenant acme`

@@ -7,8 +7,8 @@ from __future__ import annotations
 
 import contextlib
 import secrets
-from collections.abc import Sequence
-from typing import Any
+from collections.abc import Callable, Sequence
+from typing import Any, NamedTuple
 
 import numpy as np
 import pandas as pd
@@ -23,18 +23,32 @@ from .schemas import ForecastSettings, ModelSettings, OutputSettings, SeriesData
 from .serialization import forecast_to_dict, quantile_key
 
 __all__ = [
+    "SWEEP_COST",
+    "Fitted",
+    "append_observations",
     "blas_threads",
     "check_model_limits",
     "check_output_limits",
     "fan_chart",
     "fit_model",
     "forecast_answer",
-    "lead_time_totals",
     "frame_from_spec",
+    "gibbs_work",
+    "lead_time_totals",
     "limit_blas_threads",
     "model_params",
     "run_forecast",
+    "stored_settings",
 ]
+
+Progress = Callable[[int, int], None]
+
+
+class Fitted(NamedTuple):
+    """A fitted model and the seed of its Gibbs chains (None for exact samplers)."""
+
+    model: FanfoldVAR
+    seed: int | None
 
 
 def frame_from_spec(spec: SeriesData) -> pd.DataFrame:
@@ -77,10 +91,34 @@ def _over(field: str, value: int, limit: int, advice: str) -> None:
         )
 
 
+def _lags_and_terms(spec: ModelSettings) -> tuple[int, int]:
+    """The largest lag order the fit may use and the deterministic terms per equation."""
+    p = spec.lags if isinstance(spec.lags, int) else (spec.max_lags or default_max_lags("monthly"))
+    return p, int(spec.constant) + int(spec.trend) + (11 if spec.seasonal else 0)
+
+
+# A chain-sweep's fixed cost in units of n k^2 (one unit took about 1 ns at n = 20,
+# k = 261; a chain-sweep of a one-series model 25-160 us), so that long runs of tiny
+# models count too.
+SWEEP_COST = 50_000
+
+
+def gibbs_work(spec: ModelSettings, n: int) -> tuple[float, str]:
+    """The Gibbs sampler's work, chains x (burn + keep x thin) x (n x k**2 + SWEEP_COST)
+    (k coefficients per equation at the largest lag order), and the setting that drives
+    it most; (0, "") for the exact samplers."""
+    if spec.prior != "independent":
+        return 0.0, ""
+    p, m = _lags_and_terms(spec)
+    k = n * p + m
+    field = "burn" if spec.burn > spec.keep * spec.thin else "keep"
+    sweeps = spec.chains * (spec.burn + spec.keep * spec.thin)
+    return float(sweeps * (n * k * k + SWEEP_COST)), field
+
+
 def check_model_limits(spec: ModelSettings, n: int, T: int, limits: Settings) -> None:
     """Raise :class:`LimitExceeded` (422) naming the first model limit the data exceed."""
-    p = spec.lags if isinstance(spec.lags, int) else (spec.max_lags or default_max_lags("monthly"))
-    m = int(spec.constant) + int(spec.trend) + (11 if spec.seasonal else 0)
+    p, m = _lags_and_terms(spec)
     _over("series", n, limits.max_series, "send fewer series")
     _over("series", T, limits.max_observations, "send fewer observations per series")
     _over("lags", p, limits.max_lags, "lower lags or max_lags")
@@ -90,6 +128,22 @@ def check_model_limits(spec: ModelSettings, n: int, T: int, limits: Settings) ->
         limits.max_coefficients,
         "lower lags or send fewer series (coefficients = series x (series x lags + terms))",
     )
+    if spec.prior != "independent":
+        return
+    work, field = gibbs_work(spec, n)
+    if work > limits.max_gibbs_work:
+        raise LimitExceeded(field, (
+            f"{field}: the Gibbs sampler's work, chains x (burn + keep x thin) x (series x "
+            f"coefficients per equation^2 + {SWEEP_COST}) = {work:.3g}, is over this "
+            f"server's limit of {limits.max_gibbs_work:.3g}; lower keep, thin, burn or "
+            "chains (or lags)"))
+    k = n * p + m
+    stored = spec.chains * spec.keep * (k * n + n * n)
+    if stored > limits.max_stored_draws:
+        raise LimitExceeded("keep", (
+            f"keep: the draws to store, chains x keep x (coefficients + series^2) = "
+            f"{stored} values, are over this server's limit of {limits.max_stored_draws}; "
+            "lower keep or chains (raise thin to keep the chains as long)"))
 
 
 def check_output_limits(spec: OutputSettings, n: int, limits: Settings) -> None:
@@ -134,8 +188,9 @@ def blas_threads(limit: int):  # type: ignore[no-untyped-def]
 
 
 def model_params(spec: ModelSettings) -> dict[str, Any]:
-    """FanfoldVAR's settings from a request."""
-    return {
+    """FanfoldVAR's settings from a request; the Gibbs settings only for the independent
+    prior, with one worker process (the server's parallelism is its job threads)."""
+    params: dict[str, Any] = {
         "lags": spec.lags,
         "max_lags": spec.max_lags,
         "prior": spec.prior,
@@ -149,12 +204,50 @@ def model_params(spec: ModelSettings) -> dict[str, Any]:
         "seasonal": spec.seasonal,
         "transforms": spec.transforms,
     }
+    if spec.prior == "independent":
+        params.update(cross=spec.cross, chains=spec.chains, burn=spec.burn, keep=spec.keep,
+                      thin=spec.thin, workers=1)
+    return params
 
 
-def fit_model(spec: ModelSettings, frame: pd.DataFrame, limits: Settings) -> FanfoldVAR:
-    """Check the limits, then fit."""
+def stored_settings(spec: ModelSettings, seed: int | None) -> dict[str, Any]:
+    """The settings kept with a model: :func:`model_params` plus the seed that produced
+    its Gibbs draws (none for exact samplers)."""
+    params = model_params(spec)
+    return params if seed is None else {**params, "seed": seed}
+
+
+def _fresh_seed(seed: int | None) -> int:
+    return secrets.randbits(32) if seed is None else int(seed)
+
+
+def fit_model(spec: ModelSettings, frame: pd.DataFrame, limits: Settings,
+              progress: Progress | None = None) -> Fitted:
+    """Check the limits, then fit. The independent prior's Gibbs chains start from
+    ``spec.seed`` (or a fresh seed, returned so it can be stored); ``progress(done,
+    total)`` is called as they run and may raise to stop the fit."""
     check_model_limits(spec, frame.shape[1], frame.shape[0], limits)
-    return FanfoldVAR(**model_params(spec)).fit(frame)
+    model = FanfoldVAR(**model_params(spec))
+    if spec.prior != "independent":
+        return Fitted(model.fit(frame), None)
+    seed = _fresh_seed(spec.seed)
+    return Fitted(model.fit(frame, rng=np.random.default_rng(seed), progress=progress), seed)
+
+
+def append_observations(model: FanfoldVAR, old: pd.DataFrame, new: pd.DataFrame, *,
+                        seed: int | None = None, progress: Progress | None = None,
+                        ) -> tuple[Fitted, pd.DataFrame]:
+    """``model`` (fitted to ``old``) with the periods in ``new`` appended, and the data
+    it is now fitted to (incomplete last periods of ``old`` are replaced). Exact update for
+    the conjugate priors; the independent prior's chains run again from ``seed`` (or a
+    fresh one)."""
+    known = 0 if model.ragged_ is None else model.ragged_.values.shape[0]
+    frame = pd.concat([old.iloc[: old.shape[0] - known], new])
+    if model.prior != "independent":
+        return Fitted(model.append(new), None), frame
+    seed = _fresh_seed(seed)
+    grown = model.append(new, rng=np.random.default_rng(seed), progress=progress)
+    return Fitted(grown, seed), frame
 
 
 def forecast_answer(model: FanfoldVAR, spec: OutputSettings, limits: Settings) -> dict[str, Any]:
@@ -191,10 +284,19 @@ def lead_time_totals(fc: Forecast, lead_time: int, quantiles: Sequence[float],
 
 
 def run_forecast(spec: ForecastSettings, frame: pd.DataFrame, limits: Settings) -> dict[str, Any]:
-    """One-shot: check every limit first, then fit and forecast."""
+    """One-shot: check every limit first, then fit and forecast. One seed (given or
+    fresh, reported in the answer) drives both the Gibbs chains and the forecast draws."""
     check_model_limits(spec, frame.shape[1], frame.shape[0], limits)
     check_output_limits(spec, frame.shape[1], limits)
-    return forecast_answer(fit_model(spec, frame, limits), spec, limits)
+    work, field = gibbs_work(spec, frame.shape[1])
+    if work > limits.sync_max_gibbs_work:
+        raise LimitExceeded(field, (
+            f"{field}: this Gibbs fit (work {work:.3g}) is too large to answer at once "
+            f"(over {limits.sync_max_gibbs_work:.3g}); store the model with POST /v1/models "
+            "(which runs as a job) and forecast it with POST /v1/models/{id}/forecasts, or "
+            "lower keep, thin, burn or chains"))
+    spec = spec.model_copy(update={"seed": _fresh_seed(spec.seed)})
+    return forecast_answer(fit_model(spec, frame, limits).model, spec, limits)
 
 
 def fan_chart(

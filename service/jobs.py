@@ -9,6 +9,12 @@ out within ``job_lease_s``, and :meth:`JobRunner.recover` (at start and every
 ``job_max_attempts``; a fit that runs past ``fit_timeout_s`` loses its lease the same
 way. A worker finishing late cannot overwrite a job that was re-queued meanwhile: its
 final UPDATE requires the attempt number it claimed.
+
+Kinds: "fit_model" (fit and store), "update_model" (append observations to a stored
+model with the independent prior: its Gibbs chains run again) and "backtest". Gibbs fits
+report progress (0.1 to 0.9 by sweeps done, written at most every
+``PROGRESS_INTERVAL_S``) and stop at the next report once the job is cancelled or
+superseded.
 """
 
 from __future__ import annotations
@@ -24,21 +30,50 @@ import numpy as np
 from pydantic import BaseModel
 from sqlalchemy import func, select, update
 from sqlalchemy.orm import Session, sessionmaker
+from sqlalchemy.orm.exc import StaleDataError
 
 from priors.errors import PriorsError
 
 from .config import Settings
-from .engine import check_model_limits, fit_model, frame_from_spec, model_params
+from .engine import (
+    Progress,
+    append_observations,
+    check_model_limits,
+    fit_model,
+    frame_from_spec,
+    model_params,
+    stored_settings,
+)
 from .errors import LimitExceeded
 from .metrics import Metrics
 from .orm import Job
-from .schemas import BacktestCreate, ModelCreate
-from .store import save_model
+from .schemas import BacktestCreate, ModelCreate, ObservationsCreate
+from .serialization import data_from_dict
+from .store import get_model, load_fitted, replace_fitted, save_model
 
-__all__ = ["TERMINAL", "JobRunner", "cancel_job", "get_job", "submit_job"]
+__all__ = ["PROGRESS_INTERVAL_S", "TERMINAL", "JobRunner", "cancel_job", "get_job",
+           "submit_job"]
 
 log = logging.getLogger("fanfold.jobs")
 TERMINAL = frozenset({"succeeded", "failed", "cancelled"})
+PROGRESS_INTERVAL_S = 0.5  # at most one progress write per job this often
+
+
+class _Cancelled(Exception):
+    """Raised from a fit's progress callback: the job was cancelled."""
+
+
+class _Superseded(Exception):
+    """Raised from a fit's progress callback: the job is no longer this worker's (its
+    lease ran out and it was re-queued or failed)."""
+
+
+class _Problem(Exception):
+    """A job that cannot go on, as the problem document its row will carry."""
+
+    def __init__(self, status: int, title: str, detail: str) -> None:
+        super().__init__(detail)
+        self.problem = {"title": title, "status": status, "detail": detail}
 
 
 def _now() -> dt.datetime:
@@ -46,13 +81,18 @@ def _now() -> dt.datetime:
 
 
 def submit_job(*, session: Session, tenant: str, kind: str, spec: BaseModel,
-               max_attempts: int, commit: bool = True) -> Job:
-    """Queue a job of ``kind`` ("fit_model" or "backtest") for the request ``spec``;
-    ``commit=False`` leaves the commit to the caller (to write more in the same
-    transaction)."""
+               max_attempts: int, commit: bool = True,
+               target: dict[str, Any] | None = None) -> Job:
+    """Queue a job of ``kind`` ("fit_model", "update_model" or "backtest") for the
+    request ``spec``; ``target`` names what an update applies to (stored beside the
+    request as ``{"target": ..., "request": ...}``). ``commit=False`` leaves the commit to
+    the caller (to write more in the same transaction)."""
+    payload = spec.model_dump(mode="json")
+    if target is not None:
+        payload = {"target": target, "request": payload}
     job = Job(id=str(uuid.uuid4()), tenant_id=tenant, kind=kind, status="queued",
               progress=0.0, attempts=0, max_attempts=max_attempts, cancel_requested=0,
-              payload=spec.model_dump(mode="json"))
+              payload=payload)
     session.add(job)
     if commit:
         session.commit()
@@ -66,7 +106,8 @@ def get_job(*, session: Session, tenant: str, job_id: str) -> Job | None:
 
 
 def cancel_job(*, session: Session, job: Job) -> Job:
-    """Cancel a queued job at once; ask a running one to stop (it ends ``cancelled``)."""
+    """Cancel a queued job at once; ask a running one to stop (it ends ``cancelled``: a
+    Gibbs fit at its next progress report, any job before it stores its result)."""
     if job.status == "queued":
         session.execute(update(Job).where(Job.id == job.id, Job.status == "queued")
                         .values(status="cancelled", updated_at=_now()))
@@ -220,50 +261,128 @@ class JobRunner:
             job = s.get(Job, job_id)
             assert job is not None
             mine = (Job.id == job_id, Job.status == "running", Job.attempts == attempt)
+
+            def fail(error: dict[str, Any]) -> None:
+                s.rollback()
+                s.execute(update(Job).where(*mine).values(status="failed", updated_at=_now(),
+                                                          error=error))
+                s.commit()
+
             try:
                 if job.kind == "backtest":
                     self._backtest(s, job, mine)
-                    return
-                spec = ModelCreate.model_validate(job.payload)
-                frame = frame_from_spec(spec)
-                started = time.perf_counter()
-                model = fit_model(spec, frame, self.settings)
-                if self.metrics is not None:
-                    self.metrics.fit.observe(time.perf_counter() - started)
-                s.execute(update(Job).where(*mine).values(progress=0.9, updated_at=_now()))
+                elif job.kind == "update_model":
+                    self._update_model(s, job, mine)
+                else:
+                    self._fit_model(s, job, mine)
+            except _Cancelled:
+                s.rollback()
+                s.execute(update(Job).where(*mine).values(status="cancelled",
+                                                          updated_at=_now()))
                 s.commit()
-                s.refresh(job)
-                if job.cancel_requested:
-                    s.execute(update(Job).where(*mine).values(
-                        status="cancelled", updated_at=_now()))
-                    s.commit()
-                    return
-                row = save_model(session=s, tenant=job.tenant_id, name=spec.name,
-                                 params=model_params(spec), frame=frame, model=model,
-                                 commit=False)
-                done = s.execute(update(Job).where(*mine).values(
-                    status="succeeded", progress=1.0, result_model_id=row.id,
-                    updated_at=_now()))
-                if done.rowcount != 1:  # re-queued meanwhile: keep nothing
-                    s.rollback()
-                    return
-                s.commit()
+            except _Superseded:
+                s.rollback()
+                log.warning("job taken away from this worker; stopped its fit",
+                            extra={"job_id": job_id})
+            except _Problem as exc:
+                fail(exc.problem)
+            except StaleDataError:
+                fail({"title": "Conflict", "status": 409,
+                      "detail": "the model changed while this job was updating it; fetch "
+                                "it and send the observations again"})
             except (PriorsError, LimitExceeded) as exc:
-                s.rollback()
                 detail = exc.message if isinstance(exc, LimitExceeded) else str(exc)
-                s.execute(update(Job).where(*mine).values(status="failed", updated_at=_now(),
-                          error={"title": "The model cannot use this input", "status": 422,
-                                 "type": f"urn:fanfold:problem:{type(exc).__name__}",
-                                 "detail": detail}))
-                s.commit()
+                fail({"title": "The model cannot use this input", "status": 422,
+                      "type": f"urn:fanfold:problem:{type(exc).__name__}", "detail": detail})
             except Exception:
-                s.rollback()
                 log.exception("job failed", extra={"job_id": job_id})
-                s.execute(update(Job).where(*mine).values(status="failed", updated_at=_now(),
-                          error={"title": "Internal Server Error", "status": 500,
-                                 "detail": "the job failed unexpectedly; the error is logged "
-                                           f"with job_id {job_id}"}))
-                s.commit()
+                fail({"title": "Internal Server Error", "status": 500,
+                      "detail": "the job failed unexpectedly; the error is logged "
+                                f"with job_id {job_id}"})
+
+    def _progress(self, mine: tuple[Any, ...]) -> Progress:
+        """A fit's progress callback: sweeps done -> job progress from 0.1 to 0.9, written
+        at most every ``PROGRESS_INTERVAL_S``; raises :class:`_Cancelled` once the job's
+        cancel flag is set and :class:`_Superseded` once the job is not this worker's."""
+        last = -float("inf")
+
+        def progress(done: int, total: int) -> None:
+            nonlocal last
+            now = time.monotonic()
+            if now - last < PROGRESS_INTERVAL_S:
+                return
+            last = now
+            with self.sessions() as p:
+                mark = p.execute(update(Job).where(*mine).values(
+                    progress=0.1 + 0.8 * done / max(total, 1), updated_at=_now()))
+                cancel = p.scalar(select(Job.cancel_requested).where(*mine))
+                p.commit()
+            if mark.rowcount != 1:
+                raise _Superseded
+            if cancel:
+                raise _Cancelled
+
+        return progress
+
+    def _fitted_and_not_cancelled(self, s: Session, job: Job, mine: tuple[Any, ...]) -> None:
+        """Mark the fit done (progress 0.9); raise :class:`_Cancelled` if the job was
+        cancelled meanwhile."""
+        s.execute(update(Job).where(*mine).values(progress=0.9, updated_at=_now()))
+        s.commit()
+        s.refresh(job)
+        if job.cancel_requested:
+            raise _Cancelled
+
+    def _succeed(self, s: Session, mine: tuple[Any, ...], model_id: str) -> None:
+        """Mark the job succeeded with its model in the transaction that stored it (or
+        keep nothing if the job was re-queued meanwhile)."""
+        done = s.execute(update(Job).where(*mine).values(
+            status="succeeded", progress=1.0, result_model_id=model_id, updated_at=_now()))
+        if done.rowcount != 1:
+            s.rollback()
+            return
+        s.commit()
+
+    def _fit_model(self, s: Session, job: Job, mine: tuple[Any, ...]) -> None:
+        """Fit and store a model."""
+        spec = ModelCreate.model_validate(job.payload)
+        frame = frame_from_spec(spec)
+        started = time.perf_counter()
+        fitted = fit_model(spec, frame, self.settings, progress=self._progress(mine))
+        if self.metrics is not None:
+            self.metrics.fit.observe(time.perf_counter() - started)
+        self._fitted_and_not_cancelled(s, job, mine)
+        row = save_model(session=s, tenant=job.tenant_id, name=spec.name,
+                         params=stored_settings(spec, fitted.seed), frame=frame,
+                         model=fitted.model, commit=False)
+        self._succeed(s, mine, row.id)
+
+    def _update_model(self, s: Session, job: Job, mine: tuple[Any, ...]) -> None:
+        """Append observations to a stored model, rerunning its Gibbs chains from its
+        stored seed, and replace it (version + 1), provided it has not changed since the
+        observations were sent."""
+        target, spec = job.payload["target"], ObservationsCreate.model_validate(
+            job.payload["request"])
+        model_id = target["model_id"]
+        row = get_model(session=s, tenant=job.tenant_id, model_id=model_id)
+        if row is None:
+            raise _Problem(404, "Not Found", f"model {model_id} was deleted before the "
+                                             "update ran")
+        if row.version != target["version"]:
+            raise _Problem(409, "Conflict", (
+                f"model {model_id} changed (version {target['version']} -> {row.version}) "
+                "since these observations were sent; fetch it and send them again"))
+        s.commit()  # no transaction held open during the fit; the version is checked
+        started = time.perf_counter()
+        fitted, frame = append_observations(
+            load_fitted(row), data_from_dict(row.data), frame_from_spec(spec),
+            seed=row.settings.get("seed"), progress=self._progress(mine))
+        if self.metrics is not None:
+            self.metrics.fit.observe(time.perf_counter() - started)
+        self._fitted_and_not_cancelled(s, job, mine)
+        replace_fitted(session=s, row=row, frame=frame, model=fitted.model,
+                       seed=fitted.seed, commit=False)
+        self._succeed(s, mine, row.id)
 
     def _backtest(self, s: Session, job: Job, mine: tuple[Any, ...]) -> None:
         """Run a rolling-origin backtest; progress is the share of origins done."""
@@ -289,9 +408,7 @@ class JobRunner:
                                 progress=progress)
         s.refresh(job)
         if job.cancel_requested:
-            s.execute(update(Job).where(*mine).values(status="cancelled", updated_at=_now()))
-            s.commit()
-            return
+            raise _Cancelled
         scores = result.scores().replace({np.nan: None}).to_dict(orient="records")
         payload = {"origins": spec.origins, "horizon": spec.horizon, "seed": spec.seed,
                    "coverage": spec.coverage, "scores": scores}

@@ -38,7 +38,10 @@ class StoredModel(Base):
 
     ``posterior`` holds the conjugate posterior's arrays as raw little-endian float64,
     zlib-compressed; ``posterior_meta`` their shapes and the SHA-256 of the raw bytes
-    (never pickle). ``version`` changes whenever the model changes (ETags).
+    (never pickle). Models with the independent prior also keep their Gibbs draws in
+    ``draws`` (raw little-endian float32; ``draws_meta``: shapes, sampler settings,
+    SHA-256) and the chains' convergence summary in ``diagnostics``; all three are null
+    for exact samplers. ``version`` changes whenever the model changes (ETags).
     """
 
     __tablename__ = "models"
@@ -57,6 +60,9 @@ class StoredModel(Base):
     log_ml: Mapped[float | None] = mapped_column(Float)
     posterior: Mapped[bytes] = mapped_column(LargeBinary)
     posterior_meta: Mapped[dict] = mapped_column(JSON)
+    draws: Mapped[bytes | None] = mapped_column(LargeBinary, nullable=True)
+    draws_meta: Mapped[dict | None] = mapped_column(JSON, nullable=True)
+    diagnostics: Mapped[dict | None] = mapped_column(JSON, nullable=True)
 
     # optimistic concurrency: every UPDATE checks and bumps the version, so two updates
     # racing on one model cannot both win (the loser gets StaleDataError -> 409)

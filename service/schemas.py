@@ -10,7 +10,7 @@ from __future__ import annotations
 import datetime as dt
 from typing import Annotated, Literal
 
-from pydantic import BaseModel, ConfigDict, Field, field_validator
+from pydantic import BaseModel, ConfigDict, Field, field_validator, model_validator
 
 from priors.transforms import TRANSFORMS
 
@@ -48,17 +48,39 @@ _DEMO = {
 }
 
 
+Seed = Annotated[int | None, Field(ge=0, lt=2**63)]
+_SEED_HELP = "default: a fresh seed"
+
+
 class ModelSettings(BaseModel):
-    """How the model is built: lags, prior, transforms, deterministic terms."""
+    """How the model is built: lags, prior, transforms, deterministic terms, and for the
+    independent prior the Gibbs sampler's settings."""
 
     model_config = ConfigDict(extra="forbid")
 
     lags: int | Literal["auto"] = Field(
         "auto", description="lag order, or 'auto' to choose it by marginal likelihood")
     max_lags: int | None = Field(None, ge=1, le=13, description="largest order for 'auto'")
-    prior: Literal["minnesota", "flat"] = "minnesota"
+    prior: Literal["minnesota", "flat", "independent"] = Field(
+        "minnesota", description="'minnesota': natural-conjugate, exact posterior; "
+        "'independent': the full Minnesota pattern (own and other series' lags shrunk "
+        "separately, see cross), sampled by Gibbs; 'flat': OLS-like")
     tightness: Positive | Literal["auto"] = Field(
         "auto", description="prior s.d. of own first lags, or 'auto' (marginal likelihood)")
+    cross: float = Field(
+        1.0, gt=0, le=10, allow_inf_nan=False,
+        description="other series' lags get prior s.d. cross x own lags (e.g. 0.5: how "
+        "many inner tubes sell says less about tyres than tyre sales do); independent "
+        "prior only")
+    chains: int = Field(4, ge=1, le=16, description="Gibbs chains (independent prior)")
+    burn: int = Field(500, ge=0, le=20_000,
+                      description="sweeps discarded per chain (independent prior)")
+    keep: int = Field(1000, ge=10, le=20_000,
+                      description="draws kept per chain (independent prior)")
+    thin: int = Field(1, ge=1, le=100,
+                      description="sweeps per kept draw (independent prior)")
+    seed: Seed = Field(None, description="seed of the Gibbs chains (independent prior); "
+                       f"{_SEED_HELP}, recorded in the stored model's settings")
     decay: float = Field(1.0, ge=0, le=10, description="prior s.d. of lag l ~ 1 / l**decay")
     sum_coef: Positive | Literal["auto"] | None = Field(
         None, description="sum-of-coefficients weight (smaller = tighter); null = off")
@@ -87,6 +109,13 @@ class ModelSettings(BaseModel):
             return {k.strip(): t.strip() for k, _, t in pairs}
         return v
 
+    @model_validator(mode="after")
+    def _cross_needs_independent(self) -> ModelSettings:
+        if self.cross != 1.0 and self.prior != "independent":
+            raise ValueError(f"cross = {self.cross:g} needs prior 'independent': the "
+                             f"{self.prior} prior shrinks own and other series' lags alike")
+        return self
+
 
 class OutputSettings(BaseModel):
     """What to simulate and report: horizon, draws, quantiles, seed."""
@@ -97,7 +126,7 @@ class OutputSettings(BaseModel):
     quantiles: list[Annotated[float, Field(gt=0, lt=1)]] = Field(
         [0.05, 0.5, 0.95], min_length=1, max_length=25)
     draws: int = Field(2000, ge=1, le=10_000, description="simulated paths")
-    seed: int | None = Field(None, ge=0, lt=2**63, description="default: a fresh seed")
+    seed: Seed = Field(None, description=_SEED_HELP)
     cumulative: Flag = Field(False, description="running totals over steps 1..horizon")
     reject_explosive: Flag = False
     lead_time: int | None = Field(
@@ -116,6 +145,9 @@ class ForecastSettings(ModelSettings, OutputSettings):
     """Model and output settings of a one-shot forecast (query parameters for CSV)."""
 
     model_config = ConfigDict(extra="forbid")
+
+    seed: Seed = Field(None, description="seed of the forecast draws and of the Gibbs "
+                       f"chains (independent prior); {_SEED_HELP}")
 
 
 class SeriesData(BaseModel):
@@ -149,6 +181,10 @@ class ModelCreate(SeriesData, ModelSettings):
     model_config = ConfigDict(extra="forbid", json_schema_extra={"examples": [{
         "name": "bike parts, monthly", "series": _DEMO, "start": "2016-01-01",
         "frequency": "MS", "seasonal": True,
+    }, {
+        "name": "bike parts, cross-effects shrunk", "series": _DEMO, "start": "2016-01-01",
+        "frequency": "MS", "lags": 2, "prior": "independent", "cross": 0.5, "chains": 4,
+        "burn": 500, "keep": 1000, "seed": 7,
     }]})
 
     name: str | None = Field(None, max_length=200, description="a label for people")
@@ -169,6 +205,9 @@ class BacktestCreate(SeriesData, ModelSettings):
         "series": _DEMO, "start": "2016-01-01", "frequency": "MS", "lags": 1,
         "origins": 6, "horizon": 3, "draws": 500, "period": 12, "seed": 1}]})
 
+    prior: Literal["minnesota", "flat"] = Field(
+        "minnesota", description="'minnesota' or 'flat'; 'independent' (a Gibbs run per "
+        "origin) is not available in backtests yet")
     origins: int = Field(24, ge=1, le=200, description="forecast origins (the last ones)")
     horizon: int = Field(12, ge=1, le=104, description="steps ahead")
     window: int | None = Field(None, ge=10, description="fit on the last N periods only")
@@ -252,6 +291,10 @@ class ModelPublic(BaseModel):
     log_marginal_likelihood: float | None
     coefficients: list[Coefficient]
     sigma: dict[str, object]
+    diagnostics: dict[str, object] | None = Field(
+        description="Gibbs convergence (independent prior, two or more chains): "
+        "worst_r_hat, min_ess_bulk, min_ess_tail, ok, messages (what failed and what to "
+        "do) and thresholds; null for exact samplers")
 
 
 class ModelSummary(BaseModel):

@@ -17,6 +17,8 @@ from .orm import IdempotencyRecord, StoredModel
 from .serialization import (
     data_from_dict,
     data_to_dict,
+    draws_from_blob,
+    draws_to_blob,
     hyper_from_dict,
     hyper_to_dict,
     posterior_from_blob,
@@ -31,16 +33,28 @@ class BadCursor(ValueError):
     """A pagination cursor this server did not issue."""
 
 
+def _sampled(model: FanfoldVAR) -> dict[str, Any]:
+    """The Gibbs draws and the convergence summary of ``model`` as column values (all
+    None for exact samplers; the diagnostics take seconds for large models)."""
+    if model.sampler_ is None:
+        return {"draws": None, "draws_meta": None, "diagnostics": None}
+    blob, meta = draws_to_blob(model.sampler_)
+    report = model.convergence()
+    return {"draws": blob, "draws_meta": meta,
+            "diagnostics": None if report is None else report.summary()}
+
+
 def save_model(*, session: Session, tenant: str, name: str | None, params: dict[str, Any],
                frame: Any, model: FanfoldVAR, commit: bool = True) -> StoredModel:
     """Store a fitted model; visible only once committed (``commit=False`` leaves the
-    commit to the caller, to write more in the same transaction)."""
+    commit to the caller, to write more in the same transaction). ``params`` are the
+    stored settings (:func:`service.engine.stored_settings`)."""
     blob, meta = posterior_to_blob(model.posterior_)
     row = StoredModel(
         id=str(uuid.uuid4()), tenant_id=tenant, name=name, status="ready",
         settings=params, data=data_to_dict(frame), lags=int(model.lags_),
         hyperparameters=hyper_to_dict(model.hyper_), log_ml=model.log_ml_,
-        posterior=blob, posterior_meta=meta,
+        posterior=blob, posterior_meta=meta, **_sampled(model),
     )
     session.add(row)
     if commit:
@@ -96,24 +110,36 @@ def list_models(*, session: Session, tenant: str, limit: int,
 
 
 def load_fitted(row: StoredModel) -> FanfoldVAR:
-    """The stored model, ready to forecast: no tuning, no refit."""
+    """The stored model, ready to forecast: no tuning, no refit (Gibbs draws as stored)."""
+    params = {k: v for k, v in row.settings.items() if k != "seed"}
+    draws = None if row.draws is None else draws_from_blob(row.draws, row.draws_meta or {})
     return FanfoldVAR.restore(
-        row.settings, data_from_dict(row.data), lags=row.lags,
+        params, data_from_dict(row.data), lags=row.lags,
         hyper=hyper_from_dict(row.hyperparameters),
         posterior=posterior_from_blob(row.posterior, row.posterior_meta),
+        draws=draws,
     )
 
 
-def replace_fitted(*, session: Session, row: StoredModel, frame: Any,
-                   model: FanfoldVAR) -> StoredModel:
-    """Store an updated model in place: new data and posterior; the version goes up by one
-    (checked, see :class:`service.orm.StoredModel`)."""
+def replace_fitted(*, session: Session, row: StoredModel, frame: Any, model: FanfoldVAR,
+                   seed: int | None = None, commit: bool = True) -> StoredModel:
+    """Store an updated model in place: new data, posterior and (independent prior) draws,
+    diagnostics and the ``seed`` that produced them; the version goes up by one (checked,
+    see :class:`service.orm.StoredModel`). ``commit=False`` leaves the commit to the
+    caller."""
     blob, meta = posterior_to_blob(model.posterior_)
     row.data = data_to_dict(frame)
     row.posterior, row.posterior_meta = blob, meta
     row.log_ml = model.log_ml_
+    for column, value in _sampled(model).items():
+        setattr(row, column, value)
+    if seed is not None:
+        row.settings = {**row.settings, "seed": seed}
     row.updated_at = dt.datetime.now(dt.UTC)
-    session.commit()
+    if commit:
+        session.commit()
+    else:
+        session.flush()
     return row
 
 

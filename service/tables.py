@@ -53,9 +53,25 @@ def _hyper_line(hyper: dict[str, float | None]) -> str:
     )
 
 
-def _log_ml_line(log_ml: float | None) -> str:
-    shown = "n/a (flat prior)" if log_ml is None else f"{log_ml:.2f}"
+def _log_ml_line(log_ml: float | None, hyper: dict[str, float | None]) -> str:
+    if log_ml is not None:
+        shown = f"{log_ml:.2f}"
+    elif all(v is None for v in hyper.values()):
+        shown = "n/a (flat prior)"
+    else:
+        shown = "n/a (no closed form with the independent prior)"
     return f"log marginal likelihood: {shown}"
+
+
+def _convergence_lines(diagnostics: dict[str, Any]) -> list[str]:
+    """The Gibbs chains' convergence summary and, if they fail a threshold, why."""
+    limits = diagnostics["thresholds"]
+    out = [f"convergence: worst R-hat {_g(diagnostics['worst_r_hat'])} (at most "
+           f"{_g(limits['rhat_max'])}), min ESS bulk {_g(diagnostics['min_ess_bulk'])}, "
+           f"tail {_g(diagnostics['min_ess_tail'])} (at least {_g(limits['ess_min'])}): "
+           + ("ok" if diagnostics["ok"] else "NOT converged")]
+    out += [f"do not trust this fit: {message}" for message in diagnostics["messages"]]
+    return out
 
 
 def format_forecast(payload: dict[str, Any]) -> str:
@@ -66,7 +82,7 @@ def format_forecast(payload: dict[str, Any]) -> str:
         f"VAR({payload['lags']}), {payload['draws']} draws, seed {payload['seed']} "
         f"(rerun with --seed {payload['seed']} to reproduce)",
         _hyper_line(payload["hyperparameters"]),
-        _log_ml_line(payload["log_marginal_likelihood"]),
+        _log_ml_line(payload["log_marginal_likelihood"], payload["hyperparameters"]),
     ]
     if payload.get("cumulative"):
         out.append("values are running totals from the first forecast step")
@@ -110,19 +126,30 @@ def _lag_search(search: list[dict[str, Any]], chosen: int) -> list[str]:
             render_table(header, rows)]
 
 
-def format_fit(payload: dict[str, Any], *, prior: str, level: float, summary: bool) -> str:
-    """The fitted model; with ``summary`` also lag search, coefficients and Sigma."""
+def format_fit(payload: dict[str, Any], *, prior: str, level: float, summary: bool,
+               sampler: str | None = None) -> str:
+    """The fitted model; with ``summary`` also lag search, coefficients, Sigma and (Gibbs
+    fits, ``payload["diagnostics"]``) the chains' convergence, whose warnings show even
+    without ``summary``. ``sampler`` describes a Gibbs run, e.g. "4 chains x 1000 draws"."""
     span = payload["span"]
     out = [
-        f"Fanfold fit: VAR({payload['lags']}), {prior} prior",
+        f"Fanfold fit: VAR({payload['lags']}), {prior} prior"
+        + (f" (Gibbs sampler: {sampler})" if sampler else ""),
         f"estimation sample: {span['start']} to {span['end']} "
         f"({span['observations']} observations)",
         _hyper_line(payload["hyperparameters"]),
-        _log_ml_line(payload["log_marginal_likelihood"]),
+        _log_ml_line(payload["log_marginal_likelihood"], payload["hyperparameters"]),
     ]
+    diagnostics = payload.get("diagnostics")
     if not summary:
-        out.append("(add --summary for coefficients and the error covariance)")
+        if diagnostics is not None and not diagnostics["ok"]:
+            out += [f"do not trust this fit: {m}" for m in diagnostics["messages"]]
+        out.append("(add --summary for coefficients, the error covariance and the "
+                   "convergence of the chains)" if sampler else
+                   "(add --summary for coefficients and the error covariance)")
         return "\n".join(out)
+    if diagnostics is not None:
+        out += ["", *_convergence_lines(diagnostics)]
     if payload["lag_search"]:
         out += ["", *_lag_search(payload["lag_search"], payload["lags"])]
     out += ["", f"coefficients (posterior mean, sd and {100 * level:g}% credible interval):"]

@@ -36,8 +36,8 @@ def test_forecast_json_layout(run) -> None:
                         "seed", "draws", "horizon",
                         "rejected_explosive_share", "cumulative", "lead_time_totals"}
     assert (out["lags"], out["seed"], out["draws"], out["horizon"]) == (2, 1, 200, 3)
-    assert set(out["hyperparameters"]) == {"tightness", "decay", "det_scale", "sum_coef",
-                                           "initial"}
+    assert set(out["hyperparameters"]) == {"tightness", "cross", "decay", "det_scale",
+                                           "sum_coef", "initial"}
     assert isinstance(out["log_marginal_likelihood"], float)
     assert list(out["forecasts"]) == NAMES
     for fc in out["forecasts"].values():
@@ -117,7 +117,8 @@ def test_fit_json_layout_with_lag_search(run) -> None:
     assert code == 0, err
     fit = json.loads(out)
     assert set(fit) == {"lags", "hyperparameters", "log_marginal_likelihood", "lag_search",
-                        "coefficients", "sigma", "span", "spectral_radius"}
+                        "coefficients", "sigma", "span", "spectral_radius", "diagnostics"}
+    assert fit["diagnostics"] is None  # exact sampler: nothing to diagnose
     assert [c["lags"] for c in fit["lag_search"]] == [1, 2, 3]
     assert set(fit["lag_search"][0]) == {"lags", "score", "tightness", "criterion"}
     best = max(fit["lag_search"], key=lambda c: c["score"])
@@ -249,6 +250,11 @@ def test_missing_file_exit_1(run, tmp_path: Path) -> None:
     ["forecast", DEMO, "--horizon", "2", "--seed", "-1"],
     ["forecast", DEMO, "--horizon", "2", "--no-such-option"],
     ["fit", DEMO, "--level", "1"],
+    ["fit", DEMO, "--prior", "independent", "--chains", "0"],
+    ["fit", DEMO, "--prior", "independent", "--burn", "-1"],
+    ["fit", DEMO, "--prior", "independent", "--cross", "0"],
+    ["fit", DEMO, "--lags", "1", "--cross", "0.5"],  # cross needs --prior independent
+    ["backtest", DEMO, "--prior", "independent"],
     ["predict", DEMO],
 ])
 def test_bad_options_exit_2(run, args: list[object]) -> None:
@@ -288,7 +294,9 @@ def test_help_lists_commands_and_version(run) -> None:
     ("forecast", ["default: 2000", "default: 0.05,0.5,0.95", "default: auto",
                   "default: minnesota", "default: none", "default: a fresh random seed",
                   "default: keep it", "default: False", "default: by data frequency"]),
-    ("fit", ["default: 0.9", "default: auto", "default: minnesota", "default: none"]),
+    ("fit", ["default: 0.9", "default: auto", "default: minnesota", "default: none",
+             "--cross X", "(default: 1.0)", "--chains N", "(default: 4)", "--burn N",
+             "(default: 500)", "--keep N", "(default: 1000)", "--thin N", "--workers N"]),
 ])
 def test_command_help_states_defaults(run, command: str, defaults: list[str]) -> None:
     code, out, _ = run(command, "--help")
@@ -402,3 +410,60 @@ def test_forecast_lead_time_totals(capsys):
     assert tyres["mean"] == pytest.approx(sum(out["forecasts"]["tyres"]["mean"][:3]))
     assert main(["forecast", str(DEMO), "--horizon", "2", "--lead-time", "3"]) == 2
     assert "longer than the horizon" in capsys.readouterr().err
+
+
+# ---------------------------------------------------------------------- independent prior
+GIBBS = ["--prior", "independent", "--lags", 2, "--chains", 2, "--burn", 50, "--keep", 100]
+
+
+def test_fit_independent_summary_shows_the_convergence(run) -> None:
+    code, out, err = run("fit", DEMO, *GIBBS, "--cross", "0.5", "--seed", 3, "--summary")
+    assert code == 0, err
+    assert out.startswith("Fanfold fit: VAR(2), independent prior (Gibbs sampler: 2 chain(s) "
+                          "x 100 draws after 50 burn-in sweeps, thin 1, seed 3)")
+    assert "cross=0.5" in out and "no closed form with the independent prior" in out
+    line = next(x for x in out.splitlines() if x.startswith("convergence:"))
+    assert "worst R-hat" in line and "min ESS bulk" in line and "tail" in line
+    assert line.endswith("NOT converged")  # 200 draws: too few for an ESS of 400
+    assert "do not trust this fit: Bulk ESS below 400" in out
+    assert "equation tyres" in out and "Sigma" in out
+    code, short, _ = run("fit", DEMO, *GIBBS, "--seed", 3)
+    assert code == 0 and "do not trust this fit" in short and "equation" not in short
+
+
+def test_fit_independent_json_includes_diagnostics_and_the_seed_reproduces(run) -> None:
+    code, out, err = run("fit", DEMO, *GIBBS, "--seed", 3, "--json")
+    assert code == 0, err
+    fit = json.loads(out)
+    assert set(fit["diagnostics"]) == {"worst_r_hat", "min_ess_bulk", "min_ess_tail", "ok",
+                                       "messages", "thresholds"}
+    assert fit["diagnostics"]["ok"] is False and fit["log_marginal_likelihood"] is None
+    assert run("fit", DEMO, *GIBBS, "--seed", 3, "--json")[1] == out
+    other = json.loads(run("fit", DEMO, *GIBBS, "--seed", 4, "--json")[1])
+    assert other["coefficients"] != fit["coefficients"]
+    # the same draws with the chains split over two processes, to rounding
+    code, split, err = run("fit", DEMO, *GIBBS, "--seed", 3, "--workers", 2, "--json")
+    assert code == 0, err
+    np.testing.assert_allclose([c["mean"] for c in json.loads(split)["coefficients"]],
+                               [c["mean"] for c in fit["coefficients"]], rtol=1e-6)
+
+
+def test_forecast_independent_fresh_seed_reproduces_chains_and_paths(run) -> None:
+    args = ("forecast", DEMO, "--horizon", 2, "--draws", 100, *GIBBS, "--json")
+    code, out, err = run(*args)
+    assert code == 0, err
+    drawn = json.loads(out)
+    assert drawn["log_marginal_likelihood"] is None
+    assert json.loads(run(*args, "--seed", drawn["seed"])[1]) == drawn
+
+
+def test_gibbs_progress_is_drawn_on_a_terminal(run, monkeypatch) -> None:
+    import service.cli as cli
+
+    code, _, err = run("fit", DEMO, *GIBBS)
+    assert code == 0 and err == ""  # not a terminal: no bar
+    monkeypatch.setattr(cli, "_interactive", lambda: True)
+    code, _, err = run("fit", DEMO, *GIBBS)
+    assert code == 0
+    assert "\rfanfold: Gibbs sampler, 2 chain(s) [" in err
+    assert err.endswith("] 300/300 chain sweeps\n")  # 2 chains x (50 + 100) sweeps

@@ -85,3 +85,30 @@ def test_concurrent_claims_take_each_job_once(pg_url, demo_body):
         for t in threads:
             t.join(60)
         assert len(claims) == 6 == len(set(claims))
+
+
+def test_independent_prior_draws_and_update_job_on_postgres(pg_url, demo):
+    part = demo[["tyres", "chains"]]
+
+    def series(rows):
+        return {"series": {c: rows[c].astype(float).tolist() for c in rows},
+                "start": rows.index[0].date().isoformat(), "frequency": "MS"}
+
+    gibbs = {"lags": 2, "prior": "independent", "chains": 2, "burn": 50, "keep": 100,
+             "seed": 3}
+    with TestClient(create_app(Settings(database_url=pg_url))) as c:
+        created = c.post("/v1/models", json={**series(part.iloc[:100]), **gibbs})
+        assert created.status_code == 201, created.text
+        assert created.json()["diagnostics"]["thresholds"]["rhat_max"] == 1.01
+        model_url = created.headers["location"]
+        assert c.get(model_url).json() == created.json()  # draws back from bytea, exactly
+        ask = {"horizon": 3, "seed": 1, "draws": 200}
+        assert c.post(f"{model_url}/forecasts", json=ask).status_code == 200
+        r = c.post(f"{model_url}/observations", json=series(part.iloc[100:]))
+        assert r.status_code == 202
+        deadline = time.monotonic() + 60
+        while (job := c.get(r.headers["location"]).json())["status"] in ("queued", "running"):
+            assert time.monotonic() < deadline
+            time.sleep(0.05)
+        assert job["status"] == "succeeded", job
+        assert c.get(model_url).json()["version"] == 2

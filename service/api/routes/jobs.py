@@ -52,7 +52,8 @@ def read_job(job_id: uuid.UUID, session: SessionDep, tenant: TenantDep) -> JSONR
 @router.delete("/{job_id}", response_model=JobPublic, status_code=202,
                responses={**_NOT_FOUND, 409: {"description": "the job already finished",
                                               "content": {PROBLEM_JSON: {}}}},
-               summary="Cancel a job (queued: at once; running: it stops before storing)")
+               summary="Cancel a job (queued: at once; running: a Gibbs fit stops at its "
+                       "next progress report, any job before storing)")
 def delete_job(job_id: uuid.UUID, request: Request, session: SessionDep,
                tenant: TenantDep) -> JSONResponse:
     job = _job_or_404(session, tenant, job_id)

@@ -7,7 +7,6 @@ import time
 import uuid
 from typing import Annotated, Any
 
-import pandas as pd
 from fastapi import APIRouter, Header, Query, Request, Response
 from fastapi.responses import JSONResponse
 from sqlalchemy.exc import IntegrityError
@@ -15,13 +14,15 @@ from starlette.exceptions import HTTPException
 
 from priors import FanfoldVAR
 
+from ...engine import append_observations as append_to_model
 from ...engine import (
     check_model_limits,
     fan_chart,
     fit_model,
     forecast_answer,
     frame_from_spec,
-    model_params,
+    gibbs_work,
+    stored_settings,
 )
 from ...errors import PROBLEM_JSON, problem
 from ...jobs import submit_job
@@ -62,6 +63,7 @@ from .jobs import job_public
 
 router = APIRouter(prefix="/v1/models", tags=["models"])
 
+
 def _public(row: StoredModel, model: FanfoldVAR | None = None) -> dict[str, Any]:
     """The model resource; ``model`` is the fitted model when at hand (else restored)."""
     model = load_fitted(row) if model is None else model
@@ -74,6 +76,7 @@ def _public(row: StoredModel, model: FanfoldVAR | None = None) -> dict[str, Any]
         "hyperparameters": summary["hyperparameters"],
         "log_marginal_likelihood": summary["log_marginal_likelihood"],
         "coefficients": summary["coefficients"], "sigma": summary["sigma"],
+        "diagnostics": row.diagnostics,
     }
 
 
@@ -82,9 +85,13 @@ def _public(row: StoredModel, model: FanfoldVAR | None = None) -> dict[str, Any]
                         "queued as a job (large fit, or 'Prefer: respond-async'); poll "
                         "Location"}},
              summary="Fit a model to the series and store it",
-             description="Small fits answer 201 with the model. Large fits, or any fit sent "
-                         "with 'Prefer: respond-async', answer 202 with a job to poll at "
-                         "Location. With an Idempotency-Key header, a retry of the same "
+             description="Small fits answer 201 with the model. Large fits (many "
+                         "coefficients, or a long Gibbs run with prior 'independent'), or "
+                         "any fit sent with 'Prefer: respond-async', answer 202 with a job "
+                         "to poll at Location; its progress follows the Gibbs sweeps. With "
+                         "prior 'independent' the model keeps its draws, the seed that "
+                         "produced them (in settings) and the chains' convergence "
+                         "diagnostics. With an Idempotency-Key header, a retry of the same "
                          "request gets the original answer (and creates nothing new); the "
                          "same key with a different body is a 422.")
 async def create_model(
@@ -118,13 +125,14 @@ async def create_model(
             status, out, location = 202, job_public(job), f"/v1/jobs/{job.id}"
         else:
             started = time.perf_counter()
-            model = fit_model(body, frame, settings)
+            fitted = fit_model(body, frame, settings)
             request.app.state.metrics.fit.observe(time.perf_counter() - started)
             row = save_model(session=session, tenant=tenant, name=body.name,
-                             params=model_params(body), frame=frame, model=model,
-                             commit=False)
+                             params=stored_settings(body, fitted.seed), frame=frame,
+                             model=fitted.model, commit=False)
             status = 201
-            out = ModelPublic.model_validate(_public(row, model)).model_dump(mode="json")
+            out = ModelPublic.model_validate(_public(row, fitted.model)).model_dump(
+                mode="json")
             location = f"/v1/models/{row.id}"
         if idempotency_key:
             remember_idempotent(session=session, tenant=tenant, key=idempotency_key,
@@ -148,10 +156,12 @@ async def create_model(
 
 
 def _large(spec: ModelCreate, frame: Any, settings: Any) -> bool:
-    """Whether a fit is big enough to run as a job (coefficients of the largest order)."""
+    """Whether a fit is big enough to run as a job (coefficients of the largest order, or
+    the Gibbs sampler's work)."""
     n = frame.shape[1]
     p = spec.lags if isinstance(spec.lags, int) else (spec.max_lags or 13)
-    return n * (n * p + 1) > settings.sync_max_coefficients
+    return (n * (n * p + 1) > settings.sync_max_coefficients
+            or gibbs_work(spec, n)[0] > settings.sync_max_gibbs_work)
 
 
 @router.get("", response_model=ModelsPublic, summary="List stored models (oldest first)",
@@ -220,24 +230,39 @@ def fan_chart_data(
 
 
 @router.post("/{model_id}/observations", response_model=ModelPublic,
-             responses={**NOT_FOUND, **INVALID},
-             summary="Append new periods; the posterior is updated exactly, no refit")
+             responses={**NOT_FOUND, **INVALID, 202: {
+                 "model": JobPublic, "description": "prior 'independent': queued as a job "
+                 "that reruns the Gibbs chains on all the data and then replaces the model "
+                 "(version + 1); poll Location"}},
+             summary="Append new periods to a stored model",
+             description="Conjugate priors ('minnesota', 'flat'): the posterior is updated "
+                         "exactly, no refit, and the answer is the updated model (200). "
+                         "Prior 'independent' has no exact update: the answer is 202 with "
+                         "a job (kind 'update_model') that reruns the Gibbs chains on all "
+                         "the data from the model's stored seed and then replaces the model "
+                         "(version + 1); if the model changes before the job runs, the job "
+                         "fails with a 409 problem. Either way the lags and hyperparameters "
+                         "stay as fitted.")
 async def append_observations(model_id: uuid.UUID, body: ObservationsCreate,
-                              session: SessionDep, settings: SettingsDep,
-                              tenant: TenantDep) -> dict[str, Any]:
+                              request: Request, session: SessionDep,
+                              settings: SettingsDep, tenant: TenantDep) -> Any:
     row = row_or_404(session, tenant, model_id)
 
-    def work() -> dict[str, Any]:
-        model = load_fitted(row)
+    def work() -> Any:
         new = frame_from_spec(body)
         old = data_from_dict(row.data)
         if list(new.columns) != list(old.columns):
             raise HTTPException(422, "send every series of the model, in its order: "
                                      + ", ".join(map(str, old.columns)))
-        grown = model.append(new)
-        known = 0 if model.ragged_ is None else model.ragged_.values.shape[0]
-        kept = old.iloc[: old.shape[0] - known]  # incomplete last periods are replaced
-        replace_fitted(session=session, row=row, frame=pd.concat([kept, new]), model=grown)
-        return _public(row, grown)
+        if row.settings.get("prior") == "independent":
+            job = submit_job(session=session, tenant=tenant, kind="update_model", spec=body,
+                             max_attempts=settings.job_max_attempts,
+                             target={"model_id": row.id, "version": row.version})
+            request.app.state.jobs.wake()
+            return JSONResponse(job_public(job), status_code=202,
+                                headers={"Location": f"/v1/jobs/{job.id}", "Retry-After": "1"})
+        fitted, frame = append_to_model(load_fitted(row), old, new)
+        replace_fitted(session=session, row=row, frame=frame, model=fitted.model)
+        return _public(row, fitted.model)
 
     return await timed(settings, work)

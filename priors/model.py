@@ -243,6 +243,13 @@ class FanfoldVAR:
                 "prior shrinks own and other series' lags alike (cross = 1)")
         self._gibbs_settings()  # validates chains, burn, keep, thin, workers
 
+    @property
+    def uses_gibbs(self) -> bool:
+        """Whether the settings need the Gibbs sampler (independent prior or stochastic
+        volatility): then ``fit`` needs an ``rng``, draws are stored, and new data mean
+        running the chains again."""
+        return self.prior == "independent" or self.volatility == "common"
+
     def _gibbs_settings(self) -> GibbsSettings:
         return GibbsSettings(chains=self.chains, burn=self.burn, keep=self.keep,
                              thin=self.thin, workers=self.workers)
@@ -506,11 +513,13 @@ class FanfoldVAR:
         model.posterior_ = posterior
         model.log_ml_ = posterior.log_ml
         model.sampler_ = None
-        if model.prior == "independent":
+        if model.uses_gibbs:
             if draws is None:
-                raise SpecificationError("a model with prior='independent' needs its stored "
-                                         "Gibbs draws to be restored")
-            model.prior_ = independent_minnesota_prior(design, hyper, prior_mean)
+                raise SpecificationError("a model sampled by Gibbs (prior='independent' or "
+                                         "stochastic volatility) needs its stored Gibbs "
+                                         "draws to be restored")
+            if model.prior == "independent":
+                model.prior_ = independent_minnesota_prior(design, hyper, prior_mean)
             model.sampler_ = draws
             model.log_ml_ = None
         return model
@@ -529,8 +538,8 @@ class FanfoldVAR:
         posterior equals a full refit on all the data under that same prior. The new
         rows must continue the complete data: same series, following dates. Incomplete
         last periods (a ragged edge) are replaced by the new rows, which may themselves
-        end incomplete. A ``prior="independent"`` model has no exact update: its Gibbs
-        chains run again on all the data (pass ``rng``).
+        end incomplete. A model sampled by Gibbs (:attr:`uses_gibbs`) has no exact update:
+        its chains run again on all the data (pass ``rng``).
         """
         self._check_fitted()
         old = self.series_
@@ -578,6 +587,8 @@ class FanfoldVAR:
         if self.prior == "independent":  # no exact update: the chains run again
             model.hyper_ = dataclasses.replace(self.hyper_, cross=1.0)
             model._run_gibbs(rng, progress)
+        elif self.volatility == "common":
+            model._run_sv(rng, progress)
         return model
 
     def _level_index(self) -> pd.DatetimeIndex:

@@ -10,6 +10,7 @@ cannot be read or used (any other :class:`priors.PriorsError`).
 from __future__ import annotations
 
 import argparse
+import datetime as dt
 import json
 import math
 import os
@@ -154,6 +155,17 @@ def _candidate(text: str) -> tuple[str, dict[str, object]]:
     return name.strip(), settings
 
 
+def _outlier(text: str) -> tuple[str, int]:
+    date, sep, periods = text.rpartition(":")
+    try:
+        if not sep or not date:
+            raise ValueError
+        return (dt.date.fromisoformat(date).isoformat(), int(periods))
+    except ValueError:
+        raise argparse.ArgumentTypeError(
+            f"expected DATE:PERIODS such as 2020-04-01:3; got {text!r}") from None
+
+
 def _lags(text: str) -> int | str:
     return "auto" if text == "auto" else _positive_int(text)
 
@@ -221,10 +233,22 @@ def _model_options() -> argparse.ArgumentParser:
     g.add_argument("--trend", action="store_true", help="add a linear time trend")
     g.add_argument("--no-constant", dest="constant", action="store_false",
                    help="leave out the constant (default: keep it)")
-    gibbs = parent.add_argument_group("Gibbs sampler (--prior independent)")
+    gibbs = parent.add_argument_group(
+        "Gibbs sampler (--prior independent or --volatility common)")
     gibbs.add_argument("--cross", type=_number, default=1.0, metavar="X",
                        help="prior s.d. of other series' lags as a multiple of own lags' "
                             "(below 1: cross-effects shrunk harder)")
+    gibbs.add_argument("--volatility", choices=("constant", "common"), default="constant",
+                       help="common: one stochastic volatility for all series (calm and "
+                            "turbulent periods), sampled by Gibbs; minnesota prior only")
+    gibbs.add_argument("--outlier", dest="outliers", action="append", type=_outlier,
+                       metavar="DATE:PERIODS",
+                       help="a known-date period (promotion, stock-out, supply shock) whose "
+                            "shocks get their own estimated scale, e.g. 2020-04-01:3; "
+                            "repeatable; --prior independent only (default: none)")
+    gibbs.add_argument("--sample-hyper", action="store_true",
+                       help="sample tightness and cross tightness in the Gibbs loop "
+                            "(--prior independent; slower)")
     gibbs.add_argument("--chains", type=_positive_int, default=4, metavar="N",
                        help="chains (two or more for convergence diagnostics)")
     gibbs.add_argument("--burn", type=_integer(0), default=500, metavar="N",
@@ -407,10 +431,20 @@ def _model_params(args: argparse.Namespace) -> dict[str, Any]:
               "transforms": args.transform}
     if args.prior == "independent" or args.cross != 1.0:
         params["cross"] = args.cross
-    if args.prior == "independent":
+    if args.outliers:
+        params["outliers"] = args.outliers
+    if args.sample_hyper:
+        params["sample_hyper"] = True
+    if args.volatility != "constant":
+        params["volatility"] = args.volatility
+    if _uses_gibbs(args):
         params.update(chains=args.chains, burn=args.burn, keep=args.keep, thin=args.thin,
                       workers=args.workers)
     return params
+
+
+def _uses_gibbs(args: argparse.Namespace) -> bool:
+    return args.prior == "independent" or args.volatility != "constant"
 
 
 def _fitted(args: argparse.Namespace) -> FanfoldVAR:
@@ -419,7 +453,7 @@ def _fitted(args: argparse.Namespace) -> FanfoldVAR:
     printed with the output reproduces the fit as well as the draws."""
     model = FanfoldVAR(**_model_params(args))
     data = read_data(args.data)
-    if args.prior != "independent":
+    if not _uses_gibbs(args):
         return model.fit(data)
     if getattr(args, "seed", None) is None:
         args.seed = secrets.randbits(32)
@@ -478,9 +512,10 @@ def _fit(args: argparse.Namespace) -> str:
 def _backtest(args: argparse.Namespace) -> str:
     from priors.backtest import rolling_origin
 
-    if args.prior == "independent":
-        raise UsageError("backtest does not support --prior independent yet (a Gibbs run "
-                         "per origin); backtest --prior minnesota instead")
+    if _uses_gibbs(args):
+        raise UsageError("backtest does not support Gibbs-sampled models yet (--prior "
+                         "independent, --volatility common: a Gibbs run per origin); "
+                         "backtest --prior minnesota with constant volatility instead")
     frame = read_data(args.data)
     params = _model_params(args)
     benchmarks = ("ols_var", "random_walk") + (("seasonal_naive",) if args.period else ())

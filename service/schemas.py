@@ -52,6 +52,15 @@ Seed = Annotated[int | None, Field(ge=0, lt=2**63)]
 _SEED_HELP = "default: a fresh seed"
 
 
+class OutlierPeriod(BaseModel):
+    """A known-date period with its own shock scale."""
+
+    model_config = ConfigDict(extra="forbid")
+
+    start: dt.date = Field(description="first period (a date of the data)")
+    periods: int = Field(1, ge=1, le=24, description="number of periods")
+
+
 class ModelSettings(BaseModel):
     """How the model is built: lags, prior, transforms, deterministic terms, and for the
     independent prior the Gibbs sampler's settings."""
@@ -79,8 +88,18 @@ class ModelSettings(BaseModel):
                       description="draws kept per chain (independent prior)")
     thin: int = Field(1, ge=1, le=100,
                       description="sweeps per kept draw (independent prior)")
-    seed: Seed = Field(None, description="seed of the Gibbs chains (independent prior); "
-                       f"{_SEED_HELP}, recorded in the stored model's settings")
+    seed: Seed = Field(None, description="seed of the Gibbs chains (independent prior or "
+                       f"stochastic volatility); {_SEED_HELP}, recorded in the stored "
+                       "model's settings")
+    volatility: Literal["constant", "common"] = Field(
+        "constant", description="'common': one stochastic volatility for all series "
+        "(calm and turbulent periods), sampled by Gibbs; minnesota prior only")
+    outliers: list[OutlierPeriod] | None = Field(
+        None, max_length=50, description="known-date periods (a promotion, a stock-out, a "
+        "supply shock) whose shocks get their own estimated scale; independent prior only")
+    sample_hyper: Flag = Field(
+        False, description="sample tightness and cross tightness inside the Gibbs loop "
+        "(independent prior only; slower)")
     decay: float = Field(1.0, ge=0, le=10, description="prior s.d. of lag l ~ 1 / l**decay")
     sum_coef: Positive | Literal["auto"] | None = Field(
         None, description="sum-of-coefficients weight (smaller = tighter); null = off")
@@ -114,7 +133,18 @@ class ModelSettings(BaseModel):
         if self.cross != 1.0 and self.prior != "independent":
             raise ValueError(f"cross = {self.cross:g} needs prior 'independent': the "
                              f"{self.prior} prior shrinks own and other series' lags alike")
+        if self.outliers and self.prior != "independent":
+            raise ValueError("outliers need prior 'independent' (their scales are sampled)")
+        if self.sample_hyper and self.prior != "independent":
+            raise ValueError("sample_hyper needs prior 'independent'")
+        if self.volatility == "common" and self.prior != "minnesota":
+            raise ValueError("volatility 'common' is built for prior 'minnesota'")
         return self
+
+    @property
+    def uses_gibbs(self) -> bool:
+        """Whether the fit runs the Gibbs sampler (and stores draws)."""
+        return self.prior == "independent" or self.volatility == "common"
 
 
 class OutputSettings(BaseModel):
@@ -216,6 +246,9 @@ class BacktestCreate(SeriesData, ModelSettings):
     period: int | None = Field(None, ge=2, le=366,
                                description="seasonal period for the seasonal-naive benchmark")
     seed: int = Field(0, ge=0, lt=2**63)
+    volatility: Literal["constant"] = Field(
+        "constant", description="'common' (a Gibbs run per origin) is not available in "
+        "backtests yet")
 
 
 class ModelForecastCreate(OutputSettings):

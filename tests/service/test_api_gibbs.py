@@ -319,3 +319,29 @@ def test_planning_answers_come_from_the_stored_draws(client, body):
               "items": [{"series": "tyres", "on_hand": 2000, "service_level": 0.95}]}
     r = client.post(f"{model_url}/replenishment", json=advice)
     assert r.status_code == 200, r.text
+
+
+def test_stochastic_volatility_and_outlier_models_are_stored_and_forecast(client, demo):
+    part = demo.iloc[:72][["tyres", "inner_tubes"]]
+    body = {"series": {c: part[c].astype(float).tolist() for c in part},
+            "start": "2016-01-01", "frequency": "MS", "lags": 1, "chains": 2,
+            "burn": 20, "keep": 40, "seed": 3}
+    sv = client.post("/v1/models", json={**body, "volatility": "common"})
+    assert sv.status_code == 201, sv.text
+    assert sv.json()["settings"]["volatility"] == "common"
+    fc = client.post(f"/v1/models/{sv.json()['id']}/forecasts",
+                     json={"horizon": 2, "draws": 50, "seed": 1})
+    assert fc.status_code == 200, fc.text
+    out = client.post("/v1/models", json={**body, "prior": "independent",
+                                          "outliers": [{"start": "2018-04-01", "periods": 2}]})
+    assert out.status_code == 201, out.text
+    assert out.json()["settings"]["outliers"] == [["2018-04-01", 2]]
+    bad = client.post("/v1/models", json={**body, "outliers": [{"start": "2018-04-01"}]})
+    assert bad.status_code == 422 and "independent" in bad.text
+    bad = client.post("/v1/models", json={**body, "prior": "flat", "volatility": "common"})
+    assert bad.status_code == 422 and "minnesota" in bad.text
+    upd = client.post(f"/v1/models/{sv.json()['id']}/observations",
+                      json={"series": {c: demo[c].iloc[72:75].astype(float).tolist()
+                                       for c in part}, "start": "2022-01-01",
+                            "frequency": "MS"})
+    assert upd.status_code == 202  # no exact update with stochastic volatility: a job

@@ -467,3 +467,16 @@ def test_gibbs_progress_is_drawn_on_a_terminal(run, monkeypatch) -> None:
     assert code == 0
     assert "\rfanfold: Gibbs sampler, 2 chain(s) [" in err
     assert err.endswith("] 300/300 chain sweeps\n")  # 2 chains x (50 + 100) sweeps
+
+
+def test_fit_with_common_volatility_and_outlier_periods(run):
+    code, out, err = run("fit", DEMO, "--lags", "1", "--volatility", "common", "--chains", "2",
+                         "--burn", "20", "--keep", "40", "--seed", "1", "--json")
+    assert code == 0, err
+    assert json.loads(out)["diagnostics"] is not None
+    code, out, err = run("fit", DEMO, "--lags", "1", "--prior", "independent", "--outlier",
+                         "2020-04-01:2", "--chains", "2", "--burn", "20", "--keep", "40",
+                         "--seed", "1", "--json")
+    assert code == 0, err
+    code, _, err = run("fit", DEMO, "--outlier", "April:2")
+    assert code == 2 and "DATE:PERIODS" in err

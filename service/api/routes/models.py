@@ -254,7 +254,8 @@ async def append_observations(model_id: uuid.UUID, body: ObservationsCreate,
         if list(new.columns) != list(old.columns):
             raise HTTPException(422, "send every series of the model, in its order: "
                                      + ", ".join(map(str, old.columns)))
-        if row.settings.get("prior") == "independent":
+        if (row.settings.get("prior") == "independent"
+                or row.settings.get("volatility", "constant") != "constant"):
             job = submit_job(session=session, tenant=tenant, kind="update_model", spec=body,
                              max_attempts=settings.job_max_attempts,
                              target={"model_id": row.id, "version": row.version})

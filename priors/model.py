@@ -392,7 +392,7 @@ class FanfoldVAR:
         assert self.prior_ is not None
         sv = run_sv_chains(rng.spawn(settings.chains), self.design_, self.prior_,
                            burn=settings.burn, keep=settings.keep, thin=settings.thin,
-                           progress=progress)
+                           progress=progress, workers=settings.workers)
         vol = np.stack([sv.h[:, :, -1], sv.phi, sv.sig2], axis=-1)
         self.sampler_ = GibbsDraws(sv.B, sv.Sigma, settings, volatility=vol)
         self.log_volatility_ = sv.h

@@ -155,8 +155,14 @@ def run_sv_chains(
     thin: int = 1,
     sv_prior: SVPrior = SVPrior(),
     progress: Callable[[int, int], None] | None = None,
+    workers: int = 1,
 ) -> SVDraws:
-    """Run one Gibbs chain per generator (see the module notes); kept draws."""
+    """Run one Gibbs chain per generator (see the module notes); kept draws. With
+    ``workers > 1`` the chains are split among that many spawned processes (one BLAS
+    thread each); ``progress`` is then called as groups finish."""
+    if workers > 1 and len(rngs) > 1:
+        return _run_sv_parallel(rngs, design, prior, burn, keep, thin, sv_prior, progress,
+                                min(workers, len(rngs)))
     C, T, n, k = len(rngs), design.nobs, design.n, design.k
     sweeps = burn + keep * thin
     out_B = np.empty((C, keep, k, n), dtype=np.float32)
@@ -198,3 +204,33 @@ def simulate_log_volatility(rng: np.random.Generator, h_last: FloatArray, phi: F
         cur = phi * cur + np.sqrt(sig2) * rng.standard_normal(h_last.size)
         out[:, j] = cur
     return out
+
+
+def _sv_worker(args: tuple) -> SVDraws:
+    from threadpoolctl import threadpool_limits
+
+    rngs, design, prior, burn, keep, thin, sv_prior = args
+    with threadpool_limits(limits=1, user_api="blas"):
+        return run_sv_chains(rngs, design, prior, burn=burn, keep=keep, thin=thin,
+                             sv_prior=sv_prior)
+
+
+def _run_sv_parallel(rngs: list[np.random.Generator], design: Design, prior: NIWPrior,
+                     burn: int, keep: int, thin: int, sv_prior: SVPrior,
+                     progress: Callable[[int, int], None] | None, workers: int) -> SVDraws:
+    import multiprocessing as mp
+    from concurrent.futures import ProcessPoolExecutor
+
+    groups = [list(g) for g in np.array_split(np.arange(len(rngs)), workers)]
+    total = len(rngs) * (burn + keep * thin)
+    with ProcessPoolExecutor(max_workers=workers, mp_context=mp.get_context("spawn")) as pool:
+        futures = [pool.submit(_sv_worker, ([rngs[c] for c in g], design, prior, burn, keep,
+                                            thin, sv_prior)) for g in groups]
+        parts, done = [], 0
+        for fut, g in zip(futures, groups, strict=True):
+            parts.append(fut.result())
+            done += len(g) * (burn + keep * thin)
+            if progress is not None:
+                progress(done, total)
+    return SVDraws(*(np.concatenate([getattr(p, f) for p in parts])
+                     for f in ("B", "Sigma", "h", "phi", "sig2", "acceptance")))

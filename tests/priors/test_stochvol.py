@@ -149,3 +149,11 @@ def test_sv_models_restore_from_their_draws_and_rerun_on_new_data():
     np.testing.assert_array_equal(a, b)
     grown = model.append(y[77:80], rng=np.random.default_rng(0))
     assert grown.sampler_.volatility is not None and grown.series_.nobs == 80
+
+
+def test_sv_chains_in_worker_processes_give_the_same_draws():
+    y, *_ = _sv_data(5, T=60)
+    kw = {"lags": 1, "volatility": "common", "chains": 2, "burn": 10, "keep": 20}
+    one = FanfoldVAR(**kw).fit(y, rng=np.random.default_rng(3))
+    two = FanfoldVAR(workers=2, **kw).fit(y, rng=np.random.default_rng(3))
+    np.testing.assert_allclose(two.sampler_.B, one.sampler_.B, rtol=1e-5, atol=1e-6)

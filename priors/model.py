@@ -426,14 +426,24 @@ class FanfoldVAR:
         self.log_ml_ = None
 
     def _outlier_rows(self) -> list[list[int]]:
-        """Rows of the design covered by each outlier period (dates or 0-based data rows
-        as given by the user)."""
+        """Rows of the design covered by each outlier period (see :meth:`_outlier_spans`)."""
+        return [rows for rows, _ in self._outlier_spans()]
+
+    def _outlier_future(self) -> list[tuple[int, list[int]]]:
+        """(period, forecast steps) for periods that run past the last complete period:
+        their estimated scale carries into those forecast steps."""
+        return [(k, steps) for k, (_, steps) in enumerate(self._outlier_spans()) if steps]
+
+    def _outlier_spans(self) -> list[tuple[list[int], list[int]]]:
+        """Per outlier period: the design rows it covers, and the forecast steps (1 = the
+        first period after the complete data) it still covers. Dates, or 0-based data
+        rows for plain arrays, as given by the user."""
         if not self.outliers:
             return []
         series, design = self.series_, self.design_
         first = series.levels.shape[0] - design.nobs  # data row of design row 0
         index = self._level_index() if series.calendar.index is not None else None
-        rows = []
+        spans = []
         for item in self.outliers:
             try:
                 start, length = item
@@ -450,14 +460,15 @@ class FanfoldVAR:
                 row0 = int(hit[0])
             else:
                 row0 = int(start)
-            covered = [r - first for r in range(row0, row0 + int(length))
-                       if 0 <= r - first < design.nobs]
-            if len(covered) != int(length):
+            rows = [r - first for r in range(row0, row0 + int(length))]
+            if not 0 <= rows[0] < design.nobs:
                 raise SpecificationError(
-                    f"outlier period {item!r} must lie within the estimation sample (after "
-                    f"the first {first} rows used as lags, up to the last complete period)")
-            rows.append(covered)
-        return rows
+                    f"outlier period {item!r} must start within the estimation sample (after "
+                    f"the first {first} rows used as lags, up to the last complete period), "
+                    "so that its scale can be estimated")
+            spans.append(([r for r in rows if r < design.nobs],
+                          [r - design.nobs + 1 for r in rows if r >= design.nobs]))
+        return spans
 
     def get_params(self) -> dict[str, object]:
         """The settings given to ``__init__`` (enough to build an identical model)."""
@@ -616,13 +627,46 @@ class FanfoldVAR:
 
     def _pick(self, draws: int, rng: np.random.Generator) -> tuple[Draws, FloatArray | None]:
         """Stored draws picked at random, with their volatility state (S, 3) if any."""
+        picked, state, _ = self._pick_all(draws, rng)
+        return picked, state
+
+    def _pick_all(self, draws: int, rng: np.random.Generator
+                  ) -> tuple[Draws, FloatArray | None, FloatArray | None]:
+        """Stored draws picked at random, with their volatility state (S, 3) and outlier
+        scales (S, K) where the model has them."""
         assert self.sampler_ is not None
         draws = check_size(draws)
         B, Sig = self.sampler_.flat()
         pick = rng.choice(B.shape[0], size=draws, replace=draws > B.shape[0])
-        vol = self.sampler_.volatility
+        vol, sc = self.sampler_.volatility, self.sampler_.scales
         state = None if vol is None else vol.reshape(-1, 3).astype(np.float64)[pick]
-        return Draws(B[pick], Sig[pick]), state
+        scales = None if sc is None else sc.reshape(B.shape[0], -1).astype(np.float64)[pick]
+        return Draws(B[pick], Sig[pick]), state, scales
+
+    def _time_varying(self) -> bool:
+        """Whether forecast shocks have a draw- and step-dependent scale (stochastic
+        volatility, or an outlier period running into the forecast)."""
+        return self.sampler_ is not None and (self.sampler_.volatility is not None
+                                              or bool(self._outlier_future()))
+
+    def _scaled_paths(self, rng: np.random.Generator, draws: int, history: FloatArray,
+                      exog_rows: FloatArray) -> FloatArray:
+        """Paths whose shocks are scaled per draw and step: exp(h/2) of simulated
+        log-volatility, and the outlier scales over the forecast steps they cover."""
+        picked, state, scales = self._pick_all(draws, rng)
+        horizon, n = exog_rows.shape[0], self.series_.n
+        mult = np.ones((draws, horizon))
+        if state is not None:
+            h = simulate_log_volatility(rng, state[:, 0], state[:, 1], state[:, 2], horizon)
+            mult *= np.exp(h / 2)
+        if scales is not None:
+            for k, steps in self._outlier_future():
+                inside = [s - 1 for s in steps if s <= horizon]
+                mult[:, inside] *= scales[:, k][:, None]
+        z = rng.standard_normal((draws, horizon, n))
+        shocks = mult[:, :, None] * np.einsum("sij,shj->shi",
+                                               np.linalg.cholesky(picked.Sigma), z)
+        return recursion_with_shocks(picked.B, shocks, history, exog_rows)
 
     def convergence(self) -> ConvergenceReport | None:
         """R-hat, bulk and tail ESS and MCSE of every coefficient and Sigma element of the
@@ -673,17 +717,15 @@ class FanfoldVAR:
         exog_rows = future_exogenous_rows(series, self.deterministics_, horizon, exog_future)
         history = series.values[-self.lags_:]
         rejected = None
+        if reject_explosive and self._time_varying():
+            raise SpecificationError("reject_explosive is not supported with stochastic "
+                                     "volatility or an outlier period running into the "
+                                     "forecast yet")
         if reject_explosive:
             kept, rejected = self._stable_draws(rng, draws)
             paths = simulate_paths_from_draws(rng, kept, history, exog_rows)
-        elif self.sampler_ is not None and self.sampler_.volatility is not None:
-            picked, state = self._pick(draws, rng)
-            assert state is not None
-            h = simulate_log_volatility(rng, state[:, 0], state[:, 1], state[:, 2], horizon)
-            z = rng.standard_normal((draws, horizon, series.n))
-            shocks = np.exp(h / 2)[:, :, None] * np.einsum(
-                "sij,shj->shi", np.linalg.cholesky(picked.Sigma), z)
-            paths = recursion_with_shocks(picked.B, shocks, history, exog_rows)
+        elif self._time_varying():
+            paths = self._scaled_paths(rng, draws, history, exog_rows)
         elif self.sampler_ is not None:
             paths = simulate_paths_from_draws(rng, self.sample(draws, rng=rng), history,
                                               exog_rows)
@@ -798,10 +840,10 @@ class FanfoldVAR:
         self._check_fitted()
         horizon = self._check_horizon(horizon)
         draws = check_size(draws)
-        if self.sampler_ is not None and self.sampler_.volatility is not None:
+        if self._time_varying():
             raise SpecificationError("scenarios and incomplete last periods are not "
-                                     "supported with stochastic volatility yet; use "
-                                     "volatility='constant'")
+                                     "supported with stochastic volatility or an outlier "
+                                     "period running into the forecast yet")
         series = self.series_
         r = self._ragged_rows()
         steps = r + horizon

@@ -99,8 +99,8 @@ def test_outlier_periods_by_date_get_their_own_scale():
     with pytest.raises(SpecificationError, match="not a date"):
         FanfoldVAR(prior="independent", lags=1, outliers=[("1990-01-01", 2)], **FAST).fit(
             frame, rng=np.random.default_rng(0))
-    with pytest.raises(SpecificationError, match="within the estimation sample"):
-        FanfoldVAR(prior="independent", lags=1, outliers=[(frame.index[-1], 3)], **FAST).fit(
+    with pytest.raises(SpecificationError, match="start within the estimation sample"):
+        FanfoldVAR(prior="independent", lags=1, outliers=[(frame.index[0], 3)], **FAST).fit(
             frame, rng=np.random.default_rng(0))
     with pytest.raises(SpecificationError, match="need prior='independent'"):
         FanfoldVAR(outliers=[(frame.index[5], 1)]).fit(frame)
@@ -119,3 +119,24 @@ def test_sampled_tightness_is_reported_with_its_posterior():
     assert hp["cross"] == pytest.approx(np.median(h[:, 1]), rel=1e-6)
     with pytest.raises(SpecificationError, match="sample_hyper needs"):
         FanfoldVAR(sample_hyper=True).fit(frame)
+
+
+
+def test_an_ongoing_outlier_period_widens_the_forecast_it_covers():
+    # A disruption in the last two months that is known to last four: its estimated
+    # scale carries into the first two forecast months, and only those.
+    frame = two_lines(120, 8)
+    frame.iloc[-2:] += np.array([[150.0, -160.0], [-140.0, 170.0]])
+    kw = {"prior": "independent", "lags": 1, "tightness": 0.2, "chains": 2, "burn": 100,
+          "keep": 400}
+    calm = FanfoldVAR(**kw, outliers=[(frame.index[-2], 2)])
+    calm.fit(frame, rng=np.random.default_rng(0))
+    ongoing = FanfoldVAR(**kw, outliers=[(frame.index[-2], 4)])
+    ongoing.fit(frame, rng=np.random.default_rng(0))
+    assert ongoing._outlier_future() == [(0, [1, 2])]
+    a = calm.forecast(4, rng=np.random.default_rng(1), draws=2000).paths
+    b = ongoing.forecast(4, rng=np.random.default_rng(1), draws=2000).paths
+    ratio = b[:, 0].std(axis=0) / a[:, 0].std(axis=0)
+    assert np.all(ratio > 1.5)  # scales of about 3-6 were estimated for those months
+    with pytest.raises(SpecificationError, match="not supported"):
+        ongoing.scenario(2, [], rng=np.random.default_rng(0), draws=10)

@@ -512,10 +512,6 @@ def _fit(args: argparse.Namespace) -> str:
 def _backtest(args: argparse.Namespace) -> str:
     from priors.backtest import rolling_origin
 
-    if _uses_gibbs(args):
-        raise UsageError("backtest does not support Gibbs-sampled models yet (--prior "
-                         "independent, --volatility common: a Gibbs run per origin); "
-                         "backtest --prior minnesota with constant volatility instead")
     frame = read_data(args.data)
     params = _model_params(args)
     benchmarks = ("ols_var", "random_walk") + (("seasonal_naive",) if args.period else ())

@@ -254,7 +254,7 @@ def test_missing_file_exit_1(run, tmp_path: Path) -> None:
     ["fit", DEMO, "--prior", "independent", "--burn", "-1"],
     ["fit", DEMO, "--prior", "independent", "--cross", "0"],
     ["fit", DEMO, "--lags", "1", "--cross", "0.5"],  # cross needs --prior independent
-    ["backtest", DEMO, "--prior", "independent"],
+    ["backtest", DEMO, "--prior", "independent", "--chains", "0"],
     ["predict", DEMO],
 ])
 def test_bad_options_exit_2(run, args: list[object]) -> None:
@@ -480,3 +480,15 @@ def test_fit_with_common_volatility_and_outlier_periods(run):
     assert code == 0, err
     code, _, err = run("fit", DEMO, "--outlier", "April:2")
     assert code == 2 and "DATE:PERIODS" in err
+
+
+
+def test_backtest_with_the_gibbs_sampler(run):
+    # Gibbs-sampled settings are refitted (chains run again) at every origin
+    code, out, err = run("backtest", DEMO, "--origins", "2", "--horizon", "2", "--lags", "1",
+                         "--prior", "independent", "--cross", "0.5", "--chains", "2",
+                         "--burn", "20", "--keep", "50", "--draws", "100", "--json")
+    assert code == 0, err
+    scores = json.loads(out)["scores"]
+    assert {r["model"] for r in scores} >= {"model", "ols_var"}
+    assert all(r["crps"] >= 0 for r in scores if r["crps"] is not None)

@@ -125,6 +125,7 @@ def main(argv: list[str] | None = None) -> int:
     ap.add_argument("--out", default=str(HERE / "results" / "gibbs.md"))
     ap.add_argument("--child", nargs="*", help=argparse.SUPPRESS)
     args = ap.parse_args(argv)
+    import scipy.linalg  # noqa: F401 - load scipy's own BLAS so that the limit reaches it
     from threadpoolctl import threadpool_limits
 
     threadpool_limits(limits=1, user_api="blas")

@@ -27,7 +27,7 @@ import pandas as pd
 from priors import TRANSFORMS, ConvergenceWarning, FanfoldVAR, PriorsError, SpecificationError
 from priors.model import default_max_lags
 
-from .engine import blas_threads, lead_time_totals
+from .engine import blas_threads, simulate_forecast
 from .serialization import forecast_to_dict, frame_from_csv, quantile_key, summary_to_dict
 from .tables import format_backtest, format_fit, format_forecast, format_ranking
 
@@ -469,14 +469,10 @@ def _json(payload: dict[str, Any]) -> str:
 def _forecast(args: argparse.Namespace) -> str:
     model = _fitted(args)
     seed = secrets.randbits(32) if args.seed is None else args.seed
-    fc = model.forecast(args.horizon, rng=np.random.default_rng(seed), draws=args.draws,
-                        reject_explosive=args.reject_explosive)
-    totals = None
-    if args.lead_time is not None:
-        known = 0 if model.ragged_ is None else model.ragged_.values.shape[0]
-        totals = lead_time_totals(fc, args.lead_time, args.quantiles, first=known + 1)
-    if args.cumulative:
-        fc = fc.cumulative()
+    fc, totals = simulate_forecast(
+        model, horizon=args.horizon, draws=args.draws, seed=seed,
+        reject_explosive=args.reject_explosive, lead_time=args.lead_time,
+        quantiles=args.quantiles, cumulative=args.cumulative)
     if args.out:
         table = fc.to_frame(args.quantiles)
         try:

@@ -35,6 +35,7 @@ __all__ = [
     "frame_from_spec",
     "gibbs_work",
     "lead_time_totals",
+    "simulate_forecast",
     "limit_blas_threads",
     "model_params",
     "run_forecast",
@@ -261,18 +262,29 @@ def append_observations(model: FanfoldVAR, old: pd.DataFrame, new: pd.DataFrame,
     return Fitted(grown, seed), frame
 
 
+def simulate_forecast(model: FanfoldVAR, *, horizon: int, draws: int, seed: int,
+                      reject_explosive: bool, lead_time: int | None,
+                      quantiles: Sequence[float], cumulative: bool,
+                      ) -> tuple[Forecast, dict[str, Any] | None]:
+    """The forecast (running totals with ``cumulative``) and, with ``lead_time``, the
+    lead-time totals counted from the first period after any incomplete ones."""
+    fc = model.forecast(horizon, rng=np.random.default_rng(seed), draws=draws,
+                        reject_explosive=reject_explosive)
+    totals = None
+    if lead_time is not None:
+        known = 0 if model.ragged_ is None else model.ragged_.values.shape[0]
+        totals = lead_time_totals(fc, lead_time, quantiles, first=known + 1)
+    return (fc.cumulative() if cumulative else fc), totals
+
+
 def forecast_answer(model: FanfoldVAR, spec: OutputSettings, limits: Settings) -> dict[str, Any]:
     """Forecast from a fitted model; the answer in the layout of :func:`forecast_to_dict`."""
     check_output_limits(spec, model.design_.n, limits)
     seed = secrets.randbits(32) if spec.seed is None else spec.seed
-    fc = model.forecast(spec.horizon, rng=np.random.default_rng(seed), draws=spec.draws,
-                        reject_explosive=spec.reject_explosive)
-    totals = None
-    if spec.lead_time is not None:
-        known = 0 if model.ragged_ is None else model.ragged_.values.shape[0]
-        totals = lead_time_totals(fc, spec.lead_time, spec.quantiles, first=known + 1)
-    if spec.cumulative:
-        fc = fc.cumulative()
+    fc, totals = simulate_forecast(
+        model, horizon=spec.horizon, draws=spec.draws, seed=seed,
+        reject_explosive=spec.reject_explosive, lead_time=spec.lead_time,
+        quantiles=spec.quantiles, cumulative=spec.cumulative)
     payload = forecast_to_dict(model, fc, quantiles=spec.quantiles, seed=seed, draws=spec.draws)
     payload["cumulative"] = spec.cumulative
     payload["lead_time_totals"] = totals

@@ -43,8 +43,10 @@ class BacktestResult:
     actual : (O, h, n) realised values (NaN past the end of the data).
     mean, median, crps, lower, upper : per model, (O, h, n).
     pit : randomised PIT values of the draw-based models, (O, h, n).
-    log_score : exact one-step log predictive density of the joint outcome, (O,), for
-        the draw-based models when no series is transformed (else absent).
+    log_score : log predictive density of the joint outcome at each horizon, (O, h), for
+        the draw-based models: exact at step 1 for the conjugate and flat priors, the
+        Rao-Blackwellised mixture over parameter draws otherwise; in the user's units
+        (transforms' Jacobians included). Absent with exogenous regressors.
     """
 
     names: tuple[str, ...]
@@ -85,6 +87,19 @@ class BacktestResult:
                         "count": int(ok.sum()),
                     })
         return pd.DataFrame(rows)
+
+    def log_scores(self) -> pd.DataFrame:
+        """Mean log predictive density of the joint outcome per model and horizon
+        (higher is better), with the number of origins scored."""
+        rows = []
+        for model, values in self.log_score.items():
+            for h in range(self.horizon):
+                ok = np.isfinite(values[:, h])
+                if ok.any():
+                    rows.append({"model": model, "horizon": h + 1,
+                                 "log_score": float(values[ok, h].mean()),
+                                 "count": int(ok.sum())})
+        return pd.DataFrame(rows, columns=["model", "horizon", "log_score", "count"])
 
     def relative(self, benchmark: str, metric: str = "rmse") -> pd.DataFrame:
         """metric(model) / metric(benchmark) per series and horizon (below 1: better)."""
@@ -141,15 +156,14 @@ def _one_origin(
     pits: dict[str, FloatArray] = {}
     logs: dict[str, float] = {}
     filled = np.where(np.isnan(actual), 0.0, actual)
-    untransformed = all(t == "none" for t in model.series_.transforms)
     for name, m in fitted.items():
         paths = m.forecast(horizon, rng=rng, draws=draws).paths
         rows[name] = (paths.mean(axis=0), np.median(paths, axis=0),
                       crps_ensemble(paths, filled), np.quantile(paths, lo_q, axis=0),
                       np.quantile(paths, hi_q, axis=0))
         pits[name] = pit_values(rng, paths, filled)
-        if untransformed and not model.series_.exog_names:
-            logs[name] = m.one_step_log_density(actual[0])
+        if not model.series_.exog_names and not m._time_varying() and m.ragged_ is None:
+            logs[name] = m.log_predictive_density(actual, rng=rng, draws=min(draws, 1000))
     hist = train.to_numpy(dtype=np.float64)
     steps = np.arange(1, horizon + 1)[:, None]
     if "random_walk" in benchmarks:
@@ -243,7 +257,7 @@ def rolling_origin(
         for name, value in pits.items():
             result.pit.setdefault(name, np.full((origins, horizon, n), np.nan))[i] = value
         for name, value in logs.items():
-            result.log_score.setdefault(name, np.full(origins, np.nan))[i] = value
+            result.log_score.setdefault(name, np.full((origins, horizon), np.nan))[i] = value
     missing = np.isnan(result.actual)
     for store in (result.crps, result.pit):
         for name in store:

@@ -28,6 +28,7 @@ from .data import (
     load_series,
     split_ragged_edge,
 )
+from .density import differenced_flags, mixture_log_scores, model_unit_outcomes
 from .draw_summaries import coefficient_table, mixture_log_density
 from .errors import (
     DataError,
@@ -924,6 +925,44 @@ class FanfoldVAR:
         shape = (1.0 + v @ v) * post.S / dof
         dist = stats.multivariate_t(loc=post.B.T @ x, shape=shape, df=dof)
         return float(dist.logpdf(np.asarray(y_next, dtype=np.float64)))
+
+    def log_predictive_density(
+        self,
+        actual: pd.DataFrame | FloatArray,
+        *,
+        rng: np.random.Generator,
+        draws: int = 1000,
+        exog_future: pd.DataFrame | FloatArray | None = None,
+    ) -> FloatArray:
+        """log p(y_{T+h} | data) of realised outcomes (H, n) in the user's units, for
+        h = 1..H, each the joint density of all series at that step; (H,).
+
+        Step 1 of the conjugate and flat models is exact (multivariate t, see
+        :meth:`one_step_log_density`); otherwise the Rao-Blackwellised mixture over
+        ``draws`` posterior draws (:mod:`priors.density`). Transformed series include the
+        Jacobian, so scores compare across transforms. NaN where an outcome is missing.
+        """
+        self._check_fitted()
+        if self.ragged_ is not None or self._time_varying():
+            raise SpecificationError("log predictive densities are not available with "
+                                     "incomplete last periods or time-varying shock scales")
+        y = np.asarray(actual, dtype=np.float64)
+        series = self.series_
+        if y.ndim != 2 or y.shape[1] != series.n:
+            raise SpecificationError(f"outcomes must have shape (H, {series.n}); got {y.shape}")
+        H = y.shape[0]
+        w, logjac = model_unit_outcomes(y, series.transforms, series.levels[-1])
+        exog_rows = future_exogenous_rows(series, self.deterministics_, H, exog_future)
+        d = self.sample(draws, rng=rng)
+        out = mixture_log_scores(d.B, d.Sigma, series.values[-self.lags_:], exog_rows, w,
+                                 differenced_flags(series.transforms),
+                                 n_det=self.design_.n_det) + logjac
+        if self.sampler_ is None and np.all(np.isfinite(w[0])):
+            exog_next = None if exog_future is None else (
+                exog_future.iloc[:1] if isinstance(exog_future, pd.DataFrame)
+                else np.asarray(exog_future)[:1])
+            out[0] = self.one_step_log_density(w[0], exog_next=exog_next) + logjac[0]
+        return out
 
     def spectral_radius(self, draws: int = 1000, *, rng: np.random.Generator) -> FloatArray:
         """Posterior draws of the companion matrix's spectral radius, (draws,).

@@ -554,11 +554,13 @@ def _backtest(args: argparse.Namespace) -> str:
         except OSError as exc:
             raise InputError(f"cannot write {args.report!r}: {_one_line(exc)}") from exc
         print(f"fanfold: wrote {args.report}", file=sys.stderr)
+    logs = result.log_scores()
     if args.json:
         return _json({"origins": len(result.origins), "horizon": args.horizon,
                       "coverage": args.coverage, "seed": args.seed,
-                      "scores": scores.to_dict(orient="records")})
-    return format_backtest(scores, args.coverage)
+                      "scores": scores.to_dict(orient="records"),
+                      "log_scores": logs.to_dict(orient="records")})
+    return format_backtest(scores, args.coverage, logs)
 
 
 def _serve(args: argparse.Namespace) -> str:

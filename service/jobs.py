@@ -410,8 +410,9 @@ class JobRunner:
         if job.cancel_requested:
             raise _Cancelled
         scores = result.scores().replace({np.nan: None}).to_dict(orient="records")
+        logs = result.log_scores().replace({np.nan: None}).to_dict(orient="records")
         payload = {"origins": spec.origins, "horizon": spec.horizon, "seed": spec.seed,
-                   "coverage": spec.coverage, "scores": scores}
+                   "coverage": spec.coverage, "scores": scores, "log_scores": logs}
         s.execute(update(Job).where(*mine).values(status="succeeded", progress=1.0,
                                                   result=payload, updated_at=_now()))
         s.commit()

@@ -173,9 +173,9 @@ def format_fit(payload: dict[str, Any], *, prior: str, level: float, summary: bo
     return "\n".join(out)
 
 
-def format_backtest(scores: Any, coverage: float) -> str:
+def format_backtest(scores: Any, coverage: float, log_scores: Any = None) -> str:
     """Scores averaged over series per model and horizon, then relative to the OLS VAR
-    (or the random walk) per series."""
+    (or the random walk) per series, then the joint log scores per horizon."""
     out = [f"Fanfold backtest: scores averaged over series (coverage of the central "
            f"{100 * coverage:g}% interval)"]
     by_h = scores.groupby(["model", "horizon"])[["rmse", "mae", "crps", "coverage"]].mean()
@@ -191,6 +191,11 @@ def format_backtest(scores: Any, coverage: float) -> str:
                 for name in per.index]
         out += ["", f"relative to {base} (below 1: the model is better), mean over horizons:",
                 render_table(["series", "rmse", "crps"], rows)]
+    if log_scores is not None and len(log_scores):
+        wide = log_scores.pivot(index="horizon", columns="model", values="log_score")
+        rows = [[str(h), *(_g(v) for v in wide.loc[h])] for h in wide.index]
+        out += ["", "log predictive density of all series jointly, mean over origins "
+                "(higher is better):", render_table(["h", *wide.columns], rows)]
     return "\n".join(out)
 
 

@@ -30,6 +30,7 @@ def test_backtest_job_returns_the_engine_scores(client, demo):
                             rng=np.random.default_rng(5)).scores()
     got = pd.DataFrame(out["scores"])
     np.testing.assert_allclose(got["crps"].to_numpy(), direct["crps"].to_numpy(), rtol=1e-9)
+    assert {r["model"] for r in out["log_scores"]} == {"model", "ols_var"}
     assert client.get("/v1/backtests/00000000-0000-4000-8000-000000000000").status_code == 404
 
 

@@ -363,6 +363,8 @@ def test_backtest_command_prints_scores_and_json(run) -> None:
     assert models == {"model", "ols_var", "random_walk"}
     assert all(set(r) >= {"series", "horizon", "rmse", "crps", "coverage"}
                for r in payload["scores"])
+    logs = {(r["model"], r["horizon"]) for r in payload["log_scores"]}
+    assert logs == {(m, h) for m in ("model", "ols_var") for h in (1, 2)}
     code, _, err = run("backtest", DEMO, "--origins", 200)
     assert code in (1, 2) and err.startswith("fanfold: error:")
 

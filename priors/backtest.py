@@ -27,7 +27,7 @@ from scipy import stats
 from ._types import FloatArray
 from .errors import SpecificationError
 from .model import FanfoldVAR
-from .scores import crps_ensemble, crps_normal, diebold_mariano, pit_values
+from .scores import crps_ensemble, crps_normal, diebold_mariano, pit_moment_test, pit_values
 
 __all__ = ["BacktestResult", "rank_settings", "rolling_origin"]
 
@@ -100,6 +100,23 @@ class BacktestResult:
                                  "log_score": float(values[ok, h].mean()),
                                  "count": int(ok.sum())})
         return pd.DataFrame(rows, columns=["model", "horizon", "log_score", "count"])
+
+    def pit_tests(self, moments: int = 2) -> pd.DataFrame:
+        """Calibration of each draw-based model, series and horizon: the HAC raw-moment
+        test of the PITs (:func:`priors.scores.pit_moment_test`; bandwidth h - 1 for the
+        serial correlation of h-step PITs); a small p-value means miscalibrated bands."""
+        rows = []
+        for model, u in self.pit.items():
+            for j, name in enumerate(self.names):
+                for h in range(self.horizon):
+                    vals = u[:, h, j]
+                    if np.isfinite(vals).sum() < 10:
+                        continue
+                    stat, p = pit_moment_test(vals, h + 1, moments)
+                    rows.append({"model": model, "series": name, "horizon": h + 1,
+                                 "statistic": stat, "p_value": p})
+        return pd.DataFrame(rows, columns=["model", "series", "horizon", "statistic",
+                                           "p_value"])
 
     def relative(self, benchmark: str, metric: str = "rmse") -> pd.DataFrame:
         """metric(model) / metric(benchmark) per series and horizon (below 1: better)."""

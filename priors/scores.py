@@ -1,5 +1,5 @@
 """Scores of probabilistic forecasts: CRPS, energy score, pinball loss, PIT, coverage,
-and the Diebold-Mariano test.
+a HAC moment test of PIT calibration, and the Diebold-Mariano test.
 
 Each is defined as in its paper; shapes: ``samples`` put draws on axis 0 and match
 ``y`` on the other axes (a (S, h, n) path array against (h, n) outcomes).
@@ -15,6 +15,7 @@ from .errors import SpecificationError
 
 __all__ = [
     "coverage_test",
+    "pit_moment_test",
     "crps_ensemble",
     "crps_normal",
     "diebold_mariano",
@@ -144,3 +145,61 @@ def diebold_mariano(loss_a: FloatArray, loss_b: FloatArray, horizon: int = 1
     dm = d.mean() / np.sqrt(lrv / P)
     dm *= np.sqrt((P + 1 - 2 * horizon + horizon * (horizon - 1) / P) / P)
     return float(dm), float(2 * stats.t.sf(abs(dm), P - 1))
+
+
+def pit_moment_test(pit: FloatArray, horizon: int = 1, moments: int = 4
+                    ) -> tuple[float, float]:
+    """Calibration test of h-step PITs that allows for their serial correlation.
+
+    h-step-ahead PITs from overlapping origins are MA(h-1) even when the forecasts are
+    calibrated, so i.i.d. uniformity tests over-reject. Following Knueppel (2015, JBES,
+    "Evaluating the calibration of multi-step-ahead density forecasts using raw moments";
+    cited from memory), z = Phi^-1(u) must have the standard normal's raw moments
+    (0, 1, 0, 3 for orders 1..4); the mean deviation vector d is tested with the
+    long-run covariance of the moment conditions centred at their null values (an
+    LM-type choice, more stable in short samples) over h - 1 lags (truncated kernel,
+    exact for an MA(h-1); Bartlett weights if that is not positive definite):
+    W = P d' Omega^-1 d ~ chi2(moments). Measured size at 5% with two moments and h = 3:
+    11.5% at P = 60, 7.8% at P = 240, 6% at P = 480 (tests/priors/test_scores.py).
+
+    Parameters
+    ----------
+    pit : (P,) PIT values in (0, 1) at one horizon over P origins (NaN ignored).
+    horizon : h, the forecast horizon (sets the bandwidth).
+    moments : how many raw moments to test (1..4).
+
+    Returns
+    -------
+    (statistic, p-value).
+    """
+    if not 1 <= int(moments) <= 4:
+        raise SpecificationError(f"moments must be 1 to 4; got {moments!r}")
+    if int(horizon) != horizon or horizon < 1:
+        raise SpecificationError(f"horizon must be an integer >= 1; got {horizon!r}")
+    u = np.asarray(pit, dtype=np.float64)
+    u = u[np.isfinite(u)]
+    P = u.size
+    if P < 10:
+        raise SpecificationError(f"need at least 10 PIT values; got {P}")
+    if np.any((u <= 0) | (u >= 1)):
+        raise SpecificationError("PIT values must lie strictly between 0 and 1")
+    z = stats.norm.ppf(u)
+    target = np.array([0.0, 1.0, 0.0, 3.0])[:moments]
+    D = np.column_stack([z ** (k + 1) for k in range(moments)]) - target  # (P, m)
+    d = D.mean(axis=0)
+    C = D  # moments centred at their values under the null (an LM-type covariance)
+    autocov = [C.T @ C / P] + [C[lag:].T @ C[:-lag] / P for lag in range(1, int(horizon))]
+
+    def long_run(weights: list[float]) -> FloatArray:
+        om = autocov[0].copy()
+        for lag in range(1, int(horizon)):
+            om += weights[lag] * (autocov[lag] + autocov[lag].T)
+        return om
+
+    # the truncated (uniform) kernel is exact for MA(h-1) moments, as in Diebold &
+    # Mariano's variance; Bartlett weights when that is not positive definite
+    omega = long_run([1.0] * int(horizon))
+    if np.any(np.linalg.eigvalsh(omega) <= 0):
+        omega = long_run([1.0 - lag / horizon for lag in range(int(horizon))])
+    stat = float(P * d @ np.linalg.solve(omega, d))
+    return stat, float(stats.chi2.sf(stat, moments))

@@ -559,8 +559,16 @@ def _backtest(args: argparse.Namespace) -> str:
         return _json({"origins": len(result.origins), "horizon": args.horizon,
                       "coverage": args.coverage, "seed": args.seed,
                       "scores": scores.to_dict(orient="records"),
-                      "log_scores": logs.to_dict(orient="records")})
+                      "log_scores": logs.to_dict(orient="records"),
+                      "calibration": _calibration(result)})
     return format_backtest(scores, args.coverage, logs)
+
+
+def _calibration(result: Any) -> list[dict[str, Any]]:
+    """HAC PIT moment tests per model, series and horizon (needs 10+ origins)."""
+    if len(result.origins) < 10:
+        return []
+    return result.pit_tests().to_dict(orient="records")
 
 
 def _serve(args: argparse.Namespace) -> str:

@@ -411,8 +411,11 @@ class JobRunner:
             raise _Cancelled
         scores = result.scores().replace({np.nan: None}).to_dict(orient="records")
         logs = result.log_scores().replace({np.nan: None}).to_dict(orient="records")
+        calibration = (result.pit_tests().replace({np.nan: None}).to_dict(orient="records")
+                       if spec.origins >= 10 else [])
         payload = {"origins": spec.origins, "horizon": spec.horizon, "seed": spec.seed,
-                   "coverage": spec.coverage, "scores": scores, "log_scores": logs}
+                   "coverage": spec.coverage, "scores": scores, "log_scores": logs,
+                   "calibration": calibration}
         s.execute(update(Job).where(*mine).values(status="succeeded", progress=1.0,
                                                   result=payload, updated_at=_now()))
         s.commit()

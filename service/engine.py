@@ -19,7 +19,7 @@ from priors.model import default_max_lags
 
 from .config import Settings
 from .errors import LimitExceeded
-from .schemas import ForecastSettings, ModelSettings, OutputSettings, SeriesData
+from .schemas import BacktestCreate, ForecastSettings, ModelSettings, OutputSettings, SeriesData
 from .serialization import forecast_to_dict, quantile_key
 
 __all__ = [
@@ -27,6 +27,7 @@ __all__ = [
     "Fitted",
     "append_observations",
     "blas_threads",
+    "check_backtest_limits",
     "check_model_limits",
     "check_output_limits",
     "fan_chart",
@@ -148,6 +149,17 @@ def check_model_limits(spec: ModelSettings, n: int, T: int, limits: Settings) ->
             f"keep: the draws to store, chains x keep x (coefficients + series^2) = "
             f"{stored} values, are over this server's limit of {limits.max_stored_draws}; "
             "lower keep or chains (raise thin to keep the chains as long)"))
+
+
+def check_backtest_limits(spec: BacktestCreate, n: int, T: int, limits: Settings) -> None:
+    """The model limits, plus the Gibbs work of every origin's refit together."""
+    check_model_limits(spec, n, T, limits)
+    work, _ = gibbs_work(spec, n)
+    if work * spec.origins > limits.max_gibbs_work:
+        raise LimitExceeded("origins", (
+            f"origins: refitting the Gibbs sampler at {spec.origins} origins is "
+            f"{work * spec.origins:.3g} units of work, over this server's limit of "
+            f"{limits.max_gibbs_work:.3g}; lower origins, keep, burn or chains"))
 
 
 def check_output_limits(spec: OutputSettings, n: int, limits: Settings) -> None:

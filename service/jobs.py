@@ -38,7 +38,7 @@ from .config import Settings
 from .engine import (
     Progress,
     append_observations,
-    check_model_limits,
+    check_backtest_limits,
     fit_model,
     frame_from_spec,
     model_params,
@@ -390,7 +390,7 @@ class JobRunner:
 
         spec = BacktestCreate.model_validate(job.payload)
         frame = frame_from_spec(spec)
-        check_model_limits(spec, frame.shape[1], frame.shape[0], self.settings)
+        check_backtest_limits(spec, frame.shape[1], frame.shape[0], self.settings)
         benchmarks = ("ols_var", "random_walk") + (("seasonal_naive",) if spec.period else ())
         if spec.prior == "flat":
             benchmarks = tuple(b for b in benchmarks if b != "ols_var")

@@ -235,9 +235,9 @@ class BacktestCreate(SeriesData, ModelSettings):
         "series": _DEMO, "start": "2016-01-01", "frequency": "MS", "lags": 1,
         "origins": 6, "horizon": 3, "draws": 500, "period": 12, "seed": 1}]})
 
-    prior: Literal["minnesota", "flat"] = Field(
-        "minnesota", description="'minnesota' or 'flat'; 'independent' (a Gibbs run per "
-        "origin) is not available in backtests yet")
+    prior: Literal["minnesota", "flat", "independent"] = Field(
+        "minnesota", description="as for models; 'independent' (and volatility 'common') "
+        "run the Gibbs sampler again at every origin, limited to max_gibbs_work in all")
     origins: int = Field(24, ge=1, le=200, description="forecast origins (the last ones)")
     horizon: int = Field(12, ge=1, le=104, description="steps ahead")
     window: int | None = Field(None, ge=10, description="fit on the last N periods only")
@@ -246,9 +246,6 @@ class BacktestCreate(SeriesData, ModelSettings):
     period: int | None = Field(None, ge=2, le=366,
                                description="seasonal period for the seasonal-naive benchmark")
     seed: int = Field(0, ge=0, lt=2**63)
-    volatility: Literal["constant"] = Field(
-        "constant", description="'common' (a Gibbs run per origin) is not available in "
-        "backtests yet")
 
 
 class ModelForecastCreate(OutputSettings):

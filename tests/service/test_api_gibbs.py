@@ -257,8 +257,15 @@ def test_gibbs_settings_are_validated(client, body):
     r = client.post("/v1/models", json={**body, "prior": "minnesota"})  # cross 0.5
     assert r.status_code == 422 and "needs prior 'independent'" in r.text
     backtest = {**body, "origins": 2, "horizon": 2, "draws": 100}
-    r = client.post("/v1/backtests", json=backtest)  # not available there yet
-    assert r.status_code == 422 and r.json()["errors"][0]["field"] == "prior"
+    r = client.post("/v1/backtests", json=backtest)  # Gibbs refits at every origin
+    assert r.status_code == 202, r.text
+    job = wait_for_job(client, r.headers["location"])
+    assert job["status"] == "succeeded", job
+    out = client.get(job["result"]).json()
+    assert {r["model"] for r in out["scores"]} >= {"model", "ols_var"}
+    r = client.post("/v1/backtests", json={**backtest, "origins": 100, "keep": 20_000,
+                                            "chains": 16})
+    assert r.status_code == 422 and r.json()["errors"][0]["field"] in ("origins", "keep")
 
 
 def test_one_shot_forecasts_with_the_independent_prior(tmp_path, body):

@@ -9,7 +9,7 @@ from fastapi import APIRouter, Request
 from fastapi.responses import JSONResponse
 from starlette.exceptions import HTTPException
 
-from ...engine import check_model_limits, frame_from_spec
+from ...engine import check_backtest_limits, frame_from_spec
 from ...errors import PROBLEM_JSON
 from ...jobs import get_job, submit_job
 from ...schemas import BacktestCreate, JobPublic
@@ -31,7 +31,7 @@ router = APIRouter(prefix="/v1/backtests", tags=["backtests"])
 def create_backtest(body: BacktestCreate, request: Request, session: SessionDep,
                     settings: SettingsDep, tenant: TenantDep) -> JSONResponse:
     frame = frame_from_spec(body)
-    check_model_limits(body, frame.shape[1], frame.shape[0], settings)
+    check_backtest_limits(body, frame.shape[1], frame.shape[0], settings)
     if body.draws > settings.max_draws:
         raise HTTPException(422, f"draws: {body.draws} is over this server's limit of "
                                  f"{settings.max_draws}; lower draws")

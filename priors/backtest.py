@@ -26,8 +26,17 @@ from scipy import stats
 
 from ._types import FloatArray
 from .errors import SpecificationError
+from .forecast import check_quantiles
 from .model import FanfoldVAR
-from .scores import crps_ensemble, crps_normal, diebold_mariano, pit_moment_test, pit_values
+from .scores import (
+    crps_ensemble,
+    crps_normal,
+    diebold_mariano,
+    energy_score,
+    pinball_loss,
+    pit_moment_test,
+    pit_values,
+)
 
 __all__ = ["BacktestResult", "rank_settings", "rolling_origin"]
 
@@ -43,6 +52,9 @@ class BacktestResult:
     actual : (O, h, n) realised values (NaN past the end of the data).
     mean, median, crps, lower, upper : per model, (O, h, n).
     pit : randomised PIT values of the draw-based models, (O, h, n).
+    pinball : pinball loss averaged over ``quantiles``, per model, (O, h, n).
+    energy : energy score of all series jointly, each series divided by the s.d. of its
+        one-step changes in the training window (so that no series dominates), (O, h).
     log_score : log predictive density of the joint outcome at each horizon, (O, h), for
         the draw-based models: exact at step 1 for the conjugate and flat priors, the
         Rao-Blackwellised mixture over parameter draws otherwise; in the user's units
@@ -61,13 +73,17 @@ class BacktestResult:
     upper: dict[str, FloatArray] = field(default_factory=dict)
     pit: dict[str, FloatArray] = field(default_factory=dict)
     log_score: dict[str, FloatArray] = field(default_factory=dict)
+    pinball: dict[str, FloatArray] = field(default_factory=dict)
+    energy: dict[str, FloatArray] = field(default_factory=dict)
+    quantiles: tuple[float, ...] = (0.05, 0.5, 0.95)
 
     @property
     def models(self) -> list[str]:
         return list(self.mean)
 
     def scores(self) -> pd.DataFrame:
-        """One row per model, series and horizon: rmse, mae, crps, coverage, count."""
+        """One row per model, series and horizon: rmse, mae, crps, pinball (mean over
+        ``quantiles``), coverage, count."""
         rows = []
         for model in self.models:
             err_mean = self.mean[model] - self.actual
@@ -83,10 +99,53 @@ class BacktestResult:
                         "rmse": float(np.sqrt(np.mean(err_mean[ok, h, j] ** 2))),
                         "mae": float(np.mean(np.abs(err_med[ok, h, j]))),
                         "crps": float(np.mean(self.crps[model][ok, h, j])),
+                        "pinball": float(np.mean(self.pinball[model][ok, h, j])),
                         "coverage": float(np.mean(inside[ok, h, j])),
                         "count": int(ok.sum()),
                     })
         return pd.DataFrame(rows)
+
+    def energy_scores(self) -> pd.DataFrame:
+        """Mean energy score of all series jointly per model and horizon (standardised
+        series; lower is better; Gneiting & Raftery 2007)."""
+        rows = []
+        for model, values in self.energy.items():
+            for h in range(self.horizon):
+                ok = np.isfinite(values[:, h])
+                if ok.any():
+                    rows.append({"model": model, "horizon": h + 1,
+                                 "energy": float(values[ok, h].mean()),
+                                 "count": int(ok.sum())})
+        return pd.DataFrame(rows, columns=["model", "horizon", "energy", "count"])
+
+    def dm_tests(self, metric: str = "crps") -> pd.DataFrame:
+        """Diebold-Mariano tests with the Harvey, Leybourne & Newbold (1997) correction of
+        the model against each benchmark, per series and horizon, on the CRPS (or
+        "se", squared errors of the means). Negative statistics favour the model."""
+        if metric not in ("crps", "se"):
+            raise SpecificationError(f"metric must be 'crps' or 'se'; got {metric!r}")
+        if "model" not in self.mean:
+            return pd.DataFrame(columns=["benchmark", "series", "horizon", "statistic",
+                                         "p_value"])
+
+        def loss(name: str) -> FloatArray:
+            if metric == "crps":
+                return self.crps[name]
+            return (self.mean[name] - self.actual) ** 2
+
+        rows = []
+        for bench in (m for m in self.models if m != "model"):
+            a, b = loss("model"), loss(bench)
+            for j, name in enumerate(self.names):
+                for h in range(self.horizon):
+                    ok = np.isfinite(a[:, h, j]) & np.isfinite(b[:, h, j])
+                    if ok.sum() < 3:
+                        continue
+                    stat, p = diebold_mariano(a[ok, h, j], b[ok, h, j], h + 1)
+                    rows.append({"benchmark": bench, "series": name, "horizon": h + 1,
+                                 "statistic": stat, "p_value": p})
+        return pd.DataFrame(rows, columns=["benchmark", "series", "horizon", "statistic",
+                                           "p_value"])
 
     def log_scores(self) -> pd.DataFrame:
         """Mean log predictive density of the joint outcome per model and horizon
@@ -134,10 +193,25 @@ class BacktestResult:
         return diebold_mariano(a, b, horizon)
 
 
-def _gaussian(center: FloatArray, sd: FloatArray, actual: FloatArray, z: float
-              ) -> tuple[FloatArray, FloatArray, FloatArray, FloatArray, FloatArray]:
+def _gaussian(center: FloatArray, sd: FloatArray, actual: FloatArray, z: float,
+              quantiles: FloatArray) -> tuple[FloatArray, ...]:
+    """The scores of a Gaussian forecast N(center, sd^2), (h, n) each."""
+    qs = center[None] + stats.norm.ppf(quantiles)[:, None, None] * sd[None]
+    pinball = np.mean([pinball_loss(q, actual, t) for q, t in zip(qs, quantiles,
+                                                                   strict=True)], axis=0)
     return (center, center, crps_normal(center, sd, actual), center - z * sd,
-            center + z * sd)
+            center + z * sd, pinball)
+
+
+def _energy(rng: np.random.Generator, samples: FloatArray, actual: FloatArray,
+            scale: FloatArray) -> FloatArray:
+    """Energy score per step of (S, h, n) samples against (h, n), series divided by
+    ``scale`` (n,); NaN where an outcome is missing."""
+    out = np.full(actual.shape[0], np.nan)
+    for h in range(actual.shape[0]):
+        if np.all(np.isfinite(actual[h])):
+            out[h] = energy_score(samples[:, h] / scale, actual[h] / scale)
+    return out
 
 
 def _one_origin(
@@ -145,8 +219,8 @@ def _one_origin(
     window: int | None, draws: int, coverage: float, period: int | None,
     benchmarks: tuple[str, ...], seed: np.random.SeedSequence,
     extra: Mapping[str, ExtraForecaster] | None = None,
-) -> tuple[FloatArray, dict[str, tuple[FloatArray, ...]], dict[str, FloatArray],
-           dict[str, float]]:
+    quantiles: tuple[float, ...] = (0.05, 0.5, 0.95),
+) -> tuple[Any, ...]:
     """Fit and score one origin with its own random stream (so the result does not depend
     on the order or the process the origins run in)."""
     rng = np.random.default_rng(seed)
@@ -172,31 +246,42 @@ def _one_origin(
     rows: dict[str, tuple[FloatArray, ...]] = {}
     pits: dict[str, FloatArray] = {}
     logs: dict[str, float] = {}
+    energies: dict[str, FloatArray] = {}
     filled = np.where(np.isnan(actual), 0.0, actual)
+    hist = train.to_numpy(dtype=np.float64)
+    scale = np.std(np.diff(hist, axis=0), axis=0, ddof=1)
+    scale = np.where(scale > 0, scale, 1.0)
+    qlev = np.asarray(quantiles, dtype=np.float64)
     for name, m in fitted.items():
         paths = m.forecast(horizon, rng=rng, draws=draws).paths
+        qs = np.quantile(paths, np.concatenate([[lo_q, hi_q], qlev]), axis=0)
+        pinball = np.mean([pinball_loss(q, filled, t)
+                           for q, t in zip(qs[2:], qlev, strict=True)], axis=0)
         rows[name] = (paths.mean(axis=0), np.median(paths, axis=0),
-                      crps_ensemble(paths, filled), np.quantile(paths, lo_q, axis=0),
-                      np.quantile(paths, hi_q, axis=0))
+                      crps_ensemble(paths, filled), qs[0], qs[1], pinball)
         pits[name] = pit_values(rng, paths, filled)
+        energies[name] = _energy(rng, paths, actual, scale)
         if not model.series_.exog_names and not m._time_varying() and m.ragged_ is None:
             logs[name] = m.log_predictive_density(actual, rng=rng, draws=min(draws, 1000))
-    hist = train.to_numpy(dtype=np.float64)
+
+    def gaussian(name: str, center: FloatArray, sd: FloatArray) -> None:
+        rows[name] = _gaussian(center, sd, actual, z, qlev)
+        samples = center[None] + sd[None] * rng.standard_normal((min(draws, 1000), *sd.shape))
+        energies[name] = _energy(rng, samples, actual, scale)
+
     steps = np.arange(1, horizon + 1)[:, None]
     if "random_walk" in benchmarks:
         sd = np.sqrt(steps * np.var(np.diff(hist, axis=0), axis=0, ddof=1))
-        rows["random_walk"] = _gaussian(np.repeat(hist[-1:], horizon, axis=0), sd, actual, z)
+        gaussian("random_walk", np.repeat(hist[-1:], horizon, axis=0), sd)
     if "seasonal_naive" in benchmarks:
         assert period is not None
         seasonal = hist[-period:][np.arange(horizon) % period]
         base = np.std(hist[period:] - hist[:-period], axis=0, ddof=1)
-        rows["seasonal_naive"] = _gaussian(seasonal, base * np.sqrt(np.ceil(steps / period)),
-                                           actual, z)
+        gaussian("seasonal_naive", seasonal, base * np.sqrt(np.ceil(steps / period)))
     for name, forecaster in (extra or {}).items():
         center, sd = forecaster(train, horizon)
-        rows[name] = _gaussian(np.asarray(center, dtype=np.float64),
-                               np.asarray(sd, dtype=np.float64), actual, z)
-    return actual, rows, pits, logs
+        gaussian(name, np.asarray(center, dtype=np.float64), np.asarray(sd, dtype=np.float64))
+    return actual, rows, pits, logs, energies
 
 
 def rolling_origin(
@@ -214,6 +299,7 @@ def rolling_origin(
     progress: Callable[[int, int], None] | None = None,
     workers: int = 1,
     extra: Mapping[str, ExtraForecaster] | None = None,
+    quantiles: tuple[float, ...] = (0.05, 0.5, 0.95),
 ) -> BacktestResult:
     """Evaluate ``FanfoldVAR(**params)`` on the last ``origins`` forecast origins.
 
@@ -224,7 +310,9 @@ def rolling_origin(
     same for any number of workers. ``extra`` adds benchmarks from outside the engine
     (e.g. exponential smoothing): name -> f(train frame, horizon) -> (mean, sd), each
     (h, n), scored as Gaussian; with ``workers > 1`` they must be picklable.
+    ``quantiles``: the levels whose pinball loss is averaged in ``scores()``.
     """
+    quantiles = tuple(float(q) for q in check_quantiles(quantiles))
     unknown = set(benchmarks) - set(BENCHMARKS)
     if unknown:
         raise SpecificationError(f"unknown benchmarks {sorted(unknown)}; choose from "
@@ -243,10 +331,11 @@ def rolling_origin(
                                  "before the first origin")
     first = T - origins
     result = BacktestResult(tuple(map(str, frame.columns)), list(range(first, T)), horizon,
-                            coverage, np.full((origins, horizon, n), np.nan))
+                            coverage, np.full((origins, horizon, n), np.nan),
+                            quantiles=quantiles)
     seeds = np.random.SeedSequence(int(rng.integers(2**63))).spawn(origins)
     args = [(frame, o, params, horizon, window, draws, coverage, period, benchmarks, seed,
-             extra) for o, seed in zip(result.origins, seeds, strict=True)]
+             extra, quantiles) for o, seed in zip(result.origins, seeds, strict=True)]
     outputs: list[Any] = [None] * origins
     if workers > 1:
         import multiprocessing
@@ -265,18 +354,20 @@ def rolling_origin(
             outputs[i] = _one_origin(*a)
             if progress is not None:
                 progress(i + 1, origins)
-    for i, (actual, rows, pits, logs) in enumerate(outputs):
+    for i, (actual, rows, pits, logs, energies) in enumerate(outputs):
         result.actual[i] = actual
         for name, values in rows.items():
             for store, value in zip((result.mean, result.median, result.crps, result.lower,
-                                     result.upper), values, strict=True):
+                                     result.upper, result.pinball), values, strict=True):
                 store.setdefault(name, np.full((origins, horizon, n), np.nan))[i] = value
+        for name, value in energies.items():
+            result.energy.setdefault(name, np.full((origins, horizon), np.nan))[i] = value
         for name, value in pits.items():
             result.pit.setdefault(name, np.full((origins, horizon, n), np.nan))[i] = value
         for name, value in logs.items():
             result.log_score.setdefault(name, np.full((origins, horizon), np.nan))[i] = value
     missing = np.isnan(result.actual)
-    for store in (result.crps, result.pit):
+    for store in (result.crps, result.pit, result.pinball):
         for name in store:
             store[name][missing] = np.nan
     return result

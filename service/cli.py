@@ -560,8 +560,10 @@ def _backtest(args: argparse.Namespace) -> str:
                       "coverage": args.coverage, "seed": args.seed,
                       "scores": scores.to_dict(orient="records"),
                       "log_scores": logs.to_dict(orient="records"),
+                      "energy_scores": result.energy_scores().to_dict(orient="records"),
+                      "dm_tests": result.dm_tests().to_dict(orient="records"),
                       "calibration": _calibration(result)})
-    return format_backtest(scores, args.coverage, logs)
+    return format_backtest(scores, args.coverage, logs, result.dm_tests())
 
 
 def _calibration(result: Any) -> list[dict[str, Any]]:

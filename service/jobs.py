@@ -415,6 +415,9 @@ class JobRunner:
                        if spec.origins >= 10 else [])
         payload = {"origins": spec.origins, "horizon": spec.horizon, "seed": spec.seed,
                    "coverage": spec.coverage, "scores": scores, "log_scores": logs,
+                   "energy_scores": result.energy_scores().to_dict(orient="records"),
+                   "dm_tests": result.dm_tests().replace({np.nan: None})
+                   .to_dict(orient="records"),
                    "calibration": calibration}
         s.execute(update(Job).where(*mine).values(status="succeeded", progress=1.0,
                                                   result=payload, updated_at=_now()))

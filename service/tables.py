@@ -173,15 +173,17 @@ def format_fit(payload: dict[str, Any], *, prior: str, level: float, summary: bo
     return "\n".join(out)
 
 
-def format_backtest(scores: Any, coverage: float, log_scores: Any = None) -> str:
+def format_backtest(scores: Any, coverage: float, log_scores: Any = None,
+                    dm_tests: Any = None) -> str:
     """Scores averaged over series per model and horizon, then relative to the OLS VAR
     (or the random walk) per series, then the joint log scores per horizon."""
     out = [f"Fanfold backtest: scores averaged over series (coverage of the central "
            f"{100 * coverage:g}% interval)"]
-    by_h = scores.groupby(["model", "horizon"])[["rmse", "mae", "crps", "coverage"]].mean()
+    cols = ["rmse", "mae", "crps", "pinball", "coverage"]
+    by_h = scores.groupby(["model", "horizon"])[cols].mean()
     rows = [[m, str(h), *(_g(v) for v in vals)] for (m, h), vals in
             zip(by_h.index, by_h.to_numpy().tolist(), strict=True)]
-    out += ["", render_table(["model", "h", "rmse", "mae", "crps", "coverage"], rows)]
+    out += ["", render_table(["model", "h", *cols], rows)]
     models = set(scores["model"])
     base = "ols_var" if "ols_var" in models else "random_walk"
     if "model" in models and base in models:
@@ -191,6 +193,15 @@ def format_backtest(scores: Any, coverage: float, log_scores: Any = None) -> str
                 for name in per.index]
         out += ["", f"relative to {base} (below 1: the model is better), mean over horizons:",
                 render_table(["series", "rmse", "crps"], rows)]
+    if dm_tests is not None and len(dm_tests):
+        rows = []
+        for bench, grp in dm_tests.groupby("benchmark"):
+            better = int(((grp["statistic"] < 0) & (grp["p_value"] < 0.05)).sum())
+            worse = int(((grp["statistic"] > 0) & (grp["p_value"] < 0.05)).sum())
+            rows.append([str(bench), str(better), str(worse), str(len(grp))])
+        out += ["", "Diebold-Mariano tests on CRPS (HLN correction, 5%), series x horizons "
+                "where the model is significantly better / worse:",
+                render_table(["benchmark", "better", "worse", "of"], rows)]
     if log_scores is not None and len(log_scores):
         wide = log_scores.pivot(index="horizon", columns="model", values="log_score")
         rows = [[str(h), *(_g(v) for v in wide.loc[h])] for h in wide.index]

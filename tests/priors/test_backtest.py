@@ -85,6 +85,19 @@ def test_calibrated_on_data_from_a_known_var(known_var):
     tests = result.pit_tests()
     assert set(tests["horizon"]) == {1, 2} and set(tests["model"]) == {"model", "ols_var"}
     assert tests["p_value"].between(0, 1).all()
+    # the other proper scores on the same origins: pinball loss averaged over the
+    # quantile levels, the energy score of the standardised joint forecast (Gneiting &
+    # Raftery 2007), and Diebold-Mariano tests with the HLN correction; the VAR beats
+    # the random walk on data from a stationary VAR
+    pin = table.groupby("model")["pinball"].mean()
+    assert pin["model"] < pin["random_walk"]
+    energy = result.energy_scores().set_index(["model", "horizon"])["energy"]
+    assert energy["model", 1] < energy["random_walk", 1]
+    dm = result.dm_tests()
+    assert set(dm["benchmark"]) == {"ols_var", "random_walk"}
+    assert dm["p_value"].between(0, 1).all()
+    vs_rw = dm[(dm["benchmark"] == "random_walk") & (dm["horizon"] == 1)]
+    assert (vs_rw["statistic"] < 0).all() and (vs_rw["p_value"] < 0.05).any()
 
 
 def test_h_step_pits_of_a_correct_model_pass_the_hac_moment_test(known_var):

@@ -365,6 +365,9 @@ def test_backtest_command_prints_scores_and_json(run) -> None:
                for r in payload["scores"])
     logs = {(r["model"], r["horizon"]) for r in payload["log_scores"]}
     assert logs == {(m, h) for m in ("model", "ols_var") for h in (1, 2)}
+    assert {r["model"] for r in payload["energy_scores"]} == models
+    assert {r["benchmark"] for r in payload["dm_tests"]} == {"ols_var", "random_walk"}
+    assert all(r["pinball"] > 0 for r in payload["scores"])
     code, _, err = run("backtest", DEMO, "--origins", 200)
     assert code in (1, 2) and err.startswith("fanfold: error:")
 

@@ -63,8 +63,11 @@ def test_calibrated_on_data_from_a_known_var(known_var):
                             rng=rng, benchmarks=("ols_var", "random_walk"))
     table = result.scores()
     assert set(table["model"]) == {"model", "ols_var", "random_walk"}
-    cover = table[table["model"] == "model"]["coverage"].mean()
-    assert abs(cover - 0.9) < 0.07
+    # coverage of the 90% intervals at every horizon, averaged over the 3 series (60
+    # origins each: binomial s.d. of one series' rate ~0.04; tolerance 0.07 on the mean)
+    by_h = table[table["model"] == "model"].groupby("horizon")["coverage"].mean()
+    assert set(by_h.index) == {1, 2}
+    assert (abs(by_h - 0.9) < 0.07).all(), by_h
     rel = result.relative("random_walk", "crps")["model"]
     assert rel.mean() < 1.0
     stat, p = result.dm_test("random_walk", horizon=1, series="y1")

@@ -76,9 +76,33 @@ async def _validation(request: Request, exc: RequestValidationError) -> JSONResp
                    title="Invalid request", errors=errors)
 
 
+def _allowed_methods(request: Request) -> str | None:
+    """Every method the documented routes of this path answer (RFC 9110 sec. 15.5.6: a
+    405 lists them all; Starlette names only the first matching route's). Read from the
+    OpenAPI document, which lists every route (tests/service/test_openapi.py)."""
+    from starlette.routing import compile_path
+
+    app = request.app
+    table = getattr(app.state, "allowed_methods", None)
+    if table is None:
+        table = [(compile_path(path)[0], {m.upper() for m in ops})
+                 for path, ops in app.openapi().get("paths", {}).items()]
+        app.state.allowed_methods = table
+    methods: set[str] = set()
+    for regex, ops in table:
+        if regex.match(request.url.path):
+            methods |= ops
+    return ", ".join(sorted(methods)) or None
+
+
 async def _http(request: Request, exc: StarletteHTTPException) -> JSONResponse:
     detail = exc.detail if isinstance(exc.detail, str) else HTTPStatus(exc.status_code).phrase
-    return problem(exc.status_code, detail, request=request, headers=exc.headers)
+    headers = dict(exc.headers or {})
+    if exc.status_code == 405:
+        allowed = _allowed_methods(request)
+        if allowed:
+            headers["Allow"] = allowed
+    return problem(exc.status_code, detail, request=request, headers=headers or None)
 
 
 async def _limit(request: Request, exc: LimitExceeded) -> JSONResponse:

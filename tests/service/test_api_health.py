@@ -66,3 +66,13 @@ def test_json_log_lines_carry_request_id_and_route(client, demo_body, caplog):
     assert line["request_id"] == "trace-7" and line["route"] == "/v1/forecasts"
     assert line["status"] == 422 and line["event"] == "request" and line["duration_s"] >= 0
     assert "secret-key-value" not in caplog.text
+
+
+def test_405_lists_every_method_of_the_path(client):
+    # RFC 9110 sec. 15.5.6: a 405 carries Allow with all methods the resource supports
+    model = "/v1/models/00000000-0000-4000-8000-000000000000"
+    r = client.patch(model)
+    assert r.status_code == 405 and r.headers["allow"] == "DELETE, GET"
+    assert r.headers["content-type"].startswith("application/problem+json")
+    assert client.put("/v1/models").headers["allow"] == "GET, POST"
+    assert client.delete("/v1/forecasts").headers["allow"] == "POST"

@@ -8,7 +8,7 @@ from typing import Annotated, Literal
 
 from pydantic import BaseModel, ConfigDict, Field, model_validator
 
-from .schemas import Flag, LeadTimeTotal, Number, OutputSettings, SeriesForecast
+from .schemas import Flag, Input, LeadTimeTotal, Number, OutputSettings, SeriesForecast
 
 __all__ = [
     "AlertIn",
@@ -27,7 +27,7 @@ Stock = Annotated[float, Field(ge=0, allow_inf_nan=False)]
 SeriesName = Annotated[str, Field(min_length=1, max_length=100)]
 
 
-class ConditionIn(BaseModel):
+class ConditionIn(Input):
     """A fixed value or a range for one series in one forecast period, in the series'
     own units. Give ``step`` (1 = first forecast period) or ``date``; give ``value``, or
     ``lower`` and/or ``upper``."""
@@ -138,7 +138,7 @@ class SharesPublic(BaseModel):
     seed: int
 
 
-class ReplenishmentItem(BaseModel):
+class ReplenishmentItem(Input):
     """One stocked item: a series, or the sum of several (e.g. a kit), with its stock and
     the target: a cycle service level, or a fill rate with the order quantity."""
 
@@ -165,7 +165,7 @@ class ReplenishmentItem(BaseModel):
         return self
 
 
-class AlertIn(BaseModel):
+class AlertIn(Input):
     """Probability that a series goes above (or below) a threshold in the window."""
 
     model_config = ConfigDict(extra="forbid")
@@ -175,7 +175,7 @@ class AlertIn(BaseModel):
     below: Flag = False
 
 
-class ReplenishmentCreate(BaseModel):
+class ReplenishmentCreate(Input):
     """Lead-time demand, reorder points and alerts from a stored model."""
 
     model_config = ConfigDict(extra="forbid", json_schema_extra={"examples": [{

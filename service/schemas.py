@@ -8,9 +8,10 @@ request as well (:func:`service.engine.check_limits`).
 from __future__ import annotations
 
 import datetime as dt
+import typing
 from typing import Annotated, Literal
 
-from pydantic import BaseModel, ConfigDict, Field, field_validator, model_validator
+from pydantic import BaseModel, ConfigDict, Field, ValidationInfo, field_validator, model_validator
 
 from priors.transforms import TRANSFORMS
 
@@ -52,7 +53,38 @@ Seed = Annotated[int | None, Field(ge=0, lt=2**63)]
 _SEED_HELP = "default: a fresh seed"
 
 
-class OutlierPeriod(BaseModel):
+def _allows_bool(annotation: object) -> bool:
+    """Whether a field's type admits true/false (bool anywhere in it)."""
+    if annotation is bool:
+        return True
+    return any(_allows_bool(a) for a in typing.get_args(annotation))
+
+
+def _has_bool(value: object) -> bool:
+    if isinstance(value, bool):
+        return True
+    if isinstance(value, list):
+        return any(isinstance(x, bool) for x in value)
+    if isinstance(value, dict):
+        return any(_has_bool(x) for x in value.values())
+    return False
+
+
+class Input(BaseModel):
+    """Base of request bodies: JSON true/false is refused where a number is expected
+    (pydantic's lax mode would read it as 1/0; query strings still convert "3" to 3)."""
+
+    @field_validator("*", mode="before")
+    @classmethod
+    def _no_booleans_for_numbers(cls, value: object, info: ValidationInfo) -> object:
+        if info.field_name and _has_bool(value):
+            field = cls.model_fields[info.field_name]
+            if not _allows_bool(field.annotation):
+                raise ValueError("expected a number (or text), not true/false")
+        return value
+
+
+class OutlierPeriod(Input):
     """A known-date period with its own shock scale."""
 
     model_config = ConfigDict(extra="forbid")
@@ -61,7 +93,7 @@ class OutlierPeriod(BaseModel):
     periods: int = Field(1, ge=1, le=24, description="number of periods")
 
 
-class ModelSettings(BaseModel):
+class ModelSettings(Input):
     """How the model is built: lags, prior, transforms, deterministic terms, and for the
     independent prior the Gibbs sampler's settings."""
 
@@ -147,7 +179,7 @@ class ModelSettings(BaseModel):
         return self.prior == "independent" or self.volatility == "common"
 
 
-class OutputSettings(BaseModel):
+class OutputSettings(Input):
     """What to simulate and report: horizon, draws, quantiles, seed."""
 
     model_config = ConfigDict(extra="forbid")
@@ -180,7 +212,7 @@ class ForecastSettings(ModelSettings, OutputSettings):
                        f"chains (independent prior); {_SEED_HELP}")
 
 
-class SeriesData(BaseModel):
+class SeriesData(Input):
     """The series and their dates: explicit ``dates``, or ``start`` and ``frequency``."""
 
     model_config = ConfigDict(extra="forbid")

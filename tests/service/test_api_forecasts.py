@@ -169,3 +169,15 @@ def test_openapi_documents_both_media_types_and_limits(client):
     assert schema["properties"]["horizon"]["maximum"] == 104
     assert schema["examples"][0]["series"]["tyres"][0] == 1256
     assert {"413", "415", "422"} <= set(op["responses"])
+
+
+@pytest.mark.parametrize("extra, field", [
+    ({"horizon": True}, "horizon"),
+    ({"quantiles": [0.1, True]}, "quantiles"),
+    ({"lags": False}, "lags"),
+])
+def test_json_true_false_is_not_a_number(client, demo_body, extra, field):
+    # pydantic's lax mode would read true as 1; a planning system sending a boolean where
+    # a number belongs has a bug we should report, not guess around
+    r = client.post("/v1/forecasts", json={**demo_body, **extra})
+    assert r.status_code == 422 and r.json()["errors"][0]["field"] == field

@@ -478,10 +478,19 @@ def gibbs_convergence(draws: GibbsDraws, design: Design):  # -> ConvergenceRepor
     names, labels = design.names, design.labels
     k, n = draws.B.shape[2:]
     rows, cols = np.triu_indices(n)
-    return chain_diagnostics(
-        {"B": draws.B.astype(np.float64),
-         "Sigma": draws.Sigma[:, :, rows, cols].astype(np.float64)},
-        labels={"B": [f"{labels[r]} -> {names[i]}" for r in range(k) for i in range(n)],
-                "Sigma": [f"Sigma[{names[a]}, {names[b]}]" for a, b in zip(rows, cols,
-                                                                           strict=True)]},
-    )
+    variables = {"B": draws.B.astype(np.float64),
+                 "Sigma": draws.Sigma[:, :, rows, cols].astype(np.float64)}
+    tags = {"B": [f"{labels[r]} -> {names[i]}" for r in range(k) for i in range(n)],
+            "Sigma": [f"Sigma[{names[a]}, {names[b]}]" for a, b in zip(rows, cols,
+                                                                       strict=True)]}
+    # the sampled hyperparameters, outlier scales and volatility parameters too
+    if draws.hyper is not None:
+        variables["hyper"] = draws.hyper.astype(np.float64)
+        tags["hyper"] = ["tightness", "cross"]
+    if draws.scales is not None:
+        variables["scale"] = draws.scales.astype(np.float64)
+        tags["scale"] = [f"outlier period {j + 1} scale" for j in range(draws.scales.shape[2])]
+    if draws.volatility is not None:
+        variables["volatility"] = draws.volatility[:, :, 1:].astype(np.float64)
+        tags["volatility"] = ["log-volatility AR(1) phi", "log-volatility innovation var"]
+    return chain_diagnostics(variables, labels=tags)

@@ -140,3 +140,13 @@ def test_an_ongoing_outlier_period_widens_the_forecast_it_covers():
     assert np.all(ratio > 1.5)  # scales of about 3-6 were estimated for those months
     with pytest.raises(SpecificationError, match="not supported"):
         ongoing.scenario(2, [], rng=np.random.default_rng(0), draws=10)
+
+
+def test_diagnostics_cover_sampled_hyperparameters_and_outlier_scales():
+    frame = two_lines(100, 12)
+    model = FanfoldVAR(prior="independent", lags=1, tightness=0.2, sample_hyper=True,
+                       outliers=[(frame.index[50], 2)], chains=2, burn=50, keep=100)
+    model.fit(frame, rng=np.random.default_rng(0))
+    table = model.convergence().table
+    assert {"hyper", "scale"} <= set(table["variable"])
+    assert set(table[table["variable"] == "hyper"]["element"]) == {"tightness", "cross"}

@@ -268,7 +268,7 @@ def _one_origin(
                       crps_ensemble(paths, filled), qs[0], qs[1], pinball)
         pits[name] = pit_values(rng, paths, filled)
         energies[name] = _energy(rng, paths, actual, scale)
-        if not model.series_.exog_names and not m._time_varying() and m.ragged_ is None:
+        if not model.series_.exog_names and not m.time_varying_shocks() and m.ragged_ is None:
             logs[name] = m.log_predictive_density(actual, rng=rng, draws=min(draws, 500))
 
     def gaussian(name: str, center: FloatArray, sd: FloatArray) -> None:

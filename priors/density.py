@@ -24,7 +24,7 @@ from scipy.special import logsumexp
 from ._types import FloatArray
 from .errors import SpecificationError
 from .predictive import recursion_with_shocks
-from .scenarios import ConditionSet, _restricted_values, _restriction_matrix
+from .scenarios import ConditionSet, restricted_values, restriction_matrix
 from .transforms import DIFFERENCING
 
 __all__ = ["mixture_log_scores", "model_unit_outcomes"]
@@ -83,9 +83,9 @@ def mixture_log_scores(
     conds = ConditionSet(np.tile(np.arange(n), H), np.repeat(np.arange(1, H + 1), n),
                          np.tile(cum, H), np.zeros(H * n), np.zeros(H * n))
     M = np.linalg.cholesky(Sigma)
-    R = _restriction_matrix(B, M, n_det, history.shape[0], H, conds)  # (S, Hn, Hn)
+    R = restriction_matrix(B, M, n_det, history.shape[0], H, conds)  # (S, Hn, Hn)
     mean_path = recursion_with_shocks(B, np.zeros((S, H, n)), history, exog_rows)
-    mu = _restricted_values(mean_path, conds).reshape(S, H, n)
+    mu = restricted_values(mean_path, conds).reshape(S, H, n)
     out = np.full(H, np.nan)
     for h in range(H):
         if not np.all(np.isfinite(w[h])):

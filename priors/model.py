@@ -644,7 +644,7 @@ class FanfoldVAR:
         scales = None if sc is None else sc.reshape(B.shape[0], -1).astype(np.float64)[pick]
         return Draws(B[pick], Sig[pick]), state, scales
 
-    def _time_varying(self) -> bool:
+    def time_varying_shocks(self) -> bool:  # public: the backtest asks it too
         """Whether forecast shocks have a draw- and step-dependent scale (stochastic
         volatility, or an outlier period running into the forecast)."""
         return self.sampler_ is not None and (self.sampler_.volatility is not None
@@ -718,14 +718,14 @@ class FanfoldVAR:
         exog_rows = future_exogenous_rows(series, self.deterministics_, horizon, exog_future)
         history = series.values[-self.lags_:]
         rejected = None
-        if reject_explosive and self._time_varying():
+        if reject_explosive and self.time_varying_shocks():
             raise SpecificationError("reject_explosive is not supported with stochastic "
                                      "volatility or an outlier period running into the "
                                      "forecast yet")
         if reject_explosive:
             kept, rejected = self._stable_draws(rng, draws)
             paths = simulate_paths_from_draws(rng, kept, history, exog_rows)
-        elif self._time_varying():
+        elif self.time_varying_shocks():
             paths = self._scaled_paths(rng, draws, history, exog_rows)
         elif self.sampler_ is not None:
             paths = simulate_paths_from_draws(rng, self.sample(draws, rng=rng), history,
@@ -841,7 +841,7 @@ class FanfoldVAR:
         self._check_fitted()
         horizon = self._check_horizon(horizon)
         draws = check_size(draws)
-        if self._time_varying():
+        if self.time_varying_shocks():
             raise SpecificationError("scenarios and incomplete last periods are not "
                                      "supported with stochastic volatility or an outlier "
                                      "period running into the forecast yet")
@@ -943,7 +943,7 @@ class FanfoldVAR:
         Jacobian, so scores compare across transforms. NaN where an outcome is missing.
         """
         self._check_fitted()
-        if self.ragged_ is not None or self._time_varying():
+        if self.ragged_ is not None or self.time_varying_shocks():
             raise SpecificationError("log predictive densities are not available with "
                                      "incomplete last periods or time-varying shock scales")
         y = np.asarray(actual, dtype=np.float64)

@@ -53,6 +53,8 @@ __all__ = [
     "conditional_paths",
     "conditions_from_table",
     "model_unit_conditions",
+    "restricted_values",
+    "restriction_matrix",
 ]
 
 #: Gibbs sweeps per parameter draw for soft conditions (each sweep updates every
@@ -205,7 +207,7 @@ class ScenarioDraws:
     sweeps: int
 
 
-def _restriction_matrix(B: FloatArray, M: FloatArray, n_det: int, lags: int,
+def restriction_matrix(B: FloatArray, M: FloatArray, n_det: int, lags: int,
                         horizon: int, conds: ConditionSet) -> FloatArray:
     """R (S, q, h*n): the restricted quantities' loadings on the standardised shocks.
 
@@ -225,7 +227,7 @@ def _restriction_matrix(B: FloatArray, M: FloatArray, n_det: int, lags: int,
     return R.reshape(S, conds.size, horizon * n)
 
 
-def _restricted_values(paths: FloatArray, conds: ConditionSet) -> FloatArray:
+def restricted_values(paths: FloatArray, conds: ConditionSet) -> FloatArray:
     """The restricted quantities evaluated on paths (S, h, n): (S, q)."""
     cum = np.cumsum(paths, axis=1)
     src = np.where(conds.cumulative[None, :], cum[:, conds.step - 1, conds.series],
@@ -321,10 +323,10 @@ def conditional_paths(
     baseline = recursion_with_shocks(B, np.einsum("sij,shj->shi", M, z), history, exog_rows)
     if conds.size == 0:
         return ScenarioDraws(baseline, baseline, np.empty(0), 1.0, 0)
-    R = _restriction_matrix(B, M, n_det, p, h, conds)  # (S, q, hn)
+    R = restriction_matrix(B, M, n_det, p, h, conds)  # (S, q, hn)
     zf = z.reshape(S, h * n)
     Rz = np.einsum("sqk,sk->sq", R, zf)
-    centre = _restricted_values(baseline, conds) - Rz  # restricted values of the mean path
+    centre = restricted_values(baseline, conds) - Rz  # restricted values of the mean path
     omega = np.matmul(R, R.transpose(0, 2, 1))  # (S, q, q) = Cov(R u)
     sd = np.sqrt(np.diagonal(omega, axis1=1, axis2=2))
     lower, upper = conds.lower - centre, conds.upper - centre  # bounds on w = R u

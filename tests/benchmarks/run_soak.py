@@ -32,6 +32,7 @@ sys.path.insert(0, str(HERE))
 sys.path.insert(0, str(HERE.parents[1]))
 
 from run_benchmarks import cpu_model, repo_commit, write_report  # noqa: E402
+from run_service_benchmark import start_server  # noqa: E402
 
 DEMO = HERE.parents[1] / "examples" / "bike_parts_demand.csv"
 
@@ -43,21 +44,8 @@ def _free_port() -> int:
 
 
 def _start(port: int, env: dict[str, str], log: Path) -> subprocess.Popen:
-    with log.open("ab") as err:
-        proc = subprocess.Popen([sys.executable, "-m", "service", "serve", "--port", str(port)],
-                                env={**os.environ, **env}, stdout=subprocess.DEVNULL,
-                                stderr=err)
-    deadline = time.monotonic() + 60
-    while time.monotonic() < deadline:
-        if proc.poll() is not None:
-            raise RuntimeError(log.read_text()[-2000:])
-        try:
-            if httpx.get(f"http://127.0.0.1:{port}/readyz", timeout=1).status_code == 200:
-                return proc
-        except httpx.HTTPError:
-            time.sleep(0.1)
-    proc.kill()
-    raise RuntimeError("server not ready within 60 s")
+    return start_server([sys.executable, "-m", "service", "serve", "--port", str(port)],
+                        port, log, {**os.environ, **env}, [])
 
 
 def _bodies() -> list[dict]:

@@ -7,8 +7,9 @@ import hashlib
 import uuid
 from typing import Any
 
-from fastapi import Request
+from fastapi import Request, Response
 from fastapi.concurrency import run_in_threadpool
+from fastapi.responses import JSONResponse
 from starlette.exceptions import HTTPException
 
 from ...errors import PROBLEM_JSON
@@ -59,3 +60,16 @@ def not_modified(request: Request, etag: str) -> bool:
     """Whether If-None-Match matches ``etag`` (RFC 9110 sec. 13.1.2, weak comparison)."""
     given = request.headers.get("if-none-match", "")
     return given.strip() == "*" or etag in [t.strip() for t in given.split(",")]
+
+
+async def cached_model_answer(request: Request, row: StoredModel, settings: Any,
+                              key: tuple[object, ...], work: Any) -> Response:
+    """A GET answer about a stored model, deterministic in ``key``: 304 when
+    If-None-Match has its ETag, else ``work()`` under the request timeout, with the
+    model's id and version and the caching headers."""
+    etag, headers = etag_for(row, *key)
+    if not_modified(request, etag):
+        return Response(status_code=304, headers=headers)
+    answer = await timed(settings, work)
+    return JSONResponse({"model_id": row.id, "version": row.version, **answer},
+                        headers=headers)

@@ -26,8 +26,7 @@ from ._shared import (
     INVALID,
     NOT_FOUND,
     NOT_MODIFIED,
-    etag_for,
-    not_modified,
+    cached_model_answer,
     parse_bands,
     row_or_404,
     timed,
@@ -93,19 +92,15 @@ async def impulse_responses(
 ) -> Response:
     row = row_or_404(session, tenant, model_id)
     levels, order = parse_bands(bands), _ordering(ordering, identification)
-    etag, headers = etag_for(row, "irf", horizon, identification, order, shock_size,
-                             cumulative, draws, seed, levels)
-    if not_modified(request, etag):
-        return Response(status_code=304, headers=headers)
 
     def work() -> dict[str, Any]:
         return shocks_answer(load_fitted(row), horizon=horizon, identification=identification,
                              shock_size=shock_size, ordering=order, cumulative=cumulative,
                              draws=draws, seed=seed, bands=levels, limits=settings)
 
-    answer = await timed(settings, work)
-    return JSONResponse({"model_id": row.id, "version": row.version, **answer},
-                        headers=headers)
+    return await cached_model_answer(request, row, settings, (
+        "irf", horizon, identification, order, shock_size, cumulative, draws, seed, levels),
+        work)
 
 
 @router.get("/{model_id}/variance-decomposition", response_model=SharesPublic,
@@ -120,18 +115,15 @@ async def variance_decomposition(
 ) -> Response:
     row = row_or_404(session, tenant, model_id)
     levels, order = parse_bands(bands), _ordering(ordering, identification)
-    etag, headers = etag_for(row, "fevd", horizon, identification, order, draws, seed, levels)
-    if not_modified(request, etag):
-        return Response(status_code=304, headers=headers)
 
     def work() -> dict[str, Any]:
         return shares_answer(load_fitted(row), horizon=horizon, identification=identification,
                              ordering=order, draws=draws, seed=seed, bands=levels,
                              limits=settings)
 
-    answer = await timed(settings, work)
-    return JSONResponse({"model_id": row.id, "version": row.version, **answer},
-                        headers=headers)
+    return await cached_model_answer(
+        request, row, settings, ("fevd", horizon, identification, order, draws, seed, levels),
+        work)
 
 
 @router.post("/{model_id}/replenishment", response_model=ReplenishmentPublic,

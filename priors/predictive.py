@@ -1,36 +1,39 @@
 """Simulated predictive paths of a VAR under an NIW posterior.
 
 :func:`simulate_paths` draws from the posterior predictive with one of two exact
-samplers of the same distribution, whichever is cheaper for the model's size:
+samplers of the same distribution:
 
-- "projection" never forms B. The forecast needs B only through ``B'x_h``
-  and, with ``B = B_bar + R^-1 Z M'``, ``B'x_h = B_bar'x_h + M Z'v_h`` where
-  ``v_h = R^-T x_h``. The vectors ``Z'v_1, ..., Z'v_H`` are jointly normal with
-  ``Cov(Z'v_g, Z'v_h) = (v_g'v_h) I_n``, so they can be drawn step by step by
-  orthogonalising the v_h as they appear (classical Gram-Schmidt, twice for
-  stability; for h <= k/2 an update of the inverse Cholesky factor of their Gram
-  matrix, which needs one pass over the stored vectors): O(k^2) flops and 2n normals per
-  draw and step instead of O(k^2 n) flops and k*n normals per draw.
+- "projection" (the default) never forms B. The forecast needs B only through ``B'x_h``
+  and, with ``B = B_bar + R^-1 Z M'`` and shocks ``M z_h``,
+  ``y_h = B_bar'x_h + M (Z'v_h + z_h)`` where ``v_h = R^-T x_h``. Given the path so far
+  the vectors ``u_h = Z'v_h + z_h`` are jointly normal with
+  ``Cov(u_g, u_h) = (v_g'v_h + [g == h]) I_n`` (rotation invariance of Z), so they are
+  drawn step by step from the Cholesky factor of that Gram matrix, grown one row per
+  step: O(h k^2) flops and n normals per draw and step instead of O(k^2 n) flops and
+  k n normals per draw. The inner loop is compiled (:mod:`priors._kernels`).
 - "explicit" draws (B, Sigma) and runs the recursion: O(k^2 n) per draw once, then
-  O(k n) per step. It is the cheaper one for small models (n < h and k < 2h; measured
-  2.6x faster at n=3, p=4, h=12).
+  O(k n) per step. Kept as an independent check of the projection sampler.
 
 :func:`simulate_paths_from_draws` runs the recursion for given draws, e.g. draws screened
 for explosive dynamics or drawn by another sampler.
 
 Shapes: ``history`` is (p, n), oldest row first; ``exog_rows`` is (h, m); paths are
-(S, h, n) in model units.
+(S, h, n) in model units (the projection sampler returns a view of an (h, n, S) array,
+the layout the quantile kernel reads).
 """
 
 from __future__ import annotations
 
+import threading
+
 import numpy as np
 from scipy.linalg import solve_triangular
 
+from ._kernels import gram_shock_step
 from ._types import FloatArray
 from .conjugate import NIWPosterior
 from .errors import SpecificationError
-from .sampling import Draws, check_size, draw_sigma_roots
+from .sampling import Draws, check_size, draw_sigma_roots, sigma_roots_draws_last
 
 __all__ = [
     "METHODS",
@@ -53,8 +56,9 @@ def _start_lags(history: FloatArray, size: int) -> FloatArray:
     return np.repeat(history[::-1][None], size, axis=0)
 
 
-#: draws per block in :func:`simulate_paths`: keeps the (block, h, k) basis in cache
-_BLOCK_DOUBLES = 8_000_000
+#: bytes of stored v_h per block of draws in the projection sampler: about the L2 cache
+#: of a core (measured fastest between 1 and 4 MiB at n=7..20, p=12..13)
+_BLOCK_BYTES = 2 * 1024 * 1024
 
 
 METHODS = ("auto", "projection", "explicit")
@@ -71,18 +75,33 @@ def simulate_paths(
 ) -> FloatArray:
     """Draw ``size`` predictive paths of ``h = len(exog_rows)`` steps, (S, h, n).
 
-    ``method``: "projection", "explicit" or "auto" (explicit when n < h and h > k/2,
-    i.e. few series and few regressors; projection otherwise). Both are exact; the same
-    seed gives the same paths for the same method.
+    ``method``: "projection", "explicit" or "auto" (projection: the faster one at every
+    size measured, see tests/benchmarks). Both are exact; the same seed gives the same
+    paths for the same method.
     """
     if method not in METHODS:
         raise SpecificationError(f"method must be one of {', '.join(METHODS)}; got {method!r}")
     size = check_size(size)
-    n, h = post.B.shape[1], exog_rows.shape[0]
-    k = post.B.shape[0]
-    if method == "explicit" or (method == "auto" and n < h and 2 * h > k):
+    if method == "explicit":
         return _simulate_explicit(rng, post, history, exog_rows, size)
     return _simulate_projected(rng, post, history, exog_rows, size)
+
+
+_local = threading.local()
+
+
+def _workspace(doubles: int) -> FloatArray:
+    """A float64 work buffer of at least ``doubles`` entries, kept per thread.
+
+    Reusing it spares the page faults of fresh large arrays on every forecast (measured
+    at about a third of the sampler's time for n=3, p=4); one buffer per thread keeps
+    concurrent forecasts apart.
+    """
+    buf = getattr(_local, "buf", None)
+    if buf is None or buf.size < doubles:
+        buf = np.empty(doubles)
+        _local.buf = buf
+    return buf
 
 
 def _simulate_projected(
@@ -94,100 +113,62 @@ def _simulate_projected(
 ) -> FloatArray:
     """The projection sampler, (S, h, n).
 
-    Only numpy's BLAS runs inside the step loop (R^-1 is formed once), and draws are
-    processed in blocks so the Gram-Schmidt basis stays in cache. Only the lags already
-    simulated differ between draws, so ``x_h' B_bar`` and ``R^-T x_h`` are a shared part
-    plus a product over the ``n * min(step, p)`` simulated entries.
+    With ``B = B_bar + R^-1 Z M'`` and shocks ``M z_h``, ``y_h = B_bar'x_h + M u_h`` with
+    ``u_h = Z'v_h + z_h`` and ``v_h = R^-T x_h``. Given the paths so far, the u_h are
+    jointly normal with ``Cov(u_g, u_h) = (v_g'v_h + [g == h]) I_n``, so
+    ``u_h = sum_g L_hg w_g`` with i.i.d. N(0, I_n) vectors w_g and L the Cholesky factor
+    of that Gram matrix plus I, grown one row per step (n normals per step and draw).
+    Because of the + I every pivot is >= 1: no breakdown when the v_h are dependent.
+
+    Draws run in blocks (draws on the last axis) whose stored v_h fit in cache. Per
+    step, one BLAS product over the block gives the simulated parts of ``B_bar'x_h``
+    and ``R^-T x_h`` (only the lags already simulated differ between draws); the
+    compiled kernel :func:`priors._kernels.gram_shock_step` does the rest.
     """
     size = check_size(size)
     h, m = exog_rows.shape
     k, n = post.B.shape
     p = history.shape[0]
-    M = draw_sigma_roots(rng, post.S, post.df, size)
-    # every path normal at once, in the order the step loop used to draw them
-    normals = rng.standard_normal((h, 2, size, n))
     Rinv = solve_triangular(post.R, np.eye(k), lower=False, check_finite=False)
+    # [B_bar | R^-1]' with the lag blocks in reverse order (lag p first): the simulated
+    # lags of a step, oldest first, are then one contiguous slice of the block's paths
+    # and of these columns. Columns of R^-1 before m are zero in the lag rows.
+    lag_rows = np.arange(m, k).reshape(p, n)[::-1].ravel()
+    BRt = np.ascontiguousarray(np.concatenate([post.B[lag_rows], Rinv[lag_rows, m:]], axis=1).T)
     past = history[::-1].reshape(-1)  # lag 1 first, (p n,)
-    rev = np.empty((size, h, n))  # paths newest first: step t at position h - 1 - t
-    nblocks = -(-size * h * k // _BLOCK_DOUBLES)  # ceil: blocks of equal size
+    fixed_x = np.zeros((h, k))
+    for step in range(h):
+        w = n * min(step, p)
+        fixed_x[step, :m] = exog_rows[step]
+        fixed_x[step, m + w :] = past[: n * p - w]
+    mean_fix = fixed_x @ post.B  # (h, n)
+    v_fix = fixed_x @ Rinv  # (h, k)
+    paths = np.empty((h, n, size))  # returned as the (S, h, n) view
+    nblocks = -(-size * h * k * 8 // _BLOCK_BYTES)  # ceil, then blocks of equal size
     block = -(-size // nblocks)
-    # h <= k/2: update the Cholesky factor of the Gram matrix of the v_h (one pass over
-    # the stored v_h per step); otherwise the v_h may become dependent and classical
-    # Gram-Schmidt, repeated once, is kept for its accuracy.
-    gram = 2 * h <= k
-    Q = np.empty((h, block, k))  # step-major: batched dot products run faster
-    Lg = np.zeros((block, h, h)) if gram else None  # inverse Cholesky factor of the Gram
-    coef = np.zeros((block, h))
+    sizes = {"V": h * k, "Linv": h * h, "out": h * n, "W": h * n, "scratch": 2 * h + n + 2}
+    buf = _workspace(block * sum(sizes.values()))
     for lo in range(0, size, block):
-        hi = min(lo + block, size)
-        s = hi - lo
-        Qb, cb, Mb, out = Q[:, :s], coef[:s], M[lo:hi], rev[lo:hi]
+        s = min(block, size - lo)
+        work, at = {}, 0
+        for name, rows in sizes.items():  # contiguous (..., s) views of the work space
+            work[name] = buf[at : at + rows * s]
+            at += rows * s
+        V, Linv = work["V"].reshape(h, k, s), work["Linv"].reshape(h, h, s)
+        out, W = work["out"].reshape(h, n, s), work["W"].reshape(h, n, s)
+        scratch, none = work["scratch"].reshape(-1, s), buf[:0].reshape(0, s)
+        # random numbers block by block (the stream depends on the block size)
+        M = sigma_roots_draws_last(rng, post.S, post.df, s)  # (n, n, s)
+        rng.standard_normal(out=W)
         for step in range(h):
             lags = min(step, p)
-            w = n * lags  # entries of x simulated in this block
-            x_fix = np.concatenate([exog_rows[step], np.zeros(w), past[: n * p - w]])
-            mean = np.broadcast_to(x_fix @ post.B, (s, n))
-            v = np.broadcast_to(x_fix @ Rinv, (s, k))
-            if w:
-                x_sim = out[:, h - step : h - step + lags].reshape(s, w)  # lag 1 first
-                mean = mean + x_sim @ post.B[m : m + w]
-                v = v.copy()
-                v[:, m:] += x_sim @ Rinv[m : m + w, m:]  # R^-1 is upper triangular
-            cb[:] = 0.0
-            if gram:
-                _gram_step(Qb, Lg[:s], cb, v, step)
-            else:
-                _gram_schmidt_step(Qb, cb, v, step)
-            e = np.einsum("sg,gsn->sn", cb[:, : step + 1], normals[: step + 1, 0, lo:hi])
-            e += normals[step, 1, lo:hi]
-            out[:, h - 1 - step] = mean + np.einsum("sij,sj->si", Mb, e)
-    return np.ascontiguousarray(rev[:, ::-1])
-
-
-def _gram_schmidt_step(Q: FloatArray, coef: FloatArray, v: FloatArray, step: int) -> None:
-    """Orthonormalise v (s, k) against Q[:step] (Q is (h, s, k)); write Q[step] and
-    coef[:, :step+1].
-
-    coef[:, g] = q_g'v for g < step and coef[:, step] = the norm of the remainder, so
-    Z'v = sum_g coef_g Z'q_g with independent N(0, I_n) vectors Z'q_g.
-    """
-    r = v
-    if step:
-        Qp = Q[:step]
-        for _ in range(2):  # classical Gram-Schmidt, repeated once
-            c = np.einsum("gsk,sk->sg", Qp, r)
-            r = r - np.einsum("sg,gsk->sk", c, Qp)
-            coef[:, :step] += c
-    rho = np.linalg.norm(r, axis=1)
-    # once h > k the v_h are linearly dependent: no new direction, no new normal
-    rho = np.where(rho > 1e-9 * np.linalg.norm(v, axis=1), rho, 0.0)
-    scale = np.divide(1.0, rho, out=np.zeros_like(rho), where=rho > 0)
-    np.multiply(r, scale[:, None], out=Q[step])
-    coef[:, step] = rho
-
-
-def _gram_step(V: FloatArray, Linv: FloatArray, coef: FloatArray, v: FloatArray,
-               step: int) -> None:
-    """The same coefficients from the Cholesky factor L of the Gram matrix of V.
-
-    V is (h, s, k); ``Linv`` holds L^-1 (lower triangular, per draw). The new row of L
-    is l = L^-1 V[:step] v with diagonal rho = sqrt(v'v - l'l), and the new row of
-    L^-1 is (-l' L^-1 / rho, 1 / rho), so no triangular solve is needed. A direction
-    with rho = 0 (v dependent on earlier ones) gets a zero row. Stores v in V[step].
-    """
-    ell = coef[:, :step]
-    if step:
-        g = np.einsum("gsk,sk->sg", V[:step], v)
-        np.einsum("sij,sj->si", Linv[:, :step, :step], g, out=ell)
-    vv = np.einsum("sk,sk->s", v, v)
-    rho2 = vv - np.einsum("sg,sg->s", ell, ell)
-    rho = np.sqrt(np.where(rho2 > 1e-12 * vv, rho2, 0.0))
-    inv = np.divide(1.0, rho, out=np.zeros_like(rho), where=rho > 0)
-    if step:
-        Linv[:, step, :step] = -np.einsum("sj,sji->si", ell, Linv[:, :step, :step]) * inv[:, None]
-    Linv[:, step, step] = inv
-    coef[:, step] = rho
-    V[step] = v
+            G = out[step - lags : step].reshape(n * lags, s) if lags else none
+            if lags:
+                G = BRt[:, n * (p - lags) :] @ G  # (n + k - m, s)
+            gram_shock_step(V, Linv, W, M, G, v_fix[step], mean_fix[step], out, step, m,
+                            scratch)
+        paths[..., lo : lo + s] = out
+    return paths.transpose(2, 0, 1)
 
 
 def _simulate_explicit(

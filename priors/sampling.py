@@ -14,11 +14,18 @@ from dataclasses import dataclass
 import numpy as np
 from scipy.linalg import solve_triangular
 
+from ._kernels import bartlett_roots
 from ._types import FloatArray
 from .conjugate import NIWPosterior
 from .errors import NotPositiveDefiniteError, SpecificationError
 
-__all__ = ["Draws", "draw_coefficients", "draw_sigma_roots", "sample_posterior"]
+__all__ = [
+    "Draws",
+    "draw_coefficients",
+    "draw_sigma_roots",
+    "sample_posterior",
+    "sigma_roots_draws_last",
+]
 
 
 @dataclass(frozen=True)
@@ -41,6 +48,12 @@ def check_size(size: int) -> int:
 
 def draw_sigma_roots(rng: np.random.Generator, S: FloatArray, df: float, size: int) -> FloatArray:
     """Square roots M of Sigma ~ IW(S, df): Sigma = M M'. Returns (size, n, n)."""
+    return np.ascontiguousarray(sigma_roots_draws_last(rng, S, df, size).transpose(2, 0, 1))
+
+
+def sigma_roots_draws_last(rng: np.random.Generator, S: FloatArray, df: float,
+                           size: int) -> FloatArray:
+    """The roots of :func:`draw_sigma_roots` with the draws on the last axis, (n, n, size)."""
     n = S.shape[0]
     if not df > n - 1:
         raise SpecificationError(f"inverse-Wishart needs df > n - 1; got df={df}, n={n}")
@@ -48,24 +61,11 @@ def draw_sigma_roots(rng: np.random.Generator, S: FloatArray, df: float, size: i
         L_S = np.linalg.cholesky(S)
     except np.linalg.LinAlgError as exc:
         raise NotPositiveDefiniteError("posterior scale S is not positive definite") from exc
-    A = np.zeros((size, n, n))
     chi_df = df - np.arange(n)
-    A[:, np.arange(n), np.arange(n)] = np.sqrt(rng.chisquare(chi_df, size=(size, n)))
-    if n > 1:
-        below = rng.standard_normal((size, n * (n - 1) // 2))  # row-major lower triangle
-        for i in range(1, n):
-            A[:, i, :i] = below[:, i * (i - 1) // 2 : i * (i + 1) // 2]
-    # M = L_S A^-T, i.e. M' = A^-1 L_S'. A is lower triangular: solve A M' = L_S'.
-    Lt = L_S.T
-    if n >= 32:  # scipy batches solve_triangular over the leading axis in one call
-        Mt = solve_triangular(A, np.broadcast_to(Lt, (size, n, n)), lower=True,
-                              check_finite=False)
-    else:  # forward substitution, row by row, vectorised over the draws
-        Mt = np.empty((size, n, n))
-        Mt[:, 0] = Lt[0] / A[:, 0, :1]
-        for i in range(1, n):
-            Mt[:, i] = (Lt[i] - (A[:, i, None, :i] @ Mt[:, :i])[:, 0]) / A[:, i, i : i + 1]
-    return np.swapaxes(Mt, 1, 2)
+    diag = np.sqrt(rng.chisquare(chi_df, size=(size, n)))
+    below = rng.standard_normal((size, n * (n - 1) // 2))  # row-major lower triangle
+    # M = L_S A^-T, i.e. M' = A^-1 L_S': forward substitution per draw (compiled)
+    return bartlett_roots(L_S, diag, below)
 
 
 def draw_coefficients(rng: np.random.Generator, post: NIWPosterior, M: FloatArray) -> FloatArray:

@@ -150,12 +150,30 @@ class TightnessProfile:
             - 0.5 * self._df * logdet_S
         )
 
+    def many(self, tightness: FloatArray) -> FloatArray:
+        """log p(Y | tightness) at each of the (L,) values at once (as ``__call__``, up
+        to the order of summation), -inf where S is not positive definite."""
+        lam = np.asarray(tightness, dtype=np.float64)
+        lam2 = lam * lam
+        H = self._G1[None] + self._G2[None] / lam2[:, None, None]  # (L, np, n)
+        d = 1.0 / (self._e[None] + 1.0 / lam2[:, None])
+        quad = np.matmul(np.swapaxes(H * d[:, :, None], 1, 2), H)  # (L, n, n)
+        S = (self._S0 + self._YY_minus_d)[None] + self._B0WB0[None] / lam2[:, None, None] - quad
+        S = 0.5 * (S + np.swapaxes(S, 1, 2))
+        sign, logdet_S = np.linalg.slogdet(S)
+        logdet_Sc_part = np.sum(np.log(self._e[None] + 1.0 / lam2[:, None]), axis=1)
+        value = (self._const - self._n * self._kl * np.log(lam)
+                 - 0.5 * self._n * logdet_Sc_part - 0.5 * self._df * logdet_S)
+        return np.where(sign > 0, value, -np.inf)
+
 
 def _objective_factory(
     design: Design, base: MinnesotaHyper, prior_mean: FloatArray, psi: FloatArray,
     names: tuple[str, ...], hyperprior: bool,
-) -> Callable[[FloatArray], tuple[float, float]]:
-    """Map log-hyperparameters to (objective, log_ml)."""
+) -> tuple[Callable[[FloatArray], tuple[float, float]],
+           Callable[[FloatArray], FloatArray] | None]:
+    """Map log-hyperparameters to (objective, log_ml); and, for the tightness alone,
+    a map of an (L,) grid of log-tightness values to the (L,) objectives at once."""
     profile = None
     moments = None  # cross-products only for the general (non-profile) path
     if names == ("tightness",) and base.sum_coef is None and base.initial is None:
@@ -184,7 +202,16 @@ def _objective_factory(
             obj += sum(log_hyperprior(nm, v) for nm, v in values.items())
         return obj, lml
 
-    return evaluate
+    if profile is None:
+        return evaluate, None
+
+    def evaluate_grid(logs: FloatArray) -> FloatArray:
+        obj = profile.many(np.exp(logs))
+        if hyperprior:
+            obj = obj + np.array([log_hyperprior("tightness", v) for v in np.exp(logs)])
+        return obj
+
+    return evaluate, evaluate_grid
 
 
 def tune_hyperparameters(
@@ -203,7 +230,8 @@ def tune_hyperparameters(
     """
     psi = ar_residual_variances(design) if psi is None else psi
     names = tuple(tune)
-    evaluate = _objective_factory(design, base, prior_mean, psi, names, hyperprior)
+    evaluate, evaluate_grid = _objective_factory(design, base, prior_mean, psi, names,
+                                                 hyperprior)
     lo = np.log([BOUNDS[nm][0] for nm in names])
     hi = np.log([BOUNDS[nm][1] for nm in names])
     count = 0
@@ -217,7 +245,12 @@ def tune_hyperparameters(
     if len(names) == 1:
         # coarse grid then bounded Brent, so a multimodal profile does not trap us
         grid = np.linspace(lo[0], hi[0], 15)  # neighbours 2.2x apart
-        vals = [negative(np.array([g])) for g in grid]
+        if evaluate_grid is not None:  # one batched evaluation of the whole grid
+            count += grid.size
+            found = evaluate_grid(grid)
+            vals = np.where(np.isfinite(found), -found, 1e300).tolist()
+        else:
+            vals = [negative(np.array([g])) for g in grid]
         i = int(np.argmin(vals))
         a, b = grid[max(i - 1, 0)], grid[min(i + 1, len(grid) - 1)]
         res = minimize_scalar(negative, bounds=(a, b), method="bounded",

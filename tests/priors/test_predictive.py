@@ -33,12 +33,12 @@ def _setup(known_var, rng, T=60, lags=1, n=2):
     (1, 8, "projection"), (3, 8, "projection"), (6, 6, "projection"), (3, 8, "explicit"),
 ])
 def test_samplers_match_explicit_parameter_draws(known_var, rng, lags, h, method):
-    # The projection trick (draw Z'R^-T x_h by Gram-Schmidt) must give the same joint
-    # distribution as explicit (B, Sigma) draws. With lags=1, h = 8 > k = 3 also covers
-    # the steps where the projection vectors become linearly dependent; lags=3 covers
-    # steps that mix observed and simulated lags; lags=6, h=6 <= k/2 = 6.5 takes the
-    # Gram-matrix Cholesky route instead of Gram-Schmidt. "explicit" applies M_s per
-    # step instead of forming B_s, which must not change the distribution either.
+    # The projection trick (draw u_h = Z'R^-T x_h + z_h from the Cholesky factor of
+    # their Gram matrix) must give the same joint distribution as explicit (B, Sigma)
+    # draws. With lags=1, h = 8 > k = 3 also covers the steps where the projection
+    # vectors become linearly dependent; lags=3 covers steps that mix observed and
+    # simulated lags; lags=6, h=6 has many regressors per step. "explicit" applies M_s
+    # per step instead of forming B_s, which must not change the distribution either.
     design, post, series = _setup(known_var, rng, lags=lags)
     S = 40_000
     exog = future_exogenous_rows(series, Deterministics(), h)

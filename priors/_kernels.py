@@ -1,0 +1,254 @@
+"""Compiled inner loops (numba) for the predictive simulation and its summaries.
+
+Each kernel is a loop over draws that numpy can only express as many small batched
+calls; compiled, the per-draw work stays in registers and L1. The kernels take and fill
+plain float64 arrays, never draw random numbers (the caller passes the normals, so the
+numpy ``Generator`` stream decides every value), and are compiled once per machine:
+``cache=True`` stores the machine code next to this file (or in ``NUMBA_CACHE_DIR``).
+
+``fastmath`` (without the no-NaN/no-inf assumptions) lets the compiler reorder sums so
+the dot products vectorise; results agree with the numpy reference to rounding (tests
+compare them), and the same inputs always give the same bits on the same machine.
+"""
+
+from __future__ import annotations
+
+from math import sqrt
+
+import numpy as np
+from numba import njit
+
+__all__ = ["bartlett_roots", "gram_shock_step", "select_quantiles"]
+
+#: fastmath without "nnan"/"ninf": sums may be reordered, NaN and inf keep their meaning
+_FAST = {"nsz", "arcp", "contract", "afn", "reassoc"}
+_JIT = {"cache": True, "fastmath": _FAST, "boundscheck": False, "nogil": True}
+
+
+@njit(**_JIT)
+def gram_shock_step(V, Linv, W, M, G, v_fix, mean_fix, out, step, m, scratch):
+    # pragma: no cover - compiled
+    """One predictive step for a block of s draws, in place; the draws are the last,
+    contiguous axis of every array, so each loop below is a vector loop over draws.
+
+    Shapes: V (h, k, s) the v_g = R^-T x_g of the earlier steps (row ``step`` is
+    written here: v_fix (k,) plus the simulated part G[n:] in rows m..k); Linv
+    (h, h, s) the inverse Cholesky factor of the augmented Gram matrix
+    [v_g'v_j + (g == j)] of the earlier steps (row ``step`` is written here); W (h, n, s)
+    standard normals; M (n, n, s) roots of Sigma; G (n + k - m, s) the simulated parts
+    of B_bar'x_step (first n rows) and of R^-T x_step (zero rows when no lag is
+    simulated yet); mean_fix (n,) the shared part of B_bar'x_step; out (h, n, s)
+    receives y_step = B_bar'x_step + M u with u = sum_g L[step, g] W[g].
+    scratch: (2 h + n + 2, s) work space.
+
+    The augmented Gram matrix is positive definite with every Schur complement >= 1, so
+    the update never breaks down, even when the v_h are linearly dependent (h > k).
+    """
+    h, k, s_count = V.shape
+    n = mean_fix.shape[0]
+    has_sim = G.shape[0] > 0
+    d = scratch[:h]
+    ell = scratch[h : 2 * h]
+    e = scratch[2 * h : 2 * h + n]
+    vv = scratch[2 * h + n]
+    ss = scratch[2 * h + n + 1]
+    for i in range(k):
+        x = v_fix[i]
+        if has_sim and i >= m:
+            for t in range(s_count):
+                V[step, i, t] = x + G[n + i - m, t]
+        else:
+            for t in range(s_count):
+                V[step, i, t] = x
+    for t in range(s_count):
+        vv[t] = 1.0
+        ss[t] = 0.0
+    for i in range(k):
+        for t in range(s_count):
+            vv[t] += V[step, i, t] * V[step, i, t]
+    for j in range(step):
+        for t in range(s_count):
+            d[j, t] = 0.0
+        for i in range(k):
+            for t in range(s_count):
+                d[j, t] += V[j, i, t] * V[step, i, t]
+    for g in range(step):
+        for t in range(s_count):
+            ell[g, t] = 0.0
+        for j in range(g + 1):
+            for t in range(s_count):
+                ell[g, t] += Linv[g, j, t] * d[j, t]
+        for t in range(s_count):
+            ss[t] += ell[g, t] * ell[g, t]
+    for t in range(s_count):  # reuse vv as rho, ss as 1 / rho
+        rho2 = vv[t] - ss[t]
+        vv[t] = sqrt(rho2) if rho2 > 1.0 else 1.0  # >= 1 in exact arithmetic
+        ss[t] = 1.0 / vv[t]
+    for j in range(step):
+        for t in range(s_count):
+            Linv[step, j, t] = 0.0
+        for g in range(j, step):
+            for t in range(s_count):
+                Linv[step, j, t] -= ell[g, t] * Linv[g, j, t]
+        for t in range(s_count):
+            Linv[step, j, t] *= ss[t]
+    for t in range(s_count):
+        Linv[step, step, t] = ss[t]
+    for c in range(n):
+        for t in range(s_count):
+            e[c, t] = vv[t] * W[step, c, t]
+        for g in range(step):
+            for t in range(s_count):
+                e[c, t] += ell[g, t] * W[g, c, t]
+    for r in range(n):
+        for t in range(s_count):
+            out[step, r, t] = mean_fix[r]
+        if has_sim:
+            for t in range(s_count):
+                out[step, r, t] += G[r, t]
+        for c in range(n):
+            for t in range(s_count):
+                out[step, r, t] += M[r, c, t] * e[c, t]
+
+
+@njit(**_JIT)
+def bartlett_roots(L_S, diag, below):  # pragma: no cover - compiled
+    """M = L_S A^-T for each draw of the Bartlett factor A, stored draws last:
+    ``out[:, :, s]`` is M_s, (n, n, S).
+
+    L_S (n, n) lower triangular; diag (S, n) the diagonal of A; below (S, n(n-1)/2) its
+    strict lower triangle row by row. Forward substitution, row i of M' at a time.
+    """
+    size, n = diag.shape
+    out = np.empty((n, n, size))
+    Mt = np.empty((n, n))
+    for s in range(size):
+        for i in range(n):
+            base = i * (i - 1) // 2
+            for c in range(n):
+                Mt[i, c] = L_S[c, i]
+            for j in range(i):
+                a = below[s, base + j]
+                for c in range(n):
+                    Mt[i, c] -= a * Mt[j, c]
+            inv = 1.0 / diag[s, i]
+            for c in range(n):
+                Mt[i, c] *= inv
+        for r in range(n):
+            for c in range(n):
+                out[r, c, s] = Mt[c, r]
+    return out
+
+
+@njit(**_JIT)
+def _sift_down(a, lo, root, end):  # pragma: no cover - compiled
+    """Restore the max-heap a[lo:lo+end] below position ``root`` (0-based in the heap)."""
+    while 2 * root + 1 < end:
+        child = 2 * root + 1
+        if child + 1 < end and a[lo + child] < a[lo + child + 1]:
+            child += 1
+        if a[lo + root] < a[lo + child]:
+            a[lo + root], a[lo + child] = a[lo + child], a[lo + root]
+            root = child
+        else:
+            return
+
+
+@njit(**_JIT)
+def _heapsort(a, lo, hi):  # pragma: no cover - compiled
+    """Sort a[lo:hi+1] in place, O(m log m) whatever the data (no NaN: callers check)."""
+    count = hi - lo + 1
+    for start in range(count // 2 - 1, -1, -1):
+        _sift_down(a, lo, start, count)
+    for end in range(count - 1, 0, -1):
+        a[lo], a[lo + end] = a[lo + end], a[lo]
+        _sift_down(a, lo, 0, end)
+
+
+@njit(**_JIT)
+def _select(a, lo, hi, kth):  # pragma: no cover - compiled
+    """Quickselect on a[lo:hi+1]: afterwards a[kth] is the kth smallest value, with
+    nothing larger before it and nothing smaller after it.
+
+    Lomuto partition written without a data-dependent branch (the swap always happens
+    and the store index advances by the comparison), median-of-three pivot; after 48
+    rounds (heavy ties or adversarial data) the rest of the range is sorted instead.
+    """
+    rounds = 0
+    while hi > lo:
+        rounds += 1
+        if rounds > 48:
+            _heapsort(a, lo, hi)
+            return
+        mid = (lo + hi) // 2
+        if a[mid] < a[lo]:
+            a[mid], a[lo] = a[lo], a[mid]
+        if a[hi] < a[lo]:
+            a[hi], a[lo] = a[lo], a[hi]
+        if a[mid] < a[hi]:
+            a[mid], a[hi] = a[hi], a[mid]
+        pivot = a[hi]  # the median of the three
+        store = lo
+        for i in range(lo, hi):
+            x = a[i]
+            a[i] = a[store]
+            a[store] = x
+            store += x < pivot
+        a[hi] = a[store]
+        a[store] = pivot
+        if kth == store:
+            return
+        if kth < store:
+            hi = store - 1
+        else:
+            lo = store + 1
+
+
+@njit(cache=True, fastmath=False)
+def _lerp(a, b, t):  # pragma: no cover - compiled
+    """numpy's quantile interpolation, without contraction to FMA (bit-equal results)."""
+    diff = b - a
+    return b - diff * (1.0 - t) if t >= 0.5 else a + diff * t
+
+
+@njit(**_JIT)
+def select_quantiles(X, levels):  # pragma: no cover - compiled
+    """Type-7 quantiles of each row of X (c, S) at sorted ``levels``: (len(levels), c).
+
+    Order statistics by quickselect on a copy of each row, each selection restricted to
+    the part at or above the previous one; interpolation as numpy's ``quantile``
+    (``_lerp``: a + (b - a) t, or b - (b - a)(1 - t) when t >= 0.5), so the values
+    equal ``np.quantile(X, levels, axis=1)`` bit for bit. A row with a NaN gives NaN,
+    as in numpy.
+    """
+    c, size = X.shape
+    nq = levels.shape[0]
+    out = np.empty((nq, c))
+    buf = np.empty(size)
+    for r in range(c):
+        has_nan = False
+        for i in range(size):
+            x = X[r, i]
+            buf[i] = x
+            if x != x:
+                has_nan = True
+        if has_nan:
+            for q in range(nq):
+                out[q, r] = np.nan
+            continue
+        start = 0
+        for q in range(nq):
+            pos = (size - 1) * levels[q]  # numpy's "linear" virtual index
+            lo = min(int(np.floor(pos)), size - 1)
+            t = pos - lo
+            _select(buf, start, size - 1, lo)
+            start = lo
+            a = buf[lo]
+            b = a
+            if lo + 1 <= size - 1:
+                b = buf[lo + 1]
+                for i in range(lo + 2, size):  # the next order statistic
+                    if buf[i] < b:
+                        b = buf[i]
+            out[q, r] = _lerp(a, b, t)
+    return out

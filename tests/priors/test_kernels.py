@@ -1,0 +1,127 @@
+"""The compiled kernels against plain numpy/scipy computations of the same quantities."""
+
+from __future__ import annotations
+
+import threading
+
+import numpy as np
+import pytest
+from hypothesis import given, settings
+from hypothesis import strategies as st
+from hypothesis.extra.numpy import arrays
+from scipy.linalg import solve_triangular
+
+from priors._kernels import bartlett_roots, gram_shock_step, select_quantiles
+from priors.conjugate import posterior
+from priors.data import Deterministics, future_exogenous_rows, load_series
+from priors.forecast import draw_quantiles
+from priors.predictive import simulate_paths
+
+from .helpers import design_and_prior
+
+LEVELS = np.array([0.01, 0.05, 0.1, 0.25, 0.5, 0.75, 0.9, 0.95, 0.99])
+
+
+@pytest.mark.parametrize("size", [1, 2, 3, 10, 999, 2000])
+def test_select_quantiles_equal_numpy_bit_for_bit(size):
+    # Reference library: numpy's quantile, default "linear" method (Hyndman & Fan type 7)
+    rng = np.random.default_rng(size)
+    X = np.vstack([
+        rng.standard_normal((4, size)),
+        np.round(rng.standard_normal((2, size))),  # many ties
+        np.zeros((1, size)),  # constant (a known ragged-edge cell)
+        np.sort(rng.standard_normal((1, size))),  # sorted input
+        -np.sort(rng.standard_normal((1, size))),  # reversed input
+        rng.standard_t(1, (1, size)) * 1e300,  # huge values
+    ])
+    assert np.array_equal(select_quantiles(X, LEVELS), np.quantile(X, LEVELS, axis=1))
+
+
+def test_select_quantiles_nan_and_inf_as_numpy():
+    x = np.linspace(0.0, 1.0, 101)
+    X = np.vstack([x, x, x])
+    X[0, 17] = np.nan
+    X[1, 3] = np.inf
+    X[2, 50] = -np.inf
+    with np.errstate(invalid="ignore"):  # numpy's own interpolation meets inf - inf
+        ref = np.quantile(X, LEVELS, axis=1)
+    np.testing.assert_array_equal(select_quantiles(X, LEVELS), ref)
+
+
+@settings(max_examples=60, deadline=None)
+@given(arrays(np.float64, st.tuples(st.integers(1, 40), st.integers(1, 4), st.integers(1, 3)),
+              elements=st.floats(-1e6, 1e6)),
+       st.lists(st.floats(0.001, 0.999), min_size=1, max_size=6))
+def test_draw_quantiles_equal_numpy_for_any_levels_and_shapes(paths, levels):
+    # unsorted and repeated levels, any trailing shape: the values of np.quantile
+    q = np.array(levels)
+    assert np.array_equal(draw_quantiles(paths, q), np.quantile(paths, q, axis=0))
+
+
+def test_bartlett_roots_equal_triangular_solve():
+    # M = L_S A^-T (Smith & Hocking 1972), computed here with scipy's solve_triangular
+    rng = np.random.default_rng(3)
+    n, size = 6, 50
+    C = rng.standard_normal((n, n))
+    L_S = np.linalg.cholesky(C @ C.T + n * np.eye(n))
+    diag = np.sqrt(rng.chisquare(20 - np.arange(n), (size, n)))
+    below = rng.standard_normal((size, n * (n - 1) // 2))
+    M = bartlett_roots(L_S, diag, below)
+    for s in range(size):
+        A = np.diag(diag[s])
+        A[np.tril_indices(n, -1)] = below[s]
+        ref = L_S @ solve_triangular(A, np.eye(n), lower=True).T
+        np.testing.assert_allclose(M[:, :, s], ref, rtol=1e-12, atol=1e-12)
+
+
+@pytest.mark.parametrize(("h", "k"), [(5, 9), (7, 3)])
+def test_gram_shock_step_matches_cholesky_of_the_augmented_gram(h, k):
+    # y_t = mean_t + M u_t with u = L W and L L' = [v_g'v_j] + I, the Cholesky factor
+    # computed by numpy per draw; h > k makes the v_t linearly dependent.
+    rng = np.random.default_rng(h * k)
+    n, s, m = 2, 30, 1
+    v = rng.standard_normal((h, k, s))
+    W = rng.standard_normal((h, n, s))
+    M = rng.standard_normal((n, n, s))
+    mean_fix = rng.standard_normal(n)
+    V, Linv = np.empty((h, k, s)), np.empty((h, h, s))
+    out, scratch = np.empty((h, n, s)), np.empty((2 * h + n + 2, s))
+    for step in range(h):
+        # the kernel adds G[n:] to rows m.. of v_fix and G[:n] to the mean
+        G = np.vstack([np.full((n, s), 0.5), v[step, m:] - 1.0])
+        v_fix = np.ones(k)
+        v_fix[:m] = v[step, :m, 0]
+        v[step, :m] = v_fix[:m, None]
+        gram_shock_step(V, Linv, W, M, G, v_fix, mean_fix, out, step, m, scratch)
+    np.testing.assert_allclose(V, v, rtol=0, atol=1e-15)
+    for t in range(s):
+        L = np.linalg.cholesky(v[:, :, t] @ v[:, :, t].T + np.eye(h))
+        u = L @ W[:, :, t]  # (h, n)
+        ref = mean_fix + 0.5 + u @ M[:, :, t].T
+        np.testing.assert_allclose(out[:, :, t], ref, rtol=1e-10, atol=1e-10)
+        # only the lower triangle of the work array is written and read
+        np.testing.assert_allclose(np.tril(Linv[:, :, t]), np.linalg.inv(L), atol=1e-10)
+
+
+def test_threads_forecasting_at_once_get_their_own_results(known_var, rng):
+    # Each thread keeps its own work space and the kernels release the GIL: four
+    # threads at once must give what each gives alone.
+    y = known_var.simulate(rng, 80)
+    design, prior = design_and_prior(y, lags=2)
+    post = posterior(design, prior)
+    series = load_series(y)
+    exog = future_exogenous_rows(series, Deterministics(), 6)
+    alone = [simulate_paths(np.random.default_rng(i), post, y[-2:], exog, 3000)
+             for i in range(4)]
+    together: list[np.ndarray | None] = [None] * 4
+
+    def run(i: int) -> None:
+        together[i] = simulate_paths(np.random.default_rng(i), post, y[-2:], exog, 3000)
+
+    threads = [threading.Thread(target=run, args=(i,)) for i in range(4)]
+    for t in threads:
+        t.start()
+    for t in threads:
+        t.join(timeout=60)
+    for a, b in zip(alone, together, strict=True):
+        assert b is not None and np.array_equal(a, b)

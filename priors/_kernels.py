@@ -26,32 +26,48 @@ _JIT = {"cache": True, "fastmath": _FAST, "boundscheck": False, "nogil": True}
 
 
 @njit(**_JIT)
-def gram_shock_step(V, Linv, W, M, G, v_fix, mean_fix, out, step, m, scratch):
+def _dot_rows(V, a, b, acc):  # pragma: no cover - compiled
+    """acc[t] += sum_i V[a, i, t] V[b, i, t] for V (h, k, s): four rows of i per pass,
+    so the running sums are loaded and stored a quarter as often."""
+    k, s_count = V.shape[1], V.shape[2]
+    top = k - k % 4
+    for i in range(0, top, 4):
+        for t in range(s_count):
+            acc[t] += (V[a, i, t] * V[b, i, t] + V[a, i + 1, t] * V[b, i + 1, t]
+                       + V[a, i + 2, t] * V[b, i + 2, t] + V[a, i + 3, t] * V[b, i + 3, t])
+    for i in range(top, k):
+        for t in range(s_count):
+            acc[t] += V[a, i, t] * V[b, i, t]
+
+
+@njit(**_JIT)
+def gram_shock_step(V, L, W, M, G, v_fix, mean_fix, out, step, m, scratch):
     # pragma: no cover - compiled
     """One predictive step for a block of s draws, in place; the draws are the last,
     contiguous axis of every array, so each loop below is a vector loop over draws.
 
     Shapes: V (h, k, s) the v_g = R^-T x_g of the earlier steps (row ``step`` is
-    written here: v_fix (k,) plus the simulated part G[n:] in rows m..k); Linv
-    (h, h, s) the inverse Cholesky factor of the augmented Gram matrix
-    [v_g'v_j + (g == j)] of the earlier steps (row ``step`` is written here); W (h, n, s)
-    standard normals; M (n, n, s) roots of Sigma; G (n + k - m, s) the simulated parts
-    of B_bar'x_step (first n rows) and of R^-T x_step (zero rows when no lag is
-    simulated yet); mean_fix (n,) the shared part of B_bar'x_step; out (h, n, s)
-    receives y_step = B_bar'x_step + M u with u = sum_g L[step, g] W[g].
-    scratch: (2 h + n + 2, s) work space.
+    written here: v_fix (k,) plus the simulated part G[n:] in rows m..k); L (h, h, s)
+    the Cholesky factor of the augmented Gram matrix [v_g'v_j + (g == j)] of the
+    earlier steps, with the reciprocal of each pivot on the diagonal (row ``step`` is
+    written here); W (h, n, s) standard normals; M (n, n, s) roots of Sigma;
+    G (n + k - m, s) the simulated parts of B_bar'x_step (first n rows) and of
+    R^-T x_step (zero rows when no lag is simulated yet); mean_fix (n,) the shared part
+    of B_bar'x_step; out (h, n, s) receives y_step = B_bar'x_step + M u with
+    u = sum_g L[step, g] W[g]. scratch: (h + n + 2, s) work space.
 
-    The augmented Gram matrix is positive definite with every Schur complement >= 1, so
-    the update never breaks down, even when the v_h are linearly dependent (h > k).
+    The new row of L solves L[:step, :step] l = (v_g'v_step)_g by forward substitution,
+    and its pivot is sqrt(v'v + 1 - l'l). The augmented Gram matrix is positive definite
+    with every pivot >= 1, so this never breaks down, even when the v_h are linearly
+    dependent (h > k).
     """
     h, k, s_count = V.shape
     n = mean_fix.shape[0]
     has_sim = G.shape[0] > 0
-    d = scratch[:h]
-    ell = scratch[h : 2 * h]
-    e = scratch[2 * h : 2 * h + n]
-    vv = scratch[2 * h + n]
-    ss = scratch[2 * h + n + 1]
+    ell = scratch[:h]
+    e = scratch[h : h + n]
+    vv = scratch[h + n]
+    ss = scratch[h + n + 1]
     for i in range(k):
         x = v_fix[i]
         if has_sim and i >= m:
@@ -63,37 +79,22 @@ def gram_shock_step(V, Linv, W, M, G, v_fix, mean_fix, out, step, m, scratch):
     for t in range(s_count):
         vv[t] = 1.0
         ss[t] = 0.0
-    for i in range(k):
-        for t in range(s_count):
-            vv[t] += V[step, i, t] * V[step, i, t]
-    for j in range(step):
-        for t in range(s_count):
-            d[j, t] = 0.0
-        for i in range(k):
-            for t in range(s_count):
-                d[j, t] += V[j, i, t] * V[step, i, t]
+    _dot_rows(V, step, step, vv)
     for g in range(step):
         for t in range(s_count):
             ell[g, t] = 0.0
-        for j in range(g + 1):
+        _dot_rows(V, g, step, ell[g])
+        for j in range(g):
             for t in range(s_count):
-                ell[g, t] += Linv[g, j, t] * d[j, t]
+                ell[g, t] -= L[g, j, t] * ell[j, t]
         for t in range(s_count):
+            ell[g, t] *= L[g, g, t]
             ss[t] += ell[g, t] * ell[g, t]
-    for t in range(s_count):  # reuse vv as rho, ss as 1 / rho
+            L[step, g, t] = ell[g, t]
+    for t in range(s_count):  # reuse vv as the pivot rho
         rho2 = vv[t] - ss[t]
         vv[t] = sqrt(rho2) if rho2 > 1.0 else 1.0  # >= 1 in exact arithmetic
-        ss[t] = 1.0 / vv[t]
-    for j in range(step):
-        for t in range(s_count):
-            Linv[step, j, t] = 0.0
-        for g in range(j, step):
-            for t in range(s_count):
-                Linv[step, j, t] -= ell[g, t] * Linv[g, j, t]
-        for t in range(s_count):
-            Linv[step, j, t] *= ss[t]
-    for t in range(s_count):
-        Linv[step, step, t] = ss[t]
+        L[step, step, t] = 1.0 / vv[t]
     for c in range(n):
         for t in range(s_count):
             e[c, t] = vv[t] * W[step, c, t]

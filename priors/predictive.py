@@ -29,11 +29,11 @@ import threading
 import numpy as np
 from scipy.linalg import solve_triangular
 
-from ._kernels import gram_shock_step
+from ._kernels import bartlett_roots, gram_shock_step
 from ._types import FloatArray
 from .conjugate import NIWPosterior
 from .errors import SpecificationError
-from .sampling import Draws, check_size, draw_sigma_roots, sigma_roots_draws_last
+from .sampling import Draws, bartlett_factors, check_size, draw_sigma_roots
 
 __all__ = [
     "METHODS",
@@ -144,30 +144,33 @@ def _simulate_projected(
     mean_fix = fixed_x @ post.B  # (h, n)
     v_fix = fixed_x @ Rinv  # (h, k)
     paths = np.empty((h, n, size))  # returned as the (S, h, n) view
-    nblocks = -(-size * h * k * 8 // _BLOCK_BYTES)  # ceil, then blocks of equal size
+    # blocks of equal size; the last one is padded with draws that are thrown away
+    nblocks = -(-size * h * k * 8 // _BLOCK_BYTES)
     block = -(-size // nblocks)
-    sizes = {"V": h * k, "Linv": h * h, "out": h * n, "W": h * n, "scratch": 2 * h + n + 2}
-    buf = _workspace(block * sum(sizes.values()))
-    for lo in range(0, size, block):
-        s = min(block, size - lo)
-        work, at = {}, 0
-        for name, rows in sizes.items():  # contiguous (..., s) views of the work space
-            work[name] = buf[at : at + rows * s]
-            at += rows * s
-        V, Linv = work["V"].reshape(h, k, s), work["Linv"].reshape(h, h, s)
-        out, W = work["out"].reshape(h, n, s), work["W"].reshape(h, n, s)
-        scratch, none = work["scratch"].reshape(-1, s), buf[:0].reshape(0, s)
-        # random numbers block by block (the stream depends on the block size)
-        M = sigma_roots_draws_last(rng, post.S, post.df, s)  # (n, n, s)
-        rng.standard_normal(out=W)
+    L_S, diag, below = bartlett_factors(rng, post.S, post.df, nblocks * block)
+    sizes = {"V": h * k, "L": h * h, "out": h * n, "scratch": h + n + 2}
+    per_block = block * sum(sizes.values())
+    buf = _workspace(per_block + nblocks * block * h * n)
+    work, at = {}, 0
+    for name, rows in sizes.items():  # contiguous (..., block) views of the work space
+        work[name] = buf[at : at + rows * block]
+        at += rows * block
+    V, L = work["V"].reshape(h, k, block), work["L"].reshape(h, h, block)
+    out, scratch = work["out"].reshape(h, n, block), work["scratch"].reshape(-1, block)
+    none = buf[:0].reshape(0, block)
+    W_all = buf[per_block : per_block + nblocks * block * h * n].reshape(nblocks, h, n, block)
+    rng.standard_normal(out=W_all)
+    for b, lo in enumerate(range(0, nblocks * block, block)):
+        M = bartlett_roots(L_S, diag[lo : lo + block], below[lo : lo + block])  # (n, n, s)
         for step in range(h):
             lags = min(step, p)
-            G = out[step - lags : step].reshape(n * lags, s) if lags else none
+            G = out[step - lags : step].reshape(n * lags, block) if lags else none
             if lags:
                 G = BRt[:, n * (p - lags) :] @ G  # (n + k - m, s)
-            gram_shock_step(V, Linv, W, M, G, v_fix[step], mean_fix[step], out, step, m,
-                            scratch)
-        paths[..., lo : lo + s] = out
+            gram_shock_step(V, L, W_all[b], M, G, v_fix[step], mean_fix[step], out, step,
+                            m, scratch)
+        keep = min(block, size - lo)
+        paths[..., lo : lo + keep] = out[..., :keep]
     return paths.transpose(2, 0, 1)
 
 

@@ -21,6 +21,7 @@ from .errors import NotPositiveDefiniteError, SpecificationError
 
 __all__ = [
     "Draws",
+    "bartlett_factors",
     "draw_coefficients",
     "draw_sigma_roots",
     "sample_posterior",
@@ -54,6 +55,15 @@ def draw_sigma_roots(rng: np.random.Generator, S: FloatArray, df: float, size: i
 def sigma_roots_draws_last(rng: np.random.Generator, S: FloatArray, df: float,
                            size: int) -> FloatArray:
     """The roots of :func:`draw_sigma_roots` with the draws on the last axis, (n, n, size)."""
+    return bartlett_roots(*bartlett_factors(rng, S, df, size))
+
+
+def bartlett_factors(rng: np.random.Generator, S: FloatArray, df: float, size: int
+                     ) -> tuple[FloatArray, FloatArray, FloatArray]:
+    """The random parts of ``size`` Bartlett draws of IW(S, df) and the Cholesky factor
+    of S: (L_S (n, n), diagonal of A (size, n), strict lower triangle of A row by row
+    (size, n(n-1)/2)); :func:`priors._kernels.bartlett_roots` turns any rows of them
+    into roots of Sigma."""
     n = S.shape[0]
     if not df > n - 1:
         raise SpecificationError(f"inverse-Wishart needs df > n - 1; got df={df}, n={n}")
@@ -64,8 +74,7 @@ def sigma_roots_draws_last(rng: np.random.Generator, S: FloatArray, df: float,
     chi_df = df - np.arange(n)
     diag = np.sqrt(rng.chisquare(chi_df, size=(size, n)))
     below = rng.standard_normal((size, n * (n - 1) // 2))  # row-major lower triangle
-    # M = L_S A^-T, i.e. M' = A^-1 L_S': forward substitution per draw (compiled)
-    return bartlett_roots(L_S, diag, below)
+    return L_S, diag, below
 
 
 def draw_coefficients(rng: np.random.Generator, post: NIWPosterior, M: FloatArray) -> FloatArray:

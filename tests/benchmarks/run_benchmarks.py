@@ -20,7 +20,7 @@ data already in memory) and the tracemalloc peak of one extra run (numpy registe
 buffers with tracemalloc, so array allocations are counted; BLAS work buffers are not).
 
 The "floor" is a lower bound for the fast predictive method: the time to draw the random
-numbers it needs (per draw n(n-1)/2 normals and n chi-squares for Sigma, 2*n*h normals
+numbers it needs (per draw n(n-1)/2 normals and n chi-squares for Sigma, n*h normals
 for the paths) plus its main flops divided by the dgemm rate measured at start-up.
 
 Environment variables are reported, never changed: BLAS thread counts are whatever the
@@ -248,7 +248,7 @@ def floor_estimate(n: int, p: int, T: int, gflops: float, repeats: int) -> dict[
     """Random-number time plus main flops / dgemm rate for the fast predictive method."""
     k, h, S = n * p + 1, HORIZON, DRAWS
     nobs = T - p
-    n_normals = S * (n * (n - 1) // 2 + 2 * n * h)
+    n_normals = S * (n * (n - 1) // 2 + n * h)
     df = n + 2.0 + nobs
     rng = np.random.default_rng(0)
 
@@ -257,11 +257,12 @@ def floor_estimate(n: int, p: int, T: int, gflops: float, repeats: int) -> dict[
         rng.chisquare(df - np.arange(n), size=(S, n))
 
     t_rng = min(_timed(draw) for _ in range(repeats))
+    simulated = sum(min(t, p) for t in range(h))  # lags simulated, summed over steps
     flops = {
-        "trsm": h * k * k * S,  # v_h = R^-T x_h, k^2 flops per right-hand side
-        "gram_schmidt": 8.0 * k * S * h * (h - 1) / 2,  # CGS2: 2 passes x (dot + axpy)
-        "mean": 2.0 * h * k * n * S,  # x_h' B_bar
-        "sigma_roots": S * (n**3 / 3.0 + n**3),  # triangular solve per draw + M e products
+        # [B_bar | R^-1]' applied to the simulated lags of each step
+        "simulated_part": 2.0 * (n + k - 1) * n * simulated * S,
+        "gram": 2.0 * k * S * (h * (h - 1) / 2 + h),  # v_g'v_h and v_h'v_h
+        "sigma_roots": S * (n**3 / 3.0 + 2.0 * n * n * h),  # A^-1 L_S' + M u per step
         "qr": 4.0 * (nobs + k) * k * k - 4.0 / 3.0 * k**3,  # Householder QR, R and Q
         "eigh": 4.0 * (k - 1) ** 3,  # symmetric eigendecomposition with vectors (D&C)
     }
@@ -415,10 +416,11 @@ def build_report(results: list[dict], header: list[str], repeats: int,
             "full fit+forecast+quantiles run in a fresh subprocess (data and imports already "
             "loaded); 'tracemalloc peak' is the tracemalloc peak of one run (includes numpy "
             "buffers). The XL memory target uses the larger of the two.",
-            "- Floor flops: h k^2 S (v = R^-T x), 4 k S h(h-1) x2 (Gram-Schmidt, twice), "
-            "2 h k n S (mean), S 4n^3/3 (Sigma roots and M e), 4 N k^2 - 4k^3/3 (QR of the "
+            "- Floor flops: 2 (n+k-1) n S sum_t min(t, p) ([B_bar | R^-1]' times the "
+            "simulated lags), 2 k S (h(h-1)/2 + h) (inner products of the v_h), "
+            "S (n^3/3 + 2 n^2 h) (Sigma roots and M u), 4 N k^2 - 4k^3/3 (QR of the "
             "N = T-p+k stacked rows), 4 (k-1)^3 (eigh); random numbers per draw: "
-            "n(n-1)/2 normals + n chi-squares (Sigma) + 2 n h normals (paths).",
+            "n(n-1)/2 normals + n chi-squares (Sigma) + n h normals (paths).",
             "- Fanfold s is the best total of the repeats (median in brackets); CPU s is the "
             "process CPU time of that run over all threads: about 2x the wall time means the "
             "BLAS worker threads were busy-waiting rather than computing.",

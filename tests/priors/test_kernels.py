@@ -84,23 +84,24 @@ def test_gram_shock_step_matches_cholesky_of_the_augmented_gram(h, k):
     W = rng.standard_normal((h, n, s))
     M = rng.standard_normal((n, n, s))
     mean_fix = rng.standard_normal(n)
-    V, Linv = np.empty((h, k, s)), np.empty((h, h, s))
-    out, scratch = np.empty((h, n, s)), np.empty((2 * h + n + 2, s))
+    V, Lw = np.empty((h, k, s)), np.empty((h, h, s))
+    out, scratch = np.empty((h, n, s)), np.empty((h + n + 2, s))
     for step in range(h):
         # the kernel adds G[n:] to rows m.. of v_fix and G[:n] to the mean
         G = np.vstack([np.full((n, s), 0.5), v[step, m:] - 1.0])
         v_fix = np.ones(k)
         v_fix[:m] = v[step, :m, 0]
         v[step, :m] = v_fix[:m, None]
-        gram_shock_step(V, Linv, W, M, G, v_fix, mean_fix, out, step, m, scratch)
+        gram_shock_step(V, Lw, W, M, G, v_fix, mean_fix, out, step, m, scratch)
     np.testing.assert_allclose(V, v, rtol=0, atol=1e-15)
     for t in range(s):
         L = np.linalg.cholesky(v[:, :, t] @ v[:, :, t].T + np.eye(h))
         u = L @ W[:, :, t]  # (h, n)
         ref = mean_fix + 0.5 + u @ M[:, :, t].T
         np.testing.assert_allclose(out[:, :, t], ref, rtol=1e-10, atol=1e-10)
-        # only the lower triangle of the work array is written and read
-        np.testing.assert_allclose(np.tril(Linv[:, :, t]), np.linalg.inv(L), atol=1e-10)
+        # the work array holds L below the diagonal and 1 / L_gg on it (upper: unused)
+        ref_work = np.tril(L, -1) + np.diag(1.0 / np.diag(L))
+        np.testing.assert_allclose(np.tril(Lw[:, :, t]), ref_work, atol=1e-10)
 
 
 def test_threads_forecasting_at_once_get_their_own_results(known_var, rng):

@@ -145,8 +145,8 @@ def _simulate_projected(
     v_fix = fixed_x @ Rinv  # (h, k)
     paths = np.empty((h, n, size))  # returned as the (S, h, n) view
     # blocks of equal size; the last one is padded with draws that are thrown away
-    nblocks = -(-size * h * k * 8 // _BLOCK_BYTES)
-    block = -(-size // nblocks)
+    block = -(-size // -(-size * h * k * 8 // _BLOCK_BYTES))
+    nblocks = -(-size // block)
     L_S, diag, below = bartlett_factors(rng, post.S, post.df, nblocks * block)
     sizes = {"V": h * k, "L": h * h, "out": h * n, "scratch": h + n + 2}
     per_block = block * sum(sizes.values())

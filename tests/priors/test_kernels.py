@@ -126,3 +126,24 @@ def test_threads_forecasting_at_once_get_their_own_results(known_var, rng):
         t.join(timeout=60)
     for a, b in zip(alone, together, strict=True):
         assert b is not None and np.array_equal(a, b)
+
+
+@pytest.mark.parametrize(("size", "capacity"), [(1, 3), (2, 3), (5, 3), (29, 3), (64, 3),
+                                                (2000, 33.5)])
+def test_projection_blocks_cover_every_draw(known_var, rng, monkeypatch, size, capacity):
+    # Work-space blocks far smaller than the draws: equal blocks, the last one padded;
+    # every draw filled, finite, and each block's draws distinct from the others'.
+    import priors.predictive as predictive
+
+    y = known_var.simulate(rng, 60)
+    design, prior = design_and_prior(y, lags=2)
+    post = posterior(design, prior)
+    exog = future_exogenous_rows(load_series(y), Deterministics(), 4)
+    k, h = post.B.shape[0], exog.shape[0]
+    # about ``capacity`` draws per block; 2000 / 33.5 rounds up to 60 blocks of 34 draws,
+    # more than needed (the case that once broke at n=50, p=13)
+    monkeypatch.setattr(predictive, "_BLOCK_BYTES", int(capacity * 8 * h * k))
+    paths = simulate_paths(np.random.default_rng(1), post, y[-2:], exog, size)
+    assert paths.shape == (size, h, post.n)
+    assert np.all(np.isfinite(paths))
+    assert len(np.unique(paths[:, 0, 0])) == size

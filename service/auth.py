@@ -44,7 +44,7 @@ def _unauthorised(detail: str) -> HTTPException:
     return HTTPException(401, detail, headers={"WWW-Authenticate": 'APIKey header="X-API-Key"'})
 
 
-def authenticate(request: Request) -> str:
+async def authenticate(request: Request) -> str:
     """The caller's tenant; raises 401 when keys are configured and this one is not valid."""
     keys: dict[str, ApiKey] = request.app.state.api_keys
     if not keys:

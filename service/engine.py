@@ -35,6 +35,7 @@ __all__ = [
     "forecast_answer",
     "frame_from_spec",
     "gibbs_work",
+    "inline_cost",
     "lead_time_totals",
     "simulate_forecast",
     "limit_blas_threads",
@@ -113,6 +114,16 @@ def _lags_and_terms(spec: ModelSettings) -> tuple[int, int]:
     """The largest lag order the fit may use and the deterministic terms per equation."""
     p = spec.lags if isinstance(spec.lags, int) else (spec.max_lags or default_max_lags("monthly"))
     return p, int(spec.constant) + int(spec.trend) + (11 if spec.seasonal else 0)
+
+
+def inline_cost(spec: ForecastSettings, n: int, T: int) -> float:
+    """Rough flops of a conjugate one-shot forecast, for choosing where it runs: the fits
+    (T k^2 per lag order tried) plus the simulation (draws x horizon x (k + n) x n).
+    About 1e6 is 5 ms on one core (n=3, p=4, T=120, 1000 draws, 12 steps)."""
+    p, m = _lags_and_terms(spec)
+    k = n * p + m
+    fits = p if spec.lags == "auto" else 1
+    return float(fits * T * k * k + spec.draws * spec.horizon * (k + n) * n)
 
 
 # A chain-sweep's fixed cost in units of n k^2 (one unit took about 1 ns at n = 20,

@@ -39,7 +39,7 @@ class RateLimiter:
             return (1.0 - tokens) / self.rate
 
 
-def enforce_rate_limit(request: Request) -> None:
+async def enforce_rate_limit(request: Request) -> None:
     """Dependency run after authentication: 429 when the tenant is over its rate."""
     limiter: RateLimiter | None = request.app.state.rate_limiter
     if limiter is None:

@@ -34,6 +34,9 @@ __all__ = [
 ]
 
 Number = Annotated[float, Field(allow_inf_nan=False)]
+#: a data value: strict, so JSON true/false (and "3") are refused by pydantic's own
+#: validator at C speed instead of a Python pass over every value
+Value = Annotated[float, Field(allow_inf_nan=False, strict=True)]
 Flag = Annotated[bool, Field(strict=True)]  # JSON true/false only, not 0/1
 Positive = Annotated[float, Field(gt=0, allow_inf_nan=False)]
 Transform = Literal["none", "log", "log1p", "diff", "logdiff"]
@@ -72,12 +75,15 @@ def _has_bool(value: object) -> bool:
 
 class Input(BaseModel):
     """Base of request bodies: JSON true/false is refused where a number is expected
-    (pydantic's lax mode would read it as 1/0; query strings still convert "3" to 3)."""
+    (pydantic's lax mode would read it as 1/0; query strings still convert "3" to 3).
+
+    The data values themselves are typed :data:`Value` (strict) and skipped here: this
+    check is a Python pass over the value, measured at 0.1 ms per 360 data values."""
 
     @field_validator("*", mode="before")
     @classmethod
     def _no_booleans_for_numbers(cls, value: object, info: ValidationInfo) -> object:
-        if info.field_name and _has_bool(value):
+        if info.field_name and info.field_name != "series" and _has_bool(value):
             field = cls.model_fields[info.field_name]
             if not _allows_bool(field.annotation):
                 raise ValueError("expected a number (or text), not true/false")
@@ -218,7 +224,7 @@ class SeriesData(Input):
     model_config = ConfigDict(extra="forbid")
 
     series: dict[Annotated[str, Field(min_length=1, max_length=100)],
-                 Annotated[list[Number | None], Field(min_length=3)]] = Field(
+                 Annotated[list[Value | None], Field(min_length=3)]] = Field(
         ..., min_length=1, description="values per series name, oldest first, equal lengths; "
         "null only in the last periods for values not known yet (forecasts then start at "
         "the first incomplete period, conditioned on the known values)")

@@ -1,4 +1,10 @@
-"""Dependencies shared by the routes."""
+"""Dependencies shared by the routes.
+
+The ones that do not block are ``async def``: FastAPI runs a plain ``def`` dependency in
+its thread pool, a thread hop per dependency and request (measured: 20 hops and about
+1 ms per one-shot forecast). The database session stays a plain generator: closing it
+may wait on the database.
+"""
 
 from __future__ import annotations
 
@@ -12,11 +18,11 @@ from ..config import Settings
 from ..metrics import Metrics
 
 
-def get_app_settings(request: Request) -> Settings:
+async def get_app_settings(request: Request) -> Settings:
     return request.app.state.settings
 
 
-def get_metrics(request: Request) -> Metrics:
+async def get_metrics(request: Request) -> Metrics:
     return request.app.state.metrics
 
 
@@ -29,7 +35,7 @@ def get_session(request: Request) -> Iterator[Session]:
         yield session
 
 
-def get_tenant(request: Request) -> str:
+async def get_tenant(request: Request) -> str:
     """The caller's tenant, set by :func:`service.auth.authenticate`."""
     return request.state.tenant
 

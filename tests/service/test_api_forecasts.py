@@ -181,3 +181,33 @@ def test_json_true_false_is_not_a_number(client, demo_body, extra, field):
     # a number belongs has a bug we should report, not guess around
     r = client.post("/v1/forecasts", json={**demo_body, **extra})
     assert r.status_code == 422 and r.json()["errors"][0]["field"] == field
+
+
+@pytest.mark.parametrize("bad", [True, "3"])
+def test_data_values_must_be_json_numbers(client, demo_body, bad):
+    # data values are strict numbers: true/false and numeric strings are refused by name
+    series = {name: list(values) for name, values in demo_body["series"].items()}
+    first = next(iter(series))
+    series[first][2] = bad
+    r = client.post("/v1/forecasts", json={**demo_body, "series": series})
+    assert r.status_code == 422
+    assert r.json()["errors"][0]["field"].startswith(f"series.{first}.2")
+
+
+def test_small_one_shots_run_inline_and_large_ones_keep_the_timeout(settings, demo_body):
+    # A one-shot above Settings.inline_max_cost goes to the thread pool under the
+    # request timeout (503 + Retry-After when over it); a small one runs on the event
+    # loop and is answered whatever the timeout, since it takes a few ms.
+    from fastapi.testclient import TestClient
+
+    from service.app import create_app
+
+    slow = settings.model_copy(update={"request_timeout_s": 1e-6, "inline_max_cost": 0.0})
+    with TestClient(create_app(slow)) as c:
+        r = c.post("/v1/forecasts", json=demo_body)
+    assert r.status_code == 503 and r.headers["retry-after"] == "5"
+    assert "longer than" in r.json()["detail"]
+    inline = settings.model_copy(update={"request_timeout_s": 1e-6})
+    with TestClient(create_app(inline)) as c:
+        r = c.post("/v1/forecasts", json=demo_body)
+    assert r.status_code == 200

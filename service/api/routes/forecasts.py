@@ -12,7 +12,7 @@ from fastapi.exceptions import RequestValidationError
 from fastapi.responses import JSONResponse
 from pydantic import ValidationError
 
-from ...engine import frame_from_spec, run_forecast
+from ...engine import frame_from_spec, inline_cost, run_forecast
 from ...errors import PROBLEM_JSON, problem
 from ...schemas import ForecastCreate, ForecastPublic, ForecastSettings
 from ...serialization import frame_from_csv
@@ -84,6 +84,15 @@ async def _spec_and_data(request: Request) -> tuple[ForecastSettings, Any]:
     raise _Unsupported(ctype)
 
 
+def _small(spec: ForecastSettings, settings: Any) -> bool:
+    """Whether this one-shot runs on the event loop (JSON, conjugate, small: see
+    ``Settings.inline_max_cost``); CSV bodies are parsed in the thread pool."""
+    if not isinstance(spec, ForecastCreate) or spec.uses_gibbs:
+        return False
+    lengths = [len(v) for v in spec.series.values()]
+    return inline_cost(spec, len(lengths), max(lengths)) <= settings.inline_max_cost
+
+
 def _forecast(spec: ForecastSettings, make_frame: Any, settings: Any) -> dict[str, Any]:
     return run_forecast(spec, make_frame(), settings)
 
@@ -113,9 +122,12 @@ async def create_forecast(request: Request, settings: SettingsDep,
                             "application/json or text/csv", request=request)
     start = time.perf_counter()
     try:
-        payload = await asyncio.wait_for(
-            run_in_threadpool(_forecast, spec, make_frame, settings),
-            timeout=settings.request_timeout_s)
+        if _small(spec, settings):  # a few ms: no hop to the thread pool
+            payload = _forecast(spec, make_frame, settings)
+        else:
+            payload = await asyncio.wait_for(
+                run_in_threadpool(_forecast, spec, make_frame, settings),
+                timeout=settings.request_timeout_s)
     except TimeoutError:
         return problem(503, f"the forecast took longer than {settings.request_timeout_s:g} s; "
                             "lower draws, lags or horizon", request=request,

@@ -598,8 +598,11 @@ def _serve(args: argparse.Namespace) -> str:
     from .logs import configure_logging
 
     configure_logging()
+    from .http_protocol import NoDelayHTTPProtocol
+
     uvicorn.run("service.app:create_app", factory=True, host=args.host, port=args.port,
-                workers=args.workers, log_config=None, timeout_graceful_shutdown=20)
+                workers=args.workers, log_config=None, timeout_graceful_shutdown=20,
+                http=NoDelayHTTPProtocol)
     return ""
 
 

@@ -118,9 +118,11 @@ def serve_floor(port: int, workers: int) -> int:
     """Run the floor app with the uvicorn settings of ``fanfold serve``."""
     import uvicorn
 
+    from service.http_protocol import NoDelayHTTPProtocol
+
     uvicorn.run(f"{Path(__file__).stem}:floor_app_factory", factory=True, app_dir=str(HERE),
                 host="127.0.0.1", port=port, workers=workers, log_level="warning",
-                timeout_graceful_shutdown=20)
+                timeout_graceful_shutdown=20, http=NoDelayHTTPProtocol)
     return 0
 
 
@@ -516,11 +518,12 @@ def build_report(header: list[str], settings: list[str], runs: list[dict[str, An
             "in flight share one GIL, so a request waits for the compute of the others.",
             f"- load average at end: {os.getloadavg()[0]:.2f}", ""]
     if workers > 1:
-        out[-1:] = ["- workers > 1: uvicorn's multiprocess supervisor binds the listening "
-                    "socket with proto 0, so asyncio does not set TCP_NODELAY on accepted "
-                    "connections (Kludex/uvicorn#3149, open for uvicorn 0.54): each "
-                    "keep-alive request then waits ~40 ms for the client's delayed ACK, "
-                    "in both targets. Compare with a --workers 1 run.", ""]
+        out[-1:] = ["- workers > 1: both servers use service.http_protocol.NoDelayHTTPProtocol"
+                    ", which sets TCP_NODELAY on each accepted connection (uvicorn's "
+                    "multiprocess supervisor binds the socket with proto 0, so asyncio does "
+                    "not: Kludex/uvicorn#3149; without it each keep-alive request waits "
+                    "~40 ms for the client's delayed ACK).",
+                    f"- load average at end: {os.getloadavg()[0]:.2f}", ""]
     return "\n".join(out)
 
 

@@ -14,6 +14,7 @@ import numpy as np
 import pandas as pd
 
 from priors import DataError, FanfoldVAR, Forecast, SpecificationError, TimeIndexError
+from priors.calendar import regular_dates
 from priors.inventory import window_totals
 from priors.model import default_max_lags
 
@@ -54,22 +55,6 @@ class Fitted(NamedTuple):
     seed: int | None
 
 
-def _dates(start: str, periods: int, frequency: str) -> pd.DatetimeIndex:
-    """``pd.date_range(start, periods=periods, freq=frequency, name="date")``.
-
-    Month starts ("MS", the usual demand-planning layout) are built from numpy months:
-    the same index (values, unit, freq) in 0.08 ms instead of pandas' 0.7 ms, which is a
-    tenth of a small one-shot forecast.
-    """
-    if frequency == "MS":
-        first = pd.Timestamp(start)
-        if first == first.normalize() and first.day == 1:
-            months = np.arange(periods) + np.datetime64(first.strftime("%Y-%m"), "M")
-            return pd.DatetimeIndex(months.astype(f"datetime64[{first.unit}]"), freq="MS",
-                                    name="date")
-    return pd.date_range(start, periods=periods, freq=frequency, name="date")
-
-
 def frame_from_spec(spec: SeriesData) -> pd.DataFrame:
     """The series of a JSON request as a DataFrame on its dates."""
     lengths = {name: len(values) for name, values in spec.series.items()}
@@ -92,7 +77,7 @@ def frame_from_spec(spec: SeriesData) -> pd.DataFrame:
         if spec.frequency is None:
             raise DataError("give the frequency of the dates with start, e.g. 'MS' (monthly)")
         try:
-            frame.index = _dates(spec.start, T, spec.frequency)
+            frame.index = regular_dates(spec.start, T, spec.frequency, name="date")
         except ValueError as exc:
             raise TimeIndexError(
                 f"unknown frequency {spec.frequency!r}; use a pandas "

@@ -6,7 +6,7 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from priors.calendar import calendar_from_index, plain_calendar
+from priors.calendar import calendar_from_index, plain_calendar, regular_dates
 from priors.data import load_series
 from priors.errors import SpecificationError, TimeIndexError
 
@@ -156,3 +156,17 @@ def test_drop_first_keeps_the_frequency():
     cal = calendar_from_index(_dates("MS", 12)).drop_first(1)
     assert len(cal) == 11 and cal.index[0] == pd.Timestamp("2021-02-01")
     assert cal.future(1)[0] == pd.Timestamp("2022-01-01")
+
+
+@pytest.mark.parametrize("start", ["2016-01-01", "1999-12-01", "2016-01-01T00:00:00",
+                                   "2016-01-01 00:00:00.000000001", "1970-01-01",
+                                   "2016-01-15", "2016-03-01 10:30",
+                                   pd.Timestamp("2020-02-01")])
+@pytest.mark.parametrize("periods", [1, 7, 240])
+@pytest.mark.parametrize("freq", ["MS", "QS", "W", "D"])
+def test_regular_dates_equal_pandas_date_range(start, periods, freq):
+    # Reference library: pandas' date_range (values, unit, frequency and name)
+    ref = pd.date_range(start, periods=periods, freq=freq, name="date")
+    got = regular_dates(start, periods, freq, name="date")
+    pd.testing.assert_index_equal(got, ref, exact=True)
+    assert got.freq == ref.freq

@@ -205,3 +205,17 @@ def test_idempotency_key_replays_the_original_answer(client, model_body):
     assert other.status_code == 422 and "different request" in other.json()["detail"]
     fresh = client.post("/v1/models", json=model_body, headers={"Idempotency-Key": "another"})
     assert fresh.status_code == 201 and fresh.json()["id"] != first.json()["id"]
+
+
+def test_idempotent_retry_after_delete_replays_and_creates_nothing(client, model_body):
+    # The key records what the POST did (IETF idempotency-key draft): a retry after the
+    # model was deleted gets the original 201 again, creates nothing, and its Location
+    # answers 404.
+    headers = {"Idempotency-Key": "order-run-2026-02"}
+    first = client.post("/v1/models", json=model_body, headers=headers)
+    assert client.delete(first.headers["location"]).status_code == 204
+    again = client.post("/v1/models", json=model_body, headers=headers)
+    assert again.status_code == 201 and again.json() == first.json()
+    assert again.headers["idempotent-replayed"] == "true"
+    assert client.get(again.headers["location"]).status_code == 404
+    assert client.get("/v1/models").json()["data"] == []

@@ -2,7 +2,7 @@
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 
 import numpy as np
 import pandas as pd
@@ -25,8 +25,9 @@ def regular_dates(start: object, periods: int, freq: str,
     """
     if freq == "MS":
         first = pd.Timestamp(start)  # type: ignore[arg-type]
-        if first == first.normalize() and first.day == 1:
-            months = np.arange(periods) + np.datetime64(first.strftime("%Y-%m"), "M")
+        if first.day == 1 and first.value % 86_400_000_000_000 == 0:  # midnight
+            month = np.datetime64((first.year - 1970) * 12 + first.month - 1, "M")
+            months = np.arange(periods) + month
             return pd.DatetimeIndex(months.astype(f"datetime64[{first.unit}]"), freq="MS",
                                     name=name)
     return pd.date_range(start, periods=periods, freq=freq, name=name)
@@ -44,6 +45,8 @@ class Calendar:
     freq: str | None
     kind: str  # "monthly", "quarterly", "weekly", "daily", "other" or "plain"
     period: int | None = None
+    _futures: dict[int, pd.DatetimeIndex] = field(default_factory=dict, compare=False,
+                                                  repr=False)
 
     def __len__(self) -> int:
         return 0 if self.index is None else len(self.index)
@@ -58,7 +61,9 @@ class Calendar:
         """The ``horizon`` dates after the last row (None for plain arrays)."""
         if self.index is None:
             return None
-        return regular_dates(self.index[-1], horizon + 1, self.freq)[1:]
+        if horizon not in self._futures:  # asked for twice per forecast (dates, terms)
+            self._futures[horizon] = regular_dates(self.index[-1], horizon + 1, self.freq)[1:]
+        return self._futures[horizon]
 
     def season_labels(self) -> tuple[str, ...]:
         """Labels of the seasonal dummies (the first season is the baseline)."""
@@ -168,7 +173,7 @@ def calendar_from_index(index: pd.DatetimeIndex, freq: str | None = None) -> Cal
     if index.freq is not None and index.freq == offset:
         # pandas checked the spacing when it attached the frequency to the index
         return Calendar(index, offset.freqstr, _kind(offset))
-    regular = pd.date_range(index[0], periods=len(index), freq=offset)
+    regular = regular_dates(index[0], len(index), offset.freqstr)
     if not regular.equals(index):
         bad = int(np.argmax(regular != index))
         raise TimeIndexError(

@@ -605,6 +605,12 @@ def main(argv: list[str] | None = None) -> int:
                       f"rounds, {conc} client(s) ...", file=sys.stderr, flush=True)
                 runs += measure_run(targets, body, args.requests, conc, args.rounds,
                                     engine_probe(body, ENGINE_REPEATS))
+        except Exception:
+            for name in ("fanfold.log", "floor.log"):  # what the servers said
+                if (tmpdir / name).exists():
+                    print(f"--- end of {name} ---\n{_tail(tmpdir / name, 40)}",
+                          file=sys.stderr)
+            raise
         finally:
             for proc in procs:
                 code = stop_server(proc)

@@ -90,16 +90,23 @@ def simulate_paths(
 _local = threading.local()
 
 
+#: largest work buffer kept between calls, per thread (bigger ones are not kept, so a
+#: server's thread pool holds at most this much per thread)
+_KEEP_DOUBLES = 1 << 20  # 8 MiB
+
+
 def _workspace(doubles: int) -> FloatArray:
-    """A float64 work buffer of at least ``doubles`` entries, kept per thread.
+    """A float64 work buffer of at least ``doubles`` entries, kept per thread when small.
 
     Reusing it spares the page faults of fresh large arrays on every forecast (measured
     at about a third of the sampler's time for n=3, p=4); one buffer per thread keeps
     concurrent forecasts apart.
     """
     buf = getattr(_local, "buf", None)
-    if buf is None or buf.size < doubles:
-        buf = np.empty(doubles)
+    if buf is not None and buf.size >= doubles:
+        return buf
+    buf = np.empty(doubles)
+    if doubles <= _KEEP_DOUBLES:
         _local.buf = buf
     return buf
 

@@ -147,3 +147,14 @@ def test_projection_blocks_cover_every_draw(known_var, rng, monkeypatch, size, c
     assert paths.shape == (size, h, post.n)
     assert np.all(np.isfinite(paths))
     assert len(np.unique(paths[:, 0, 0])) == size
+
+
+def test_work_buffer_kept_per_thread_only_when_small(monkeypatch):
+    import priors.predictive as predictive
+
+    monkeypatch.setattr(predictive, "_local", threading.local())
+    monkeypatch.setattr(predictive, "_KEEP_DOUBLES", 1000)
+    small = predictive._workspace(800)
+    assert predictive._workspace(500) is small  # reused
+    big = predictive._workspace(5000)
+    assert big.size == 5000 and predictive._local.buf is small  # not kept

@@ -13,7 +13,9 @@ compare them), and the same inputs always give the same bits on the same machine
 
 from __future__ import annotations
 
+from collections.abc import Callable
 from math import sqrt
+from typing import Any
 
 import numpy as np
 from numba import njit
@@ -22,10 +24,27 @@ __all__ = ["bartlett_roots", "gram_shock_step", "select_quantiles"]
 
 #: fastmath without "nnan"/"ninf": sums may be reordered, NaN and inf keep their meaning
 _FAST = {"nsz", "arcp", "contract", "afn", "reassoc"}
-_JIT = {"cache": True, "fastmath": _FAST, "boundscheck": False, "nogil": True}
+_OPTIONS = {"fastmath": _FAST, "boundscheck": False, "nogil": True}
 
 
-@njit(**_JIT)
+def _compiled(fastmath: bool = True) -> Callable[[Callable[..., Any]], Any]:
+    """``numba.njit`` with the machine code cached on disk where numba finds a writable
+    place (next to this file, ``NUMBA_CACHE_DIR`` or the user's cache folder), and
+    compiled once per process where it finds none (a read-only container: numba would
+    otherwise refuse at import)."""
+    # fastmath=False stated, not left out: an unset flag is inherited from the caller
+    options = _OPTIONS if fastmath else {"fastmath": False}
+
+    def decorate(func: Callable[..., Any]) -> Any:
+        try:
+            return njit(cache=True, **options)(func)
+        except RuntimeError:  # "cannot cache function ...: no locator available"
+            return njit(cache=False, **options)(func)
+
+    return decorate
+
+
+@_compiled()
 def _dot_rows(V, a, b, acc):  # pragma: no cover - compiled
     """acc[t] += sum_i V[a, i, t] V[b, i, t] for V (h, k, s): four rows of i per pass,
     so the running sums are loaded and stored a quarter as often."""
@@ -40,7 +59,7 @@ def _dot_rows(V, a, b, acc):  # pragma: no cover - compiled
             acc[t] += V[a, i, t] * V[b, i, t]
 
 
-@njit(**_JIT)
+@_compiled()
 def gram_shock_step(V, L, W, M, G, v_fix, mean_fix, out, step, m, scratch):
     # pragma: no cover - compiled
     """One predictive step for a block of s draws, in place; the draws are the last,
@@ -112,7 +131,7 @@ def gram_shock_step(V, L, W, M, G, v_fix, mean_fix, out, step, m, scratch):
                 out[step, r, t] += M[r, c, t] * e[c, t]
 
 
-@njit(**_JIT)
+@_compiled()
 def bartlett_roots(L_S, diag, below):  # pragma: no cover - compiled
     """M = L_S A^-T for each draw of the Bartlett factor A, stored draws last:
     ``out[:, :, s]`` is M_s, (n, n, S).
@@ -141,7 +160,7 @@ def bartlett_roots(L_S, diag, below):  # pragma: no cover - compiled
     return out
 
 
-@njit(**_JIT)
+@_compiled()
 def _sift_down(a, lo, root, end):  # pragma: no cover - compiled
     """Restore the max-heap a[lo:lo+end] below position ``root`` (0-based in the heap)."""
     while 2 * root + 1 < end:
@@ -155,7 +174,7 @@ def _sift_down(a, lo, root, end):  # pragma: no cover - compiled
             return
 
 
-@njit(**_JIT)
+@_compiled()
 def _heapsort(a, lo, hi):  # pragma: no cover - compiled
     """Sort a[lo:hi+1] in place, O(m log m) whatever the data (no NaN: callers check)."""
     count = hi - lo + 1
@@ -166,7 +185,7 @@ def _heapsort(a, lo, hi):  # pragma: no cover - compiled
         _sift_down(a, lo, 0, end)
 
 
-@njit(**_JIT)
+@_compiled()
 def _select(a, lo, hi, kth):  # pragma: no cover - compiled
     """Quickselect on a[lo:hi+1]: afterwards a[kth] is the kth smallest value, with
     nothing larger before it and nothing smaller after it.
@@ -205,14 +224,14 @@ def _select(a, lo, hi, kth):  # pragma: no cover - compiled
             lo = store + 1
 
 
-@njit(cache=True, fastmath=False)
+@_compiled(fastmath=False)
 def _lerp(a, b, t):  # pragma: no cover - compiled
     """numpy's quantile interpolation, without contraction to FMA (bit-equal results)."""
     diff = b - a
     return b - diff * (1.0 - t) if t >= 0.5 else a + diff * t
 
 
-@njit(**_JIT)
+@_compiled()
 def select_quantiles(X, levels):  # pragma: no cover - compiled
     """Type-7 quantiles of each row of X (c, S) at sorted ``levels``: (len(levels), c).
 

@@ -158,3 +158,17 @@ def test_work_buffer_kept_per_thread_only_when_small(monkeypatch):
     assert predictive._workspace(500) is small  # reused
     big = predictive._workspace(5000)
     assert big.size == 5000 and predictive._local.buf is small  # not kept
+
+
+def test_kernels_compile_without_a_cache_location():
+    # numba refuses cache=True at decoration when it finds nowhere to write (e.g. a
+    # read-only container); the decorator then compiles without the disk cache
+    from numba.core.caching import NullCache
+
+    from priors._kernels import _compiled
+
+    namespace: dict[str, object] = {}
+    exec(compile("def twice(x):\n    return 2.0 * x\n", "<not a file>", "exec"), namespace)
+    fn = _compiled()(namespace["twice"])
+    assert fn(2.5) == 5.0
+    assert isinstance(fn._cache, NullCache)

@@ -1,10 +1,12 @@
 """Compiled inner loops (numba) for the predictive simulation and its summaries.
 
-Each kernel is a loop over draws that numpy can only express as many small batched
-calls; compiled, the per-draw work stays in registers and L1. The kernels take and fill
-plain float64 arrays, never draw random numbers (the caller passes the normals, so the
-numpy ``Generator`` stream decides every value), and are compiled once per machine:
-``cache=True`` stores the machine code next to this file (or in ``NUMBA_CACHE_DIR``).
+Each kernel does per-draw work that numpy could only express as many small batched
+calls (each with its temporaries and call overhead); compiled, it is one pass with the
+draws on the innermost, contiguous axis, so the loops vectorise. The kernels take and
+fill plain float64 arrays and never draw random numbers (the caller passes the normals,
+so the numpy ``Generator`` stream decides every value). They release the GIL, so
+forecasts in several threads run side by side. Machine code is cached on disk (see
+:func:`_compiled`): the first use on a machine compiles for a few seconds.
 
 ``fastmath`` (without the no-NaN/no-inf assumptions) lets the compiler reorder sums so
 the dot products vectorise; results agree with the numpy reference to rounding (tests

@@ -4,6 +4,7 @@ Pure numerics over numpy arrays (plus pandas at the data edge); no web, database
 environment access. The estimator facade is :class:`FanfoldVAR`.
 """
 
+from ._kernels import warm_up as warm_up_kernels
 from .calendar import Calendar
 from .conjugate import NIWPosterior, flat_posterior, log_marginal_likelihood, posterior
 from .convergence import ConvergenceReport, chain_diagnostics
@@ -137,5 +138,6 @@ __all__ = [
     "summarize_draws",
     "tune_hyperparameters",
     "variance_decomposition",
+    "warm_up_kernels",
     "window_totals",
 ]

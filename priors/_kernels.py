@@ -22,7 +22,7 @@ from typing import Any
 import numpy as np
 from numba import njit
 
-__all__ = ["bartlett_roots", "gram_shock_step", "select_quantiles"]
+__all__ = ["bartlett_roots", "gram_shock_step", "select_quantiles", "warm_up"]
 
 #: fastmath without "nnan"/"ninf": sums may be reordered, NaN and inf keep their meaning
 _FAST = {"nsz", "arcp", "contract", "afn", "reassoc"}
@@ -274,3 +274,18 @@ def select_quantiles(X, levels):  # pragma: no cover - compiled
                         b = buf[i]
             out[q, r] = _lerp(a, b, t)
     return out
+
+
+def warm_up() -> None:
+    """Compile (or load from the disk cache) every kernel for the argument types the
+    samplers use, on tiny inputs: a server calls this before it reports ready, so its
+    first forecast does not pay for the compilation."""
+    h, k, n, s = 2, 3, 2, 4
+    gram_shock_step(np.zeros((h, k, s)), np.ones((h, h, s)), np.zeros((h, n, s)),
+                    np.zeros((n, n, s)), np.zeros((n + k - 1, s)), np.zeros(k),
+                    np.zeros(n), np.zeros((h, n, s)), 1, 1, np.zeros((h + n + 2, s)))
+    gram_shock_step(np.zeros((h, k, s)), np.ones((h, h, s)), np.zeros((h, n, s)),
+                    np.zeros((n, n, s)), np.zeros((0, s)), np.zeros(k),
+                    np.zeros(n), np.zeros((h, n, s)), 0, 1, np.zeros((h + n + 2, s)))
+    bartlett_roots(np.eye(n), np.ones((s, n)), np.zeros((s, n * (n - 1) // 2)))
+    select_quantiles(np.zeros((n, s)), np.array([0.5]))

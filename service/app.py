@@ -7,10 +7,13 @@ from contextlib import asynccontextmanager
 from typing import Any
 
 from fastapi import Depends, FastAPI
+from fastapi.concurrency import run_in_threadpool
 from fastapi.middleware.cors import CORSMiddleware
 from fastapi.openapi.docs import get_swagger_ui_html
 from fastapi.openapi.utils import get_openapi
 from fastapi.responses import HTMLResponse, JSONResponse
+
+from priors import warm_up_kernels
 
 from .api.routes import backtests, forecasts, health, jobs, models, planning
 from .auth import authenticate
@@ -37,6 +40,8 @@ def create_app(settings: Settings | None = None) -> FastAPI:
     @asynccontextmanager
     async def lifespan(app: FastAPI) -> AsyncIterator[None]:
         limit_blas_threads(settings.blas_threads)
+        # the compiled kernels: about 5 s on a machine's first start, 0.2 s from the cache
+        await run_in_threadpool(warm_up_kernels)
         upgrade(app.state.engine)  # schema at the newest revision before taking requests
         app.state.jobs.start()  # re-queues jobs a crash left running, then works the queue
         app.state.ready = True

@@ -172,3 +172,18 @@ def test_kernels_compile_without_a_cache_location():
     fn = _compiled()(namespace["twice"])
     assert fn(2.5) == 5.0
     assert isinstance(fn._cache, NullCache)
+
+
+def test_warm_up_compiles_what_the_samplers_use(known_var, rng):
+    # After warm_up_kernels a forecast needs no new compiled signature, so a server that
+    # warms up at start answers its first forecast without compiling.
+    from priors import FanfoldVAR, warm_up_kernels
+    from priors._kernels import _dot_rows
+
+    warm_up_kernels()
+    kernels = (gram_shock_step, bartlett_roots, select_quantiles, _dot_rows)
+    before = [len(k.signatures) for k in kernels]
+    y = known_var.simulate(rng, 60)
+    fc = FanfoldVAR(lags=2).fit(y).forecast(5, rng=np.random.default_rng(0), draws=300)
+    fc.quantiles([0.1, 0.9])
+    assert [len(k.signatures) for k in kernels] == before

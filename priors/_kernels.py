@@ -284,8 +284,5 @@ def warm_up() -> None:
     gram_shock_step(np.zeros((h, k, s)), np.ones((h, h, s)), np.zeros((h, n, s)),
                     np.zeros((n, n, s)), np.zeros((n + k - 1, s)), np.zeros(k),
                     np.zeros(n), np.zeros((h, n, s)), 1, 1, np.zeros((h + n + 2, s)))
-    gram_shock_step(np.zeros((h, k, s)), np.ones((h, h, s)), np.zeros((h, n, s)),
-                    np.zeros((n, n, s)), np.zeros((0, s)), np.zeros(k),
-                    np.zeros(n), np.zeros((h, n, s)), 0, 1, np.zeros((h + n + 2, s)))
     bartlett_roots(np.eye(n), np.ones((s, n)), np.zeros((s, n * (n - 1) // 2)))
     select_quantiles(np.zeros((n, s)), np.array([0.5]))

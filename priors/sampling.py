@@ -25,7 +25,6 @@ __all__ = [
     "draw_coefficients",
     "draw_sigma_roots",
     "sample_posterior",
-    "sigma_roots_draws_last",
 ]
 
 
@@ -49,13 +48,8 @@ def check_size(size: int) -> int:
 
 def draw_sigma_roots(rng: np.random.Generator, S: FloatArray, df: float, size: int) -> FloatArray:
     """Square roots M of Sigma ~ IW(S, df): Sigma = M M'. Returns (size, n, n)."""
-    return np.ascontiguousarray(sigma_roots_draws_last(rng, S, df, size).transpose(2, 0, 1))
-
-
-def sigma_roots_draws_last(rng: np.random.Generator, S: FloatArray, df: float,
-                           size: int) -> FloatArray:
-    """The roots of :func:`draw_sigma_roots` with the draws on the last axis, (n, n, size)."""
-    return bartlett_roots(*bartlett_factors(rng, S, df, size))
+    roots = bartlett_roots(*bartlett_factors(rng, S, df, size))  # (n, n, size)
+    return np.ascontiguousarray(roots.transpose(2, 0, 1))
 
 
 def bartlett_factors(rng: np.random.Generator, S: FloatArray, df: float, size: int

@@ -14,6 +14,7 @@ from .errors import SpecificationError, TimeIndexError
 __all__ = ["Calendar", "calendar_from_index", "plain_calendar", "regular_dates"]
 
 _WEEKDAYS = ("Mon", "Tue", "Wed", "Thu", "Fri", "Sat", "Sun")
+_MONTH_START = offsets.MonthBegin()
 
 
 def regular_dates(start: object, periods: int, freq: str,
@@ -21,15 +22,20 @@ def regular_dates(start: object, periods: int, freq: str,
     """``pd.date_range(start, periods=periods, freq=freq, name=name)``, the same index.
 
     Month starts ("MS", the usual layout of demand data) are built from numpy months:
-    0.1 ms instead of pandas' 0.7 ms for 120 dates, a tenth of a small forecast.
+    0.02 ms instead of pandas' 0.7 ms for 120 dates.
     """
     if freq == "MS":
         first = pd.Timestamp(start)  # type: ignore[arg-type]
         if first.day == 1 and first.value % 86_400_000_000_000 == 0:  # midnight
             month = np.datetime64((first.year - 1970) * 12 + first.month - 1, "M")
             months = np.arange(periods) + month
-            return pd.DatetimeIndex(months.astype(f"datetime64[{first.unit}]"), freq="MS",
-                                    name=name)
+            index = pd.DatetimeIndex(months.astype(f"datetime64[{first.unit}]"), name=name)
+            # regular by construction: attach the frequency without pandas re-deriving
+            # the dates to check it (which costs as much as building them); a pandas
+            # without the private helper gets the checked (public) way
+            if hasattr(index, "_with_freq"):
+                return index._with_freq(_MONTH_START)
+            return pd.DatetimeIndex(index, freq="MS")
     return pd.date_range(start, periods=periods, freq=freq, name=name)
 
 
@@ -140,8 +146,8 @@ def calendar_from_index(index: pd.DatetimeIndex, freq: str | None = None) -> Cal
     """
     if index.tz is not None:
         index = index.tz_localize(None)
-    dup = index[index.duplicated()]
-    if len(dup):
+    if not index.is_unique:
+        dup = index[index.duplicated()]
         raise TimeIndexError(
             f"timestamp {dup[0].date()} appears more than once; keep one row per period"
         )

@@ -119,8 +119,8 @@ def _row_label(calendar: Calendar, row: int) -> str:
 def _as_frame(data: pd.DataFrame | FloatArray, names: Sequence[str] | None) -> pd.DataFrame:
     if isinstance(data, pd.DataFrame):
         frame = data
-        first_is_dates = frame.shape[1] and pd.api.types.is_datetime64_any_dtype(frame.iloc[:, 0])
-        if first_is_dates and not isinstance(frame.index, pd.DatetimeIndex):
+        if (not isinstance(frame.index, pd.DatetimeIndex) and frame.shape[1]
+                and pd.api.types.is_datetime64_any_dtype(frame.dtypes.iloc[0])):
             frame = frame.set_index(frame.columns[0])
         if names is not None:
             if len(names) != frame.shape[1]:
@@ -146,8 +146,7 @@ def _numeric(frame: pd.DataFrame, what: str) -> FloatArray:
     dup = sorted({c for c in names if names.count(c) > 1})
     if dup:
         raise DuplicateNameError(f"{what} name {dup[0]!r} is used more than once; rename one")
-    for col in frame.columns:
-        dtype = frame[col].dtype
+    for col, dtype in frame.dtypes.items():
         if not (pd.api.types.is_numeric_dtype(dtype) and not pd.api.types.is_bool_dtype(dtype)):
             sample = frame[col].dropna().iloc[:1].tolist()
             raise NonNumericError(

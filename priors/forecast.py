@@ -115,7 +115,7 @@ class Forecast:
         """Labels of the steps: ISO dates, or '1'..'h'."""
         if self.dates is None:
             return [str(i) for i in range(1, self.horizon + 1)]
-        return [d.date().isoformat() for d in self.dates]
+        return np.datetime_as_string(self.dates.to_numpy(), unit="D").tolist()
 
     def to_frame(self, levels: Sequence[float] = (0.05, 0.5, 0.95)) -> pd.DataFrame:
         """Tidy table: one row per series and step with mean, median and quantiles."""

@@ -96,17 +96,35 @@ class NIWPrior:
 
 
 def ar_residual_variances(design: Design) -> FloatArray:
-    """Residual variance of each series' own AR(p) with the deterministic terms, (n,)."""
-    m, n, p = design.n_det, design.n, design.lags
-    X_det = design.X[:, :m]
-    out = np.empty(n)
+    """Residual variance of each series' own AR(p) with the deterministic terms, (n,).
+
+    All n regressions in one batched QR of [Z_i, y_i] (T, m + p + 1): the last diagonal
+    entry of R is the norm of the residual (Golub & Van Loan, sec. 5.3). When some Z_i is
+    rank deficient, or there are no more rows than regressors, each series goes through
+    ``lstsq`` (minimum-norm least squares) instead.
+    """
+    m, n, p, T = design.n_det, design.n, design.lags, design.nobs
+    c = m + p
+    rss = None
+    if T > c:
+        own = m + np.arange(p)[None, :] * n + np.arange(n)[:, None]  # (n, p) columns
+        A = np.empty((n, T, c + 1))
+        A[:, :, :m] = design.X[:, :m]
+        A[:, :, m:c] = np.moveaxis(design.X[:, own], 1, 0)
+        A[:, :, c] = design.Y.T
+        R = np.linalg.qr(A, mode="r")  # (n, c + 1, c + 1)
+        pivots = np.abs(np.diagonal(R, axis1=1, axis2=2)[:, :c])
+        if np.all(pivots > 1e-10 * pivots.max(axis=1, keepdims=True)):
+            rss = R[:, c, c] ** 2
+    if rss is None:
+        rss = np.empty(n)
+        for i in range(n):
+            Z = design.X[:, np.r_[0:m, m + i + n * np.arange(p)]]
+            coef, *_ = np.linalg.lstsq(Z, design.Y[:, i], rcond=None)
+            resid = design.Y[:, i] - Z @ coef
+            rss[i] = resid @ resid
+    out = rss / max(T - c, 1)
     for i in range(n):
-        own = design.X[:, [m + lag * n + i for lag in range(p)]]
-        Z = np.column_stack([X_det, own])
-        coef, *_ = np.linalg.lstsq(Z, design.Y[:, i], rcond=None)
-        resid = design.Y[:, i] - Z @ coef
-        dof = max(design.nobs - Z.shape[1], 1)
-        out[i] = resid @ resid / dof
         if not out[i] > 1e-12 * max(1.0, float(np.mean(design.Y[:, i] ** 2))):
             raise ConstantSeriesError(
                 f"series {design.names[i]!r} is fitted exactly by its own lags, so its "

@@ -66,7 +66,9 @@ def frame_from_spec(spec: SeriesData) -> pd.DataFrame:
             f"{longest!r}: {lengths[longest]}); send one value per period for every series"
         )
     T = next(iter(lengths.values()))
-    frame = pd.DataFrame(spec.series)
+    # one float array (null -> NaN), a tenth of the cost of pandas reading the lists
+    values = np.array(list(spec.series.values()), dtype=np.float64).reshape(len(lengths), T)
+    frame = pd.DataFrame(values.T, columns=list(spec.series), copy=False)
     if spec.dates is not None:
         if spec.start is not None or spec.frequency is not None:
             raise DataError("give either dates, or start and frequency, not both")

@@ -9,6 +9,7 @@ import pytest
 from priors.calendar import calendar_from_index, plain_calendar, regular_dates
 from priors.data import load_series
 from priors.errors import SpecificationError, TimeIndexError
+from priors.forecast import Forecast
 
 
 def _dates(freq: str, periods: int = 24, start: str = "2021-01-01") -> pd.DatetimeIndex:
@@ -170,3 +171,13 @@ def test_regular_dates_equal_pandas_date_range(start, periods, freq):
     got = regular_dates(start, periods, freq, name="date")
     pd.testing.assert_index_equal(got, ref, exact=True)
     assert got.freq == ref.freq
+
+
+@pytest.mark.parametrize("freq", ["MS", "QS", "W", "D", "B", "ME", "h"])
+@pytest.mark.parametrize("unit", ["s", "ns"])
+def test_forecast_step_labels_are_the_iso_dates(freq, unit):
+    # Reference: the standard library's date.isoformat of each pandas Timestamp
+    dates = pd.date_range("1999-11-28 06:00", periods=30, freq=freq).as_unit(unit)
+    fc = Forecast(np.zeros((2, 30, 1)), ("tyres",), dates)
+    assert fc.steps() == [d.date().isoformat() for d in dates]
+    assert Forecast(np.zeros((2, 3, 1)), ("tyres",), None).steps() == ["1", "2", "3"]

@@ -6,7 +6,13 @@ import numpy as np
 import pytest
 from scipy import stats
 
-from priors.conjugate import NIWPosterior, flat_posterior, log_marginal_likelihood, posterior
+from priors.conjugate import (
+    NIWPosterior,
+    flat_posterior,
+    log_marginal_likelihood,
+    log_multigamma,
+    posterior,
+)
 from priors.data import Deterministics, build_design, load_series
 from priors.errors import NotPositiveDefiniteError, TooFewObservationsError
 from priors.shrinkage import NIWPrior
@@ -159,3 +165,18 @@ def test_cross_variable_tightness_other_than_one_is_refused(known_var, rng):
     psi = np.diag(prior.S0)  # nu0 - n - 1 = 1, so S0 = diag(psi)
     own, cross = prior.omega[1 + 0] * psi[0], prior.omega[1 + 1] * psi[0]
     assert np.sqrt(cross / own) == pytest.approx(np.sqrt(psi[0] / psi[1]))
+
+
+@pytest.mark.parametrize("d", [1, 2, 3, 7, 20])
+@pytest.mark.parametrize("excess", [1e-9, 0.3, 1.0, 17.5, 600.0])
+def test_log_multigamma_equals_scipy(d, excess):
+    # Reference library: scipy.special.multigammaln
+    from scipy.special import multigammaln
+
+    a = 0.5 * (d - 1) + excess
+    assert log_multigamma(a, d) == pytest.approx(multigammaln(a, d), rel=1e-13, abs=1e-12)
+
+
+def test_log_multigamma_refuses_outside_its_domain():
+    with pytest.raises(ValueError, match="a > \\(d - 1\\) / 2"):
+        log_multigamma(1.0, 3)

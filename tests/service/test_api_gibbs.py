@@ -275,8 +275,12 @@ def test_one_shot_forecasts_with_the_independent_prior(tmp_path, body):
         assert r.status_code == 200, r.text
         seed = r.json()["seed"]  # reported, and reproduces the chains and the paths
         assert c.post("/v1/forecasts", json={**ask, "seed": seed}).json() == r.json()
+        # two years that inform the tightness (a straight-line year leaves the marginal
+        # likelihood flat down to the search bound, which warns)
         csv = "date,tyres,chains\n" + "".join(
-            f"2020-{m:02d}-01,{100 + 3 * m + m % 4},{50 + m % 5}\n" for m in range(1, 13))
+            f"{2020 + (m - 1) // 12}-{(m - 1) % 12 + 1:02d}-01,"
+            f"{100 + 3 * m + m % 4 + m * m % 7},{50 + m % 5 + 3 * m % 4}\n"
+            for m in range(1, 25))
         r = c.post("/v1/forecasts?horizon=2&draws=100&seed=1&lags=1&prior=independent"
                    "&chains=2&burn=20&keep=50&cross=0.5", content=csv,
                    headers={"Content-Type": "text/csv"})

@@ -146,6 +146,9 @@ def _numeric(frame: pd.DataFrame, what: str) -> FloatArray:
     dup = sorted({c for c in names if names.count(c) > 1})
     if dup:
         raise DuplicateNameError(f"{what} name {dup[0]!r} is used more than once; rename one")
+    plain = frame.to_numpy()  # one numpy dtype: pandas mixes bool and numbers as object
+    if plain.dtype.kind in "fiu":
+        return plain.astype(np.float64, copy=False)
     for col, dtype in frame.dtypes.items():
         if not (pd.api.types.is_numeric_dtype(dtype) and not pd.api.types.is_bool_dtype(dtype)):
             sample = frame[col].dropna().iloc[:1].tolist()

@@ -145,16 +145,17 @@ def forecast_to_dict(
     table = forecast.quantiles(with_median)
     median = table[int(np.searchsorted(with_median, 0.5))]
     qs = table[np.searchsorted(with_median, levels)]
-    mean = forecast.mean()
     steps = forecast.steps()
+    # every number as nested lists in one conversion: (n series, 2 + levels, h steps)
+    rows = _nums(np.concatenate([forecast.mean()[None], median[None], qs]).transpose(2, 0, 1))
     series = {
         name: {
             "dates": list(steps),
-            "mean": _nums(mean[:, j]),
-            "median": _nums(median[:, j]),
-            "quantiles": {key: _nums(qs[i, :, j]) for i, key in enumerate(keys)},
+            "mean": lists[0],
+            "median": lists[1],
+            "quantiles": dict(zip(keys, lists[2:], strict=True)),
         }
-        for j, name in enumerate(forecast.names)
+        for name, lists in zip(forecast.names, rows, strict=True)
     }
     return {
         "forecasts": series,

@@ -28,15 +28,21 @@ def regular_dates(start: object, periods: int, freq: str,
         first = pd.Timestamp(start)  # type: ignore[arg-type]
         if first.day == 1 and first.value % 86_400_000_000_000 == 0:  # midnight
             month = np.datetime64((first.year - 1970) * 12 + first.month - 1, "M")
-            months = np.arange(periods) + month
-            index = pd.DatetimeIndex(months.astype(f"datetime64[{first.unit}]"), name=name)
-            # regular by construction: attach the frequency without pandas re-deriving
-            # the dates to check it (which costs as much as building them); a pandas
-            # without the private helper gets the checked (public) way
-            if hasattr(index, "_with_freq"):
-                return index._with_freq(_MONTH_START)
-            return pd.DatetimeIndex(index, freq="MS")
+            return _month_starts(month, 0, periods, first.unit, name)
     return pd.date_range(start, periods=periods, freq=freq, name=name)
+
+
+def _month_starts(month: np.datetime64, skip: int, periods: int, unit: str,
+                  name: str | None) -> pd.DatetimeIndex:
+    """Month starts ``month + skip``, ... (``periods`` of them) at midnight, in ``unit``."""
+    months = np.arange(skip, skip + periods) + month
+    index = pd.DatetimeIndex(months.astype(f"datetime64[{unit}]"), name=name)
+    # regular by construction: attach the frequency without pandas re-deriving the
+    # dates to check it (which costs as much as building them); a pandas without the
+    # private helper gets the checked (public) way
+    if hasattr(index, "_with_freq"):
+        return index._with_freq(_MONTH_START)
+    return pd.DatetimeIndex(index, freq="MS")
 
 
 @dataclass(frozen=True)
@@ -68,7 +74,13 @@ class Calendar:
         if self.index is None:
             return None
         if horizon not in self._futures:  # asked for twice per forecast (dates, terms)
-            self._futures[horizon] = regular_dates(self.index[-1], horizon + 1, self.freq)[1:]
+            last = self.index.to_numpy()[-1]
+            if self.freq == "MS" and last == last.astype("datetime64[D]"):  # at midnight
+                self._futures[horizon] = _month_starts(
+                    last.astype("datetime64[M]"), 1, horizon, self.index.unit, None)
+            else:
+                self._futures[horizon] = regular_dates(self.index[-1], horizon + 1,
+                                                       self.freq)[1:]
         return self._futures[horizon]
 
     def season_labels(self) -> tuple[str, ...]:

@@ -14,13 +14,13 @@ from typing import Any
 
 from fastapi import FastAPI, Request
 from fastapi.exceptions import RequestValidationError
-from fastapi.responses import JSONResponse
 from sqlalchemy.orm.exc import StaleDataError
 from starlette.exceptions import HTTPException as StarletteHTTPException
 
 from priors.errors import NotFittedError, PriorsError
 
 from .context import request_id
+from .responses import JSONResponse
 
 __all__ = ["PROBLEM_JSON", "LimitExceeded", "problem", "register_error_handlers"]
 

@@ -181,3 +181,15 @@ def test_forecast_step_labels_are_the_iso_dates(freq, unit):
     fc = Forecast(np.zeros((2, 30, 1)), ("tyres",), dates)
     assert fc.steps() == [d.date().isoformat() for d in dates]
     assert Forecast(np.zeros((2, 3, 1)), ("tyres",), None).steps() == ["1", "2", "3"]
+
+
+@pytest.mark.parametrize("start", ["2016-01-01", "1969-12-01", "2016-03-01 10:30"])
+@pytest.mark.parametrize("unit", ["s", "ms", "ns"])
+@pytest.mark.parametrize("freq", ["MS", "QS", "D"])
+def test_future_dates_equal_pandas_date_range(start, unit, freq):
+    # Reference library: pandas' date_range continued past the last row
+    index = pd.date_range(start, periods=30, freq=freq).as_unit(unit)
+    ref = pd.date_range(index[-1], periods=13, freq=freq)[1:]
+    got = calendar_from_index(index).future(12)
+    pd.testing.assert_index_equal(got, ref, exact=True)
+    assert got.freq == ref.freq

@@ -9,11 +9,11 @@ from typing import Any
 
 from fastapi import Request, Response
 from fastapi.concurrency import run_in_threadpool
-from fastapi.responses import JSONResponse
 from starlette.exceptions import HTTPException
 
 from ...errors import PROBLEM_JSON
 from ...orm import StoredModel
+from ...responses import JSONResponse
 from ...store import get_model
 
 NOT_FOUND = {404: {"description": "no such model for this caller",

@@ -6,12 +6,12 @@ import uuid
 from typing import Any
 
 from fastapi import APIRouter, Request
-from fastapi.responses import JSONResponse
 from starlette.exceptions import HTTPException
 
 from ...engine import check_backtest_limits, frame_from_spec
 from ...errors import PROBLEM_JSON
 from ...jobs import get_job, submit_job
+from ...responses import JSONResponse
 from ...schemas import BacktestCreate, JobPublic
 from ..deps import SessionDep, SettingsDep, TenantDep
 from .jobs import job_public

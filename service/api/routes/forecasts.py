@@ -9,11 +9,11 @@ from typing import Any
 from fastapi import APIRouter, Request
 from fastapi.concurrency import run_in_threadpool
 from fastapi.exceptions import RequestValidationError
-from fastapi.responses import JSONResponse
 from pydantic import ValidationError
 
 from ...engine import frame_from_spec, inline_cost, run_forecast
 from ...errors import PROBLEM_JSON, problem
+from ...responses import JSONResponse
 from ...schemas import ForecastCreate, ForecastPublic, ForecastSettings
 from ...serialization import frame_from_csv
 from ..deps import MetricsDep, SettingsDep

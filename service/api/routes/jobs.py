@@ -6,12 +6,12 @@ import uuid
 from typing import Any
 
 from fastapi import APIRouter, Request
-from fastapi.responses import JSONResponse
 from starlette.exceptions import HTTPException
 
 from ...errors import PROBLEM_JSON
 from ...jobs import TERMINAL, cancel_job, get_job
 from ...orm import Job
+from ...responses import JSONResponse
 from ...schemas import JobPublic
 from ..deps import SessionDep, TenantDep
 

@@ -8,7 +8,6 @@ import uuid
 from typing import Annotated, Any
 
 from fastapi import APIRouter, Header, Query, Request, Response
-from fastapi.responses import JSONResponse
 from sqlalchemy.exc import IntegrityError
 from starlette.exceptions import HTTPException
 
@@ -27,6 +26,7 @@ from ...engine import (
 from ...errors import PROBLEM_JSON, problem
 from ...jobs import submit_job
 from ...orm import StoredModel
+from ...responses import JSONResponse
 from ...schemas import (
     FanChartPublic,
     ForecastPublic,

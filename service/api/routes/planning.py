@@ -8,7 +8,6 @@ import uuid
 from typing import Annotated, Any, Literal
 
 from fastapi import APIRouter, Query, Request, Response
-from fastapi.responses import JSONResponse
 from starlette.exceptions import HTTPException
 
 from ...plan_schemas import (
@@ -20,6 +19,7 @@ from ...plan_schemas import (
     ShocksPublic,
 )
 from ...planning import replenishment_answer, scenario_answer, shares_answer, shocks_answer
+from ...responses import JSONResponse
 from ...store import load_fitted
 from ..deps import SessionDep, SettingsDep, TenantDep
 from ._shared import (

@@ -374,10 +374,9 @@ def measure_engine(body: bytes, repeats: int) -> dict[str, list[float]]:
     """In-process times (s) of the route's pieces; run_forecast is the engine."""
     import warnings
 
-    from starlette.responses import JSONResponse
-
     from service.config import Settings
     from service.engine import frame_from_spec, run_forecast
+    from service.responses import JSONResponse
     from service.schemas import ForecastCreate
 
     spec = ForecastCreate.model_validate_json(body)
@@ -490,7 +489,7 @@ def build_report(header: list[str], settings: list[str], runs: list[dict[str, An
                        "+ answer dict (the engine)",
              "parse": "ForecastCreate.model_validate_json(body)",
              "frame": "frame_from_spec(spec)",
-             "render": "JSONResponse(payload) (json.dumps)"}
+             "render": "service.responses.JSONResponse(payload) (pydantic-core)"}
     out += ["", f"## In-process times, one BLAS thread (ms, {ENGINE_REPEATS} runs after one "
             "warm-up, before the servers start and after they stop)", "",
             "| piece | best before | median before | best after | median after |",

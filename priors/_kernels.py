@@ -190,7 +190,10 @@ def _heapsort(a, lo, hi):  # pragma: no cover - compiled
 @_compiled()
 def _select(a, lo, hi, kth):  # pragma: no cover - compiled
     """Quickselect on a[lo:hi+1]: afterwards a[kth] is the kth smallest value, with
-    nothing larger before it and nothing smaller after it.
+    nothing larger before it and nothing smaller after it. Returns the end ``top`` of the
+    last range searched: the next order statistic is the smallest of a[kth+1:top+1] and
+    a[top+1] (when top + 1 <= hi: a pivot of an earlier round, at or below everything
+    after it), so the caller need not scan the whole tail.
 
     Lomuto partition written without a data-dependent branch (the swap always happens
     and the store index advances by the comparison), median-of-three pivot; after 48
@@ -201,7 +204,7 @@ def _select(a, lo, hi, kth):  # pragma: no cover - compiled
         rounds += 1
         if rounds > 48:
             _heapsort(a, lo, hi)
-            return
+            return hi
         mid = (lo + hi) // 2
         if a[mid] < a[lo]:
             a[mid], a[lo] = a[lo], a[mid]
@@ -219,11 +222,12 @@ def _select(a, lo, hi, kth):  # pragma: no cover - compiled
         a[hi] = a[store]
         a[store] = pivot
         if kth == store:
-            return
+            return hi
         if kth < store:
             hi = store - 1
         else:
             lo = store + 1
+    return hi
 
 
 @_compiled(fastmath=False)
@@ -263,13 +267,13 @@ def select_quantiles(X, levels):  # pragma: no cover - compiled
             pos = (size - 1) * levels[q]  # numpy's "linear" virtual index
             lo = min(int(np.floor(pos)), size - 1)
             t = pos - lo
-            _select(buf, start, size - 1, lo)
+            top = _select(buf, start, size - 1, lo)
             start = lo
             a = buf[lo]
             b = a
-            if lo + 1 <= size - 1:
-                b = buf[lo + 1]
-                for i in range(lo + 2, size):  # the next order statistic
+            if lo + 1 <= size - 1:  # the next order statistic (see _select)
+                b = buf[top + 1] if top + 1 <= size - 1 else np.inf
+                for i in range(lo + 1, top + 1):
                     if buf[i] < b:
                         b = buf[i]
             out[q, r] = _lerp(a, b, t)

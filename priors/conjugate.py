@@ -109,9 +109,12 @@ def _update(prior: NIWPrior, X: FloatArray, Y: FloatArray) -> NIWPosterior:
     T, n = Y.shape
     k = X.shape[1]
     root = 1.0 / np.sqrt(prior.omega)
-    R, B, R22 = _stacked_least_squares(
-        np.vstack([np.hstack([X, Y]), np.hstack([np.diag(root), prior.B0 * root[:, None]])]),
-        k)
+    stacked = np.zeros((T + k, k + n))  # [[X, Y], [diag(root), root * B0]]
+    stacked[:T, :k] = X
+    stacked[:T, k:] = Y
+    stacked[T + np.arange(k), np.arange(k)] = root
+    stacked[T:, k:] = prior.B0 * root[:, None]
+    R, B, R22 = _stacked_least_squares(stacked, k)
     S = prior.S0 + R22.T @ R22
     S = 0.5 * (S + S.T)
     df = prior.df + T

@@ -37,6 +37,26 @@ def test_select_quantiles_equal_numpy_bit_for_bit(size):
     assert np.array_equal(select_quantiles(X, LEVELS), np.quantile(X, LEVELS, axis=1))
 
 
+@pytest.mark.parametrize("seed", range(6))
+def test_select_quantiles_every_order_statistic_pair(seed):
+    # Reference library: numpy's quantile. Levels at every position (k + t) / (S - 1),
+    # t in {0, 0.5}, so each pair of neighbouring order statistics is asked for, on
+    # rows with few distinct values (the selection's ties) and with +-inf among them.
+    rng = np.random.default_rng(seed)
+    size = int(rng.integers(2, 60))
+    levels = np.unique(np.clip(np.concatenate([np.arange(size), np.arange(size - 1) + 0.5])
+                               / (size - 1), 0.0, 1.0))
+    X = np.vstack([
+        rng.integers(0, 3, (3, size)).astype(np.float64),
+        rng.standard_normal((3, size)),
+        np.where(rng.random((2, size)) < 0.2, np.inf, rng.standard_normal((2, size))),
+        np.where(rng.random((2, size)) < 0.2, -np.inf, rng.standard_normal((2, size))),
+    ])
+    with np.errstate(invalid="ignore"):  # numpy's own interpolation meets inf - inf
+        ref = np.quantile(X, levels, axis=1)
+    np.testing.assert_array_equal(select_quantiles(X, levels), ref)
+
+
 def test_select_quantiles_nan_and_inf_as_numpy():
     x = np.linspace(0.0, 1.0, 101)
     X = np.vstack([x, x, x])

@@ -41,7 +41,8 @@ time), and the client threads compete with the server for the same cores, so the
 checked for the concurrent and for the sequential run, labelled as such.
 
 All traffic goes to 127.0.0.1. Every wait is bounded; both servers are stopped at the end
-(SIGTERM, then SIGKILL to their process group after 25 s), also on errors.
+(SIGTERM, then SIGKILL to their process group after 25 s), also on errors. A failed run
+writes its traceback and the last lines of both servers' logs to ``<out>.failure.log``.
 """
 
 from __future__ import annotations
@@ -59,6 +60,7 @@ import sys
 import tempfile
 import threading
 import time
+import traceback
 from collections.abc import Callable
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -602,10 +604,15 @@ def main(argv: list[str] | None = None) -> int:
                 runs += measure_run(targets, body, args.requests, conc, args.rounds,
                                     engine_probe(body, ENGINE_REPEATS))
         except Exception:
-            for name in ("fanfold.log", "floor.log"):  # what the servers said
+            # what went wrong and what the servers said, on stderr and in a file next to
+            # --out (runs are often started with their output thrown away)
+            text = [traceback.format_exc()]
+            for name in ("fanfold.log", "floor.log"):
                 if (tmpdir / name).exists():
-                    print(f"--- end of {name} ---\n{_tail(tmpdir / name, 40)}",
-                          file=sys.stderr)
+                    text.append(f"--- end of {name} ---\n{_tail(tmpdir / name, 40)}")
+            failure = Path(args.out).with_suffix(".failure.log")
+            failure.write_text("\n".join(text))
+            print("\n".join(text[1:]) + f"\n(also in {failure})", file=sys.stderr)
             raise
         finally:
             for proc in procs:

@@ -16,13 +16,14 @@ compare them), and the same inputs always give the same bits on the same machine
 from __future__ import annotations
 
 from collections.abc import Callable
-from math import sqrt
+from math import inf, log, sqrt
 from typing import Any
 
 import numpy as np
 from numba import njit
 
-__all__ = ["bartlett_roots", "gram_shock_step", "select_quantiles", "warm_up"]
+__all__ = ["bartlett_roots", "gram_shock_step", "select_quantiles", "tightness_profile",
+           "warm_up"]
 
 #: fastmath without "nnan"/"ninf": sums may be reordered, NaN and inf keep their meaning
 _FAST = {"nsz", "arcp", "contract", "afn", "reassoc"}
@@ -280,6 +281,67 @@ def select_quantiles(X, levels):  # pragma: no cover - compiled
     return out
 
 
+@_compiled()
+def tightness_profile(lam, e, G1, G2, base, B0WB0, const, df):  # pragma: no cover - compiled
+    """log p(Y | tightness) at each tightness in ``lam`` (L,), from the quantities of
+    :class:`priors.tuning.TightnessProfile` (see there): with inv = 1 / tightness^2,
+
+        H = G1 + inv G2,  S = base + inv B0WB0 - H' diag(1 / (e + inv)) H,
+        value = const - n kl log(tightness) - n/2 sum log(e + inv) - df/2 log|S|,
+
+    e (kl,), G1 and G2 (kl, n), base and B0WB0 (n, n) symmetric. log|S| by Cholesky;
+    -inf where S is not positive definite. One compiled pass: the tuner evaluates the
+    profile a few dozen times per fit, and as numpy calls on these tiny matrices the
+    call overhead was most of the cost.
+    """
+    size = lam.shape[0]
+    kl, n = G1.shape
+    out = np.empty(size)
+    H = np.empty((kl, n))
+    d = np.empty(kl)
+    S = np.empty((n, n))
+    for q in range(size):
+        inv = 1.0 / (lam[q] * lam[q])
+        logdet_sc = 0.0
+        for i in range(kl):
+            ei = e[i] + inv
+            d[i] = 1.0 / ei
+            logdet_sc += log(ei)
+            for c in range(n):
+                H[i, c] = G1[i, c] + inv * G2[i, c]
+        for r in range(n):
+            for c in range(r + 1):
+                acc = 0.0
+                for i in range(kl):
+                    acc += H[i, r] * d[i] * H[i, c]
+                v = base[r, c] + inv * B0WB0[r, c] - acc
+                S[r, c] = v
+                S[c, r] = v
+        logdet_s = 0.0
+        ok = True
+        for j in range(n):  # Cholesky in the lower triangle of S
+            piv = S[j, j]
+            for t in range(j):
+                piv -= S[j, t] * S[j, t]
+            if not piv > 0.0:
+                ok = False
+                break
+            root = sqrt(piv)
+            logdet_s += 2.0 * log(root)
+            S[j, j] = root
+            for r in range(j + 1, n):
+                v = S[r, j]
+                for t in range(j):
+                    v -= S[r, t] * S[j, t]
+                S[r, j] = v / root
+        if ok:
+            out[q] = (const - n * kl * log(lam[q]) - 0.5 * n * logdet_sc
+                      - 0.5 * df * logdet_s)
+        else:
+            out[q] = -inf
+    return out
+
+
 def warm_up() -> None:
     """Compile (or load from the disk cache) every kernel for the argument types the
     samplers use, on tiny inputs: a server calls this before it reports ready, so its
@@ -290,3 +352,5 @@ def warm_up() -> None:
                     np.zeros(n), np.zeros((h, n, s)), 1, 1, np.zeros((h + n + 2, s)))
     bartlett_roots(np.eye(n), np.ones((s, n)), np.zeros((s, n * (n - 1) // 2)))
     select_quantiles(np.zeros((n, s)), np.array([0.5]))
+    tightness_profile(np.ones(1), np.ones(k), np.zeros((k, n)), np.zeros((k, n)), np.eye(n),
+                      np.eye(n), 0.0, 5.0)

@@ -24,6 +24,7 @@ import numpy as np
 from scipy.optimize import minimize, minimize_scalar
 from scipy.special import gammaln
 
+from ._kernels import tightness_profile
 from ._types import FloatArray
 from .conjugate import (
     Moments,
@@ -116,13 +117,15 @@ class TightnessProfile:
             quad_d, logdet_Pdd = np.zeros((n, n)), 0.0
         sw = np.sqrt(w)
         e, Qm = np.linalg.eigh(sw[:, None] * A_tilde * sw[None, :])
-        self._e = np.clip(e, 0.0, None)
-        self._G1 = Qm.T @ (sw[:, None] * g)
-        self._G2 = Qm.T @ (B0l / sw[:, None])
-        self._B0WB0 = (B0l / w[:, None]).T @ B0l
+        self._e = np.ascontiguousarray(np.clip(e, 0.0, None))
+        self._G1 = np.ascontiguousarray(Qm.T @ (sw[:, None] * g))
+        self._G2 = np.ascontiguousarray(Qm.T @ (B0l / sw[:, None]))
+        B0WB0 = (B0l / w[:, None]).T @ B0l
+        self._B0WB0 = np.ascontiguousarray(0.5 * (B0WB0 + B0WB0.T))
         df0 = n + 2.0
-        self._S0 = np.diag(psi * (df0 - n - 1))
-        self._YY_minus_d = Y.T @ Y - quad_d
+        S0 = np.diag(psi * (df0 - n - 1))
+        base = S0 + Y.T @ Y - quad_d
+        self._base = np.ascontiguousarray(0.5 * (base + base.T))
         self._const = (
             -0.5 * n * T * np.log(np.pi)
             + log_multigamma(0.5 * (df0 + T), n)
@@ -131,45 +134,19 @@ class TightnessProfile:
             - 0.5 * n * float(np.sum(np.log(w)))
             - 0.5 * n * logdet_Pdd
             + 0.5 * n * float(np.sum(np.log(w)))  # from log|Sc| = -sum log w + ...
-            + 0.5 * df0 * float(np.sum(np.log(np.diag(self._S0))))
+            + 0.5 * df0 * float(np.sum(np.log(np.diag(S0))))
         )
         self._df = df0 + T
-        self._kl = n * design.lags
-        self._n = n
 
     def __call__(self, tightness: float) -> float:
-        lam2 = tightness * tightness
-        H = self._G1 + self._G2 / lam2
-        d = 1.0 / (self._e + 1.0 / lam2)
-        quad = (H * d[:, None]).T @ H
-        S = self._S0 + self._YY_minus_d + self._B0WB0 / lam2 - quad
-        S = 0.5 * (S + S.T)
-        sign, logdet_S = np.linalg.slogdet(S)
-        if sign <= 0:
-            return -np.inf
-        logdet_Sc_part = float(np.sum(np.log(self._e + 1.0 / lam2)))
-        return float(
-            self._const
-            - self._n * self._kl * np.log(tightness)
-            - 0.5 * self._n * logdet_Sc_part
-            - 0.5 * self._df * logdet_S
-        )
+        return float(self.many(np.array([tightness], dtype=np.float64))[0])
 
     def many(self, tightness: FloatArray) -> FloatArray:
-        """log p(Y | tightness) at each of the (L,) values at once (as ``__call__``, up
-        to the order of summation), -inf where S is not positive definite."""
-        lam = np.asarray(tightness, dtype=np.float64)
-        lam2 = lam * lam
-        H = self._G1[None] + self._G2[None] / lam2[:, None, None]  # (L, np, n)
-        d = 1.0 / (self._e[None] + 1.0 / lam2[:, None])
-        quad = np.matmul(np.swapaxes(H * d[:, :, None], 1, 2), H)  # (L, n, n)
-        S = (self._S0 + self._YY_minus_d)[None] + self._B0WB0[None] / lam2[:, None, None] - quad
-        S = 0.5 * (S + np.swapaxes(S, 1, 2))
-        sign, logdet_S = np.linalg.slogdet(S)
-        logdet_Sc_part = np.sum(np.log(self._e[None] + 1.0 / lam2[:, None]), axis=1)
-        value = (self._const - self._n * self._kl * np.log(lam)
-                 - 0.5 * self._n * logdet_Sc_part - 0.5 * self._df * logdet_S)
-        return np.where(sign > 0, value, -np.inf)
+        """log p(Y | tightness) at each of the (L,) values, -inf where the posterior
+        scale S is not positive definite (compiled: :func:`priors._kernels.tightness_profile`)."""
+        lam = np.ascontiguousarray(tightness, dtype=np.float64).reshape(-1)
+        return tightness_profile(lam, self._e, self._G1, self._G2, self._base, self._B0WB0,
+                                 float(self._const), float(self._df))
 
 
 def _objective_factory(

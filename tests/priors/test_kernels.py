@@ -11,7 +11,12 @@ from hypothesis import strategies as st
 from hypothesis.extra.numpy import arrays
 from scipy.linalg import solve_triangular
 
-from priors._kernels import bartlett_roots, gram_shock_step, select_quantiles
+from priors._kernels import (
+    bartlett_roots,
+    gram_shock_step,
+    select_quantiles,
+    tightness_profile,
+)
 from priors.conjugate import posterior
 from priors.data import Deterministics, future_exogenous_rows, load_series
 from priors.forecast import draw_quantiles
@@ -55,6 +60,40 @@ def test_select_quantiles_every_order_statistic_pair(seed):
     with np.errstate(invalid="ignore"):  # numpy's own interpolation meets inf - inf
         ref = np.quantile(X, levels, axis=1)
     np.testing.assert_array_equal(select_quantiles(X, levels), ref)
+
+
+def _profile_reference(lam, e, G1, G2, base, B0WB0, const, df):
+    # The formula of TightnessProfile written with numpy (slogdet for log|S|)
+    kl, n = G1.shape
+    out = []
+    for t in lam:
+        inv = 1.0 / t**2
+        H = G1 + inv * G2
+        S = base + inv * B0WB0 - (H / (e + inv)[:, None]).T @ H
+        sign, logdet = np.linalg.slogdet(S)
+        pd = sign > 0 and np.all(np.linalg.eigvalsh(S) > 0)
+        out.append(const - n * kl * np.log(t) - 0.5 * n * np.sum(np.log(e + inv))
+                   - 0.5 * df * logdet if pd else -np.inf)
+    return np.array(out)
+
+
+@pytest.mark.parametrize("n", [1, 3, 6])
+def test_tightness_profile_equals_the_numpy_formula(n):
+    rng = np.random.default_rng(n)
+    kl = 4 * n
+    A = rng.standard_normal((kl + 3, n))
+    e = rng.gamma(2.0, size=kl)
+    G1, G2 = rng.standard_normal((kl, n)), rng.standard_normal((kl, n))
+    base = A.T @ A + 50.0 * np.eye(n)
+    B0WB0 = np.diag(rng.gamma(2.0, size=n))
+    lam = np.exp(np.linspace(np.log(1e-4), np.log(5.0), 40))
+    got = tightness_profile(lam, e, G1, G2, base, B0WB0, -12.5, n + 90.0)
+    ref = _profile_reference(lam, e, G1, G2, base, B0WB0, -12.5, n + 90.0)
+    assert np.array_equal(np.isinf(got), np.isinf(ref))
+    np.testing.assert_allclose(got[np.isfinite(ref)], ref[np.isfinite(ref)], rtol=1e-11)
+    # a scale that is not positive definite (a negative eigenvalue) gives -inf
+    bad = tightness_profile(lam[:3], e, G1 * 0, G2 * 0, -np.eye(n), 0 * B0WB0, 0.0, 5.0)
+    assert np.all(bad == -np.inf)
 
 
 def test_select_quantiles_nan_and_inf_as_numpy():
@@ -201,7 +240,8 @@ def test_warm_up_compiles_what_the_samplers_use(known_var, rng):
     from priors._kernels import _dot_rows
 
     warm_up_kernels()
-    kernels = (gram_shock_step, bartlett_roots, select_quantiles, _dot_rows)
+    kernels = (gram_shock_step, bartlett_roots, select_quantiles, _dot_rows,
+               tightness_profile)
     before = [len(k.signatures) for k in kernels]
     y = known_var.simulate(rng, 60)
     fc = FanfoldVAR(lags=2).fit(y).forecast(5, rng=np.random.default_rng(0), draws=300)

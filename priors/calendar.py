@@ -165,8 +165,9 @@ def calendar_from_index(index: pd.DatetimeIndex, freq: str | None = None) -> Cal
         )
     if not index.is_monotonic_increasing:
         raise TimeIndexError("timestamps are not in increasing order; sort the rows by date")
-    if freq is None:
-        freq = index.freq.freqstr if index.freq is not None else None
+    if freq is None and index.freq is not None:
+        # pandas checked the spacing when it attached the frequency to the index
+        return Calendar(index, index.freq.freqstr, _kind(index.freq))
     if freq is None:
         if len(index) < 3:
             raise TimeIndexError("need at least 3 timestamps to tell the frequency")

@@ -212,14 +212,16 @@ def load_series(
     values = forward(levels, tr, series_names)
     drop = levels.shape[0] - values.shape[0]
     calendar = calendar.drop_first(drop)
-    for j, nm in enumerate(series_names):
-        # relative tolerance: differences of e.g. 0.1 * t are constant only up to rounding
-        if values.shape[0] > 0 and np.ptp(values[:, j]) <= 1e-10 * np.abs(values[:, j]).max():
-            unit = "its differences are" if tr[j] in DIFFERENCING else "it is"
-            raise ConstantSeriesError(
-                f"series {nm!r} has no variation ({unit} constant at {values[0, j]:g}); "
-                "drop it or use a longer window"
-            )
+    # relative tolerance: differences of e.g. 0.1 * t are constant only up to rounding
+    flat = (np.ptp(values, axis=0) <= 1e-10 * np.abs(values).max(axis=0) if values.shape[0]
+            else np.zeros(values.shape[1], dtype=bool))
+    if flat.any():
+        j = int(np.flatnonzero(flat)[0])
+        unit = "its differences are" if tr[j] in DIFFERENCING else "it is"
+        raise ConstantSeriesError(
+            f"series {series_names[j]!r} has no variation ({unit} constant at "
+            f"{values[0, j]:g}); drop it or use a longer window"
+        )
     ex, ex_names = _load_exog(exog, frame, series_names)
     ex = ex[drop:]
     _check_finite(ex, ex_names, calendar, "exogenous regressor")

@@ -31,7 +31,7 @@ from priors import (
     NIWPosterior,
     TimeIndexError,
 )
-from priors.forecast import check_quantiles
+from priors.forecast import check_quantiles, draw_quantiles
 from priors.gibbs import GibbsDraws, GibbsSettings
 
 __all__ = [
@@ -142,7 +142,7 @@ def forecast_to_dict(
         raise ValueError(f"quantile levels {list(levels)} are not distinct at 6 digits")
     # one pass over the draws for the median and every requested level
     with_median = np.unique(np.append(levels, 0.5))
-    table = forecast.quantiles(with_median)
+    table = draw_quantiles(forecast.paths, with_median)  # levels checked above
     median = table[int(np.searchsorted(with_median, 0.5))]
     qs = table[np.searchsorted(with_median, levels)]
     steps = forecast.steps()

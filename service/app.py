@@ -22,6 +22,7 @@ from .db import make_engine, make_session_factory
 from .engine import SWEEP_COST, limit_blas_threads
 from .errors import register_error_handlers
 from .jobs import JobRunner
+from .logs import configure_logging
 from .metrics import Metrics, MetricsMiddleware
 from .middleware import BodyLimitMiddleware, RequestIdMiddleware
 from .migrate import upgrade
@@ -31,6 +32,17 @@ from .schemas import ForecastCreate
 __all__ = ["create_app"]
 
 _EXPOSED = ["ETag", "Location", "Retry-After", "Link", "X-Request-ID"]
+
+
+def served_app() -> FastAPI:
+    """The factory ``fanfold serve`` gives uvicorn: JSON logs on stdout, then the app.
+
+    uvicorn calls it in every worker process; with ``--workers`` > 1 the workers are
+    fresh interpreters that inherit no logging set-up from the command, so each one
+    configures its own here (otherwise their request lines and errors would be lost).
+    """
+    configure_logging()
+    return create_app()
 
 
 def create_app(settings: Settings | None = None) -> FastAPI:

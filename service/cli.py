@@ -597,10 +597,10 @@ def _serve(args: argparse.Namespace) -> str:
         print(_store_demo(f"http://{_url_host(args.host)}:{args.port}"), flush=True)
     from .logs import configure_logging
 
-    configure_logging()
+    configure_logging()  # this process (the supervisor with --workers > 1)
     from .http_protocol import NoDelayHTTPProtocol
 
-    uvicorn.run("service.app:create_app", factory=True, host=args.host, port=args.port,
+    uvicorn.run("service.app:served_app", factory=True, host=args.host, port=args.port,
                 workers=args.workers, log_config=None, timeout_graceful_shutdown=20,
                 http=NoDelayHTTPProtocol)
     return ""

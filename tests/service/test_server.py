@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import json
 import os
 import signal
 import socket
@@ -27,12 +28,19 @@ def _free_port() -> int:
         return s.getsockname()[1]
 
 
-def _start(port: int, log: Path, extra_env: dict[str, str] | None = None) -> subprocess.Popen:
+def _start(port: int, log: Path, extra_env: dict[str, str] | None = None, *,
+           workers: int = 1, stdout: Path | None = None) -> subprocess.Popen:
     env = {**os.environ, "FANFOLD_BLAS_THREADS": "1", **(extra_env or {})}
     with log.open("ab") as err:
-        proc = subprocess.Popen(
-            [sys.executable, "-m", "service", "serve", "--port", str(port)],
-            env=env, stdout=subprocess.DEVNULL, stderr=err)
+        out = stdout.open("ab") if stdout is not None else subprocess.DEVNULL
+        try:
+            proc = subprocess.Popen(
+                [sys.executable, "-m", "service", "serve", "--port", str(port),
+                 "--workers", str(workers)],
+                env=env, stdout=out, stderr=err)
+        finally:
+            if stdout is not None:
+                out.close()
     deadline = time.monotonic() + 60
     while time.monotonic() < deadline:
         if proc.poll() is not None:
@@ -110,6 +118,32 @@ def test_real_server_answers_like_the_app_and_across_restarts(demo_body, tmp_pat
     assert stored_again.content == grown_fc.content
     with TestClient(create_app(Settings())) as c:
         assert c.post("/v1/forecasts", json=demo_body).content == first.content
+
+
+def test_every_worker_writes_json_request_logs(demo_body, tmp_path):
+    # With --workers 2 uvicorn runs the app in fresh processes; each must set up the
+    # JSON logs itself, or its request lines are lost.
+    port = _free_port()
+    out = tmp_path / "stdout.log"
+    proc = _start(port, tmp_path / "server.log",
+                  {"FANFOLD_DATABASE_URL": f"sqlite:///{tmp_path / 'f.db'}"},
+                  workers=2, stdout=out)
+    try:
+        rid = "workers-log-check"
+        r = httpx.post(f"http://127.0.0.1:{port}/v1/forecasts",
+                       json={**demo_body, "horizon": 2, "draws": 100},
+                       headers={"X-Request-ID": rid}, timeout=60)
+        assert r.status_code == 200, r.text
+    finally:
+        assert _stop(proc) == 0
+    records = [json.loads(line) for line in out.read_text().splitlines()
+               if line.startswith("{")]
+    mine = [r for r in records if r.get("request_id") == rid]
+    assert [(r["event"], r["route"], r["status"]) for r in mine] == [
+        ("request", "/v1/forecasts", 200)]
+    # both workers started with the JSON set-up (uvicorn's own lines, as JSON)
+    started = [r for r in records if r["event"].startswith("Started server process")]
+    assert len(started) == 2
 
 
 def test_serve_refuses_non_loopback_without_api_keys(capsys):

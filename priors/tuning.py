@@ -131,9 +131,10 @@ class TightnessProfile:
             + log_multigamma(0.5 * (df0 + T), n)
             - log_multigamma(0.5 * df0, n)
             - 0.5 * n * float(np.sum(np.log(omega_d)))
-            - 0.5 * n * float(np.sum(np.log(w)))
+            # the lag rows of -n/2 log|Omega0| give -n/2 sum log w (and -n kl log lambda,
+            # in the kernel); -n/2 log|P_ll| with log|P_ll| = -sum log w + sum log(e +
+            # 1/lambda^2) gives +n/2 sum log w: the two cancel, so neither appears
             - 0.5 * n * logdet_Pdd
-            + 0.5 * n * float(np.sum(np.log(w)))  # from log|Sc| = -sum log w + ...
             + 0.5 * df0 * float(np.sum(np.log(np.diag(S0))))
         )
         self._df = df0 + T

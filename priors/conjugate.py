@@ -23,13 +23,19 @@ from scipy.linalg import cholesky, solve_triangular
 from scipy.special import gammaln
 
 from ._types import FloatArray
-from .data import Design
-from .errors import NotPositiveDefiniteError, TooFewObservationsError
+from .data import Design, explosive_message
+from .errors import (
+    ExplosiveDataError,
+    NotPositiveDefiniteError,
+    PriorsError,
+    TooFewObservationsError,
+)
 from .shrinkage import NIWPrior
 
 __all__ = [
     "Moments",
     "NIWPosterior",
+    "collinear_after_scaling",
     "flat_posterior",
     "log_marginal_likelihood",
     "log_marginal_likelihood_fast",
@@ -104,6 +110,37 @@ def _stacked_least_squares(Ab: FloatArray, k: int) -> tuple[FloatArray, FloatArr
     return R, _solve_upper(R, Qtb), R22
 
 
+#: steady growth (orders of magnitude) that explains a singular posterior precision when
+#: the regressors are not collinear; below :data:`priors.data.EXPLOSIVE_DECADES`, which
+#: load_series refuses up front, because here the factorisation has already failed
+_SINGULAR_GROWTH_DECADES = 3.0
+
+
+def collinear_after_scaling(A: FloatArray) -> bool:
+    """Whether the columns of ``A`` (rows, k) are linearly dependent once each is scaled
+    to unit length: QR pivots below 1e-10 of the largest. Scaling removes differences of
+    size between columns (units, explosive growth), so a True means genuine collinearity
+    (e.g. a duplicated series), a False a failure caused by sizes alone."""
+    norms = np.linalg.norm(A, axis=0)
+    if A.shape[0] < A.shape[1] or not np.all(norms > 0):
+        return True
+    d = np.abs(np.diag(np.linalg.qr(A / norms, mode="r")))
+    return not (np.all(np.isfinite(d)) and d.min() > 1e-10 * d.max())
+
+
+def _explain_singular(exc: NotPositiveDefiniteError, design: Design,
+                      regressors: FloatArray) -> PriorsError:
+    """The error to raise for a singular posterior precision: :class:`ExplosiveDataError`
+    when a series of ``design.Y`` (T, n) grows steadily by at least
+    ``_SINGULAR_GROWTH_DECADES`` orders of magnitude and ``regressors`` (rows, k), the
+    stacked data and prior rows, are not collinear after scaling; else ``exc`` itself
+    (the collinearity message)."""
+    message = explosive_message(design.Y, design.names, decades=_SINGULAR_GROWTH_DECADES)
+    if message is None or collinear_after_scaling(regressors):
+        return exc
+    return ExplosiveDataError(message)
+
+
 def _update(prior: NIWPrior, X: FloatArray, Y: FloatArray) -> NIWPosterior:
     """NIW update on data (X, Y) without dummies; log_ml of exactly these rows."""
     T, n = Y.shape
@@ -127,7 +164,20 @@ def posterior(design: Design, prior: NIWPrior) -> NIWPosterior:
 
     The log marginal likelihood is that of the data alone:
     log p([Y; Y_d]) - log p(Y_d) (Giannone, Lenza & Primiceri 2015).
+
+    Raises :class:`ExplosiveDataError` instead of the collinearity error when the
+    precision is singular because a series explodes (see :func:`_explain_singular`).
     """
+    try:
+        return _posterior(design, prior)
+    except NotPositiveDefiniteError as exc:
+        stacked = np.vstack([design.X, prior.Xd, np.diag(1.0 / np.sqrt(prior.omega))])
+        raise _explain_singular(exc, design, stacked) from exc
+
+
+def _posterior(design: Design, prior: NIWPrior) -> NIWPosterior:
+    """:func:`posterior` without the explanation of a singular precision: the tuning's
+    candidates (through :func:`log_marginal_likelihood`) keep NotPositiveDefiniteError."""
     if prior.Yd.shape[0] == 0:
         return _update(prior, design.X, design.Y)
     post = _update(prior, np.vstack([design.X, prior.Xd]), np.vstack([design.Y, prior.Yd]))
@@ -137,8 +187,11 @@ def posterior(design: Design, prior: NIWPrior) -> NIWPosterior:
 
 
 def log_marginal_likelihood(design: Design, prior: NIWPrior) -> float:
-    """log p(Y | prior) in closed form (matrix-variate t; GLP 2015, appendix)."""
-    lml = posterior(design, prior).log_ml
+    """log p(Y | prior) in closed form (matrix-variate t; GLP 2015, appendix).
+
+    A singular posterior precision raises NotPositiveDefiniteError whatever its cause:
+    the hyperparameter search treats it as a candidate to skip."""
+    lml = _posterior(design, prior).log_ml
     assert lml is not None
     return lml
 
@@ -155,7 +208,10 @@ def flat_posterior(design: Design) -> NIWPosterior:
             f"the flat prior needs more rows than regressors + series + 1: {T} rows for "
             f"{k} regressors and {n} series; use the Minnesota prior, fewer lags or more data"
         )
-    R, B, R22 = _stacked_least_squares(np.hstack([design.X, design.Y]), k)
+    try:
+        R, B, R22 = _stacked_least_squares(np.hstack([design.X, design.Y]), k)
+    except NotPositiveDefiniteError as exc:
+        raise _explain_singular(exc, design, design.X) from exc
     S = R22.T @ R22
     return NIWPosterior(B, R, 0.5 * (S + S.T), float(T - k), None)
 

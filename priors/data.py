@@ -9,6 +9,7 @@ forecast steps.
 
 from __future__ import annotations
 
+import warnings
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
 
@@ -21,23 +22,36 @@ from .errors import (
     ConstantSeriesError,
     DuplicateNameError,
     ExogenousError,
+    ExplosiveDataError,
     MissingValuesError,
     NonNumericError,
+    ShortHistoryWarning,
     SpecificationError,
     TooFewObservationsError,
 )
 from .transforms import DIFFERENCING, check_transforms, forward
 
 __all__ = [
+    "EXPLOSIVE_DECADES",
     "Deterministics",
     "Design",
     "RaggedEdge",
     "SeriesData",
     "build_design",
+    "count_columns",
+    "check_history",
+    "explosive_message",
     "future_exogenous_rows",
+    "growth_decades",
     "load_series",
+    "season_columns",
     "split_ragged_edge",
+    "warn_short_history",
 ]
+
+#: steady growth over the sample, in orders of magnitude, that :func:`load_series`
+#: refuses as explosive (see :func:`explosive_message`)
+EXPLOSIVE_DECADES = 6.0
 
 
 @dataclass(frozen=True)
@@ -171,6 +185,85 @@ def _check_finite(values: FloatArray, names: Sequence[str], calendar: Calendar, 
         )
 
 
+def _edge_rows(T: int) -> int:
+    """Rows b = max(2, T // 10) in each of the first, middle and last stretches."""
+    return max(2, T // 10)
+
+
+def growth_decades(values: FloatArray) -> FloatArray:
+    """Orders of magnitude by which each series grows steadily over the sample, (n,).
+
+    Parameters
+    ----------
+    values : (T, n) data in model units.
+
+    Returns
+    -------
+    (n,) ``log10(last / first)``, where ``first``, ``middle`` and ``last`` are the
+    largest absolute values in the first, middle and last b = max(2, T // 10) rows;
+    0 where the growth is not steady. Steady means that each half of the sample carries
+    at least a quarter of the total rise: first -> middle and middle -> last (an
+    exponential carries half each; a single level shift, e.g. a change of units, all
+    of it in one half). 0 too when the first rows are all zero or T < 3 b.
+    """
+    values = np.asarray(values, dtype=np.float64)
+    T, n = values.shape
+    b = _edge_rows(T)
+    if T < 3 * b:
+        return np.zeros(n)
+    mid = T // 2 - b // 2
+    size = np.abs(values)
+    first, middle, last = (size[rows].max(axis=0) for rows in
+                           (slice(0, b), slice(mid, mid + b), slice(T - b, T)))
+    with np.errstate(divide="ignore", invalid="ignore"):
+        rise1 = np.log10(middle) - np.log10(first)
+        rise2 = np.log10(last) - np.log10(middle)
+    total = rise1 + rise2
+    steady = (first > 0) & np.isfinite(total) & (np.minimum(rise1, rise2) >= 0.25 * total)
+    return np.where(steady & (total > 0), total, 0.0)
+
+
+def explosive_message(
+    values: FloatArray, names: Sequence[str], *, decades: float = EXPLOSIVE_DECADES
+) -> str | None:
+    """What to tell the user when a series explodes, else None.
+
+    Parameters
+    ----------
+    values : (T, n) data in model units.
+    names : the n series names.
+    decades : smallest steady growth, in orders of magnitude, that counts as explosive
+        (:func:`growth_decades`). The default, a millionfold, is where the least-squares
+        steps break down: squared values then span 12 orders of magnitude, the relative
+        tolerance (1e-12, 1e-13) below which the fits treat a residual variance or a
+        pivot as zero, and the early rows no longer count at all.
+
+    Returns
+    -------
+    The message for the fastest-growing series over ``decades`` (its name, first and
+    last magnitudes and growth factor per period, and to model its log), or None.
+    """
+    values = np.asarray(values, dtype=np.float64)
+    grow = growth_decades(values)
+    if not grow.size or grow.max() < decades:
+        return None
+    j = int(np.argmax(grow))
+    T = values.shape[0]
+    b = _edge_rows(T)
+    size = np.abs(values[:, j])
+    i0, i1 = int(np.argmax(size[:b])), T - b + int(np.argmax(size[T - b:]))
+    per_period = 10.0 ** ((np.log10(size[i1]) - np.log10(size[i0])) / (i1 - i0))
+    name = names[j]
+    return (
+        f"series {name!r} explodes: its largest absolute value is {size[i0]:.3g} in the "
+        f"first {b} rows and {size[i1]:.3g} in the last {b} ({grow[j]:.0f} orders of "
+        f"magnitude, about x{per_period:.3g} per period), so a VAR in these units is "
+        "dominated by its last few values and cannot be estimated reliably; model its "
+        f"logarithm, transforms={{{name!r}: 'log'}} (or 'logdiff' for growth rates; both "
+        "need positive values), or check the data's units"
+    )
+
+
 def load_series(
     data: pd.DataFrame | FloatArray,
     *,
@@ -222,6 +315,9 @@ def load_series(
             f"series {series_names[j]!r} has no variation ({unit} constant at "
             f"{values[0, j]:g}); drop it or use a longer window"
         )
+    explosive = explosive_message(values, series_names)
+    if explosive:
+        raise ExplosiveDataError(explosive)
     ex, ex_names = _load_exog(exog, frame, series_names)
     ex = ex[drop:]
     _check_finite(ex, ex_names, calendar, "exogenous regressor")
@@ -331,6 +427,25 @@ def _deterministic_block(
     return np.column_stack(cols), labels
 
 
+def count_columns(levels: FloatArray) -> np.ndarray:
+    """Which of the (T, n) series are counts: every finite value a whole number >= 0
+    (units sold, items shipped), shape (n,)."""
+    values = np.asarray(levels, dtype=np.float64)
+    finite = np.isfinite(values)
+    whole = (values >= 0) & (values == np.round(values))
+    return np.all(whole | ~finite, axis=0) & np.any(finite, axis=0)
+
+
+#: label prefixes of the seasonal dummies (see :meth:`Calendar.season_labels`)
+SEASON_PREFIXES = ("month=", "quarter=", "weekday=", "season=")
+
+
+def season_columns(design: Design) -> np.ndarray:
+    """Boolean mask over the m deterministic/exogenous columns: the seasonal dummies."""
+    return np.array([lab.startswith(SEASON_PREFIXES) for lab in design.labels[: design.n_det]],
+                    dtype=bool)
+
+
 def build_design(
     series: SeriesData, lags: int, det: Deterministics, *, start: int | None = None
 ) -> Design:
@@ -373,6 +488,59 @@ def build_design(
         *(f"{nm}[t-{lag}]" for lag in range(1, lags + 1) for nm in series.names),
     )
     return Design(V[start:].copy(), X, lags, m, labels, series.names)
+
+
+def _history_need(n: int, lags: int, m: int) -> int:
+    """Rows that :func:`check_history` asks for: max(k + 1, 2 n p), k = m + n p."""
+    return max(m + n * lags + 1, 2 * n * lags)
+
+
+def check_history(design: Design) -> str | None:
+    """The warning text when the sample is short for the lag order, else None.
+
+    Rule (common practice, a rule of thumb, not a result from a paper): an equation of
+    a VAR(p) has k = m + n p coefficients (m deterministic/exogenous terms, n series);
+    least squares needs more rows than k, and the data inform the n p lag coefficients
+    of an equation only with at least about two rows each. So warn when the estimation
+    rows T (``design.nobs``) are fewer than max(k + 1, 2 n p). The model still fits:
+    the prior's shrinkage then carries most of the weight. Examples that pass: 120
+    monthly rows, 5 series, 1-2 lags; 120 rows, 3 series, 4 lags (116 >= 24); 200
+    quarterly rows, 7 series, 8 lags (192 >= 112); 76 quarterly rows, 5 series, 4 lags,
+    constant and 3 seasonal dummies (72 >= 40). 10 rows of 3 series with 3 lags warn
+    (7 < 18).
+
+    Parameters
+    ----------
+    design : Y (T, n) and X (T, k) of the fitted VAR, with ``design.lags`` presample
+        rows before the T estimation rows (:func:`build_design` with its default start).
+    """
+    T, n, p, k, m = design.nobs, design.n, design.lags, design.k, design.n_det
+    need = _history_need(n, p, m)
+    if T >= need:
+        return None
+    total = T + p  # observations in model units, presample included
+    fit = [q for q in range(p - 1, 0, -1) if total - q >= _history_need(n, q, m)]
+    options = [f"fewer lags (lags={fit[0]} meets the rule)" if fit else "fewer series"]
+    if fit:
+        options.append("fewer series")
+    if m + 1 > n * p:  # the deterministic/exogenous terms are what make k + 1 bind
+        options.append("fewer deterministic/exogenous terms")
+    options.append(f"{need - T} more period(s) of history")
+    return (
+        f"short history for {p} lag(s): {T} estimation rows for {k} coefficients per "
+        f"equation ({n} series x {p} lag(s) + {m} deterministic/exogenous term(s)); a "
+        f"common rule of thumb asks for at least {need} rows (more than the coefficients, "
+        "and two per lag coefficient), so the prior's shrinkage, not the data, carries "
+        f"most of the weight. Use {', '.join(options[:-1])} or {options[-1]}"
+    )
+
+
+def warn_short_history(design: Design) -> None:
+    """Warn with :class:`ShortHistoryWarning` when :func:`check_history` finds the sample
+    short; called once on the fitted model's design (not on the lag search's)."""
+    message = check_history(design)
+    if message:
+        warnings.warn(message, ShortHistoryWarning, stacklevel=3)
 
 
 def future_exogenous_rows(

@@ -7,6 +7,7 @@ The tree::
     │   ├── MissingValuesError                 NaN or inf inside the estimation window
     │   ├── TooFewObservationsError            not enough rows for the lags and regressors
     │   ├── ConstantSeriesError                a series never changes
+    │   ├── ExplosiveDataError                 a series grows by orders of magnitude
     │   ├── NonPositiveValuesError             log transform of values <= 0 (or <= -1 for log1p)
     │   ├── TimeIndexError                     duplicate, unsorted or irregular timestamps
     │   ├── NonNumericError                    a column that is not numbers
@@ -17,6 +18,7 @@ The tree::
     └── NotFittedError (ValueError, AttributeError)
 
     ConvergenceWarning (UserWarning)           an optimiser stopped at a bound or failed
+    ShortHistoryWarning (UserWarning)          few rows for the coefficients of the lags
 
 Every message says what was found and what to change. The service maps each class to
 an RFC 9457 problem response in one place (``service/errors.py``).
@@ -32,12 +34,14 @@ __all__ = [
     "DataError",
     "DuplicateNameError",
     "ExogenousError",
+    "ExplosiveDataError",
     "MissingValuesError",
     "NonNumericError",
     "NonPositiveValuesError",
     "NotFittedError",
     "NotPositiveDefiniteError",
     "PriorsError",
+    "ShortHistoryWarning",
     "SpecificationError",
     "TimeIndexError",
     "TooFewObservationsError",
@@ -62,6 +66,11 @@ class TooFewObservationsError(DataError):
 
 class ConstantSeriesError(DataError):
     """A series is constant over the estimation window, so its scale is zero."""
+
+
+class ExplosiveDataError(DataError):
+    """A series grows by orders of magnitude over the sample (e.g. exponentially), so a
+    VAR in its units cannot be estimated in double precision; model its log instead."""
 
 
 class NonPositiveValuesError(DataError):
@@ -98,3 +107,8 @@ class NotFittedError(PriorsError, ValueError, AttributeError):
 
 class ConvergenceWarning(UserWarning):
     """An optimiser stopped at a bound of its search range or did not converge."""
+
+
+class ShortHistoryWarning(UserWarning):
+    """The estimation sample is short for the number of coefficients of the chosen lags,
+    so the prior, not the data, decides most of them."""

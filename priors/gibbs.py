@@ -55,6 +55,7 @@ from .shrinkage import (
     det_variances,
     dummy_observations,
     lag_variance_profile,
+    prior_mean_block,
 )
 
 __all__ = [
@@ -110,13 +111,10 @@ def independent_minnesota_prior(
     - 1), df) with df = n + 2 (E[Sigma] = diag(psi)).
     """
     n, m, p = design.n, design.n_det, design.lags
-    prior_mean = np.asarray(prior_mean, dtype=np.float64)
-    if prior_mean.shape != (n,):
-        raise SpecificationError(f"prior_mean must have one value per series ({n})")
     psi = ar_residual_variances(design) if psi is None else np.asarray(psi, dtype=np.float64)
     B0 = np.zeros((design.k, n))
-    B0[m + np.arange(n), np.arange(n)] = prior_mean
-    omega = np.concatenate([det_variances(design, hyper.det_scale),
+    B0[m:] = prior_mean_block(prior_mean, n, p)
+    omega = np.concatenate([det_variances(design, hyper.det_scale, hyper.season_scale),
                             hyper.tightness**2 * lag_variance_profile(design, psi, hyper.decay)])
     V = omega[:, None] * psi[None, :]
     own = np.tile(np.eye(n, dtype=bool), (p, 1))  # (n p, n): lag row of series i in eq. i

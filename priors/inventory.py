@@ -250,6 +250,7 @@ def replenishment_advice(
     fill_rate: float | None = None,
     order_quantity: float | None = None,
     levels: Sequence[float] = (0.05, 0.5, 0.95),
+    whole_units: bool = False,
 ) -> ReplenishmentAdvice:
     """Reorder point, safety stock and a suggested order from lead-time demand draws.
 
@@ -270,6 +271,9 @@ def replenishment_advice(
     service_level, fill_rate : in (0, 1); exactly one of them.
     order_quantity : Q > 0, lot size; required with ``fill_rate``.
     levels : quantile levels of demand to report, each in (0, 1).
+    whole_units : demand comes in whole units (counts): the reorder point is rounded up
+        to a whole number (rounding up never lowers the service achieved) and so is the
+        suggested order (then to whole lots with ``order_quantity``).
     """
     d = _totals(totals)
     if (service_level is None) == (fill_rate is None):
@@ -289,8 +293,12 @@ def replenishment_advice(
     else:
         target, value = "fill_rate", float(fill_rate)
         s = fill_rate_reorder_point(d, fill_rate, q)
+    if whole_units:
+        s = float(math.ceil(s - 1e-9))  # a reorder point a rounding error above n is n
     mean = float(d.mean())
     shortfall = max(0.0, s - position)
+    if whole_units:
+        shortfall = float(math.ceil(shortfall - 1e-9))
     if q is not None:
         shortfall = math.ceil(shortfall / q) * q
     short_s, short_ip = expected_shortage(d, np.array([s, position]))

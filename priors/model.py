@@ -17,6 +17,7 @@ from scipy import stats
 from scipy.linalg import solve_triangular
 
 from ._types import FloatArray
+from .autoconfig import AutoRequest, Configuration, choose_configuration, default_max_lags
 from .conjugate import NIWPosterior, flat_posterior, posterior, update_posterior
 from .convergence import ConvergenceReport
 from .data import (
@@ -24,6 +25,7 @@ from .data import (
     Deterministics,
     SeriesData,
     build_design,
+    count_columns,
     future_exogenous_rows,
     load_series,
     split_ragged_edge,
@@ -71,7 +73,6 @@ from .tuning import tune_hyperparameters
 __all__ = ["FanfoldVAR", "LagChoice", "default_max_lags"]
 
 PRIORS = ("minnesota", "flat", "independent")
-_MAX_LAGS = {"monthly": 13, "quarterly": 5, "weekly": 8, "daily": 14}
 
 
 @dataclass(frozen=True)
@@ -82,12 +83,6 @@ class LagChoice:
     score: float
     tightness: float | None
     criterion: str  # "log_ml" or "bic"
-
-
-def default_max_lags(kind: str) -> int:
-    """Largest lag order searched by ``lags='auto'``: a year and one period for monthly
-    and quarterly data, 8 weeks, two weeks of days, else 8 (common practice)."""
-    return _MAX_LAGS.get(kind, 8)
 
 
 def _is_count(value: object) -> bool:
@@ -132,17 +127,29 @@ class FanfoldVAR:
         Prior s.d. of deterministic/exogenous coefficients, in residual s.d. units.
     sum_coef, initial : float, "auto" or None
         Weights of the sum-of-coefficients and dummy-initial-observation priors; None
-        switches them off, "auto" tunes them with the tightness.
+        switches them off; "auto" lets the automatic configuration decide whether they
+        pay and tunes their weights with the tightness.
+    season_scale : float, "auto" or None
+        Prior s.d. of the seasonal-dummy coefficients (units as ``det_scale``); "auto"
+        tunes it by marginal likelihood; None uses ``det_scale`` (nearly flat).
     hyperprior : bool
         Tune by the posterior mode under Gamma hyperpriors (Giannone, Lenza & Primiceri
-        2015) instead of the marginal likelihood alone.
+        2015) instead of the marginal likelihood alone (default).
     prior_mean : sequence or mapping, optional
         Prior mean of each series' own first lag; default 1 for levels and logs, 0 for
         differenced series.
-    constant, trend, seasonal : bool
+    constant, trend : bool
         Deterministic terms.
-    transforms : str, sequence or mapping, optional
-        none, log, log1p, diff or logdiff, for all or per series.
+    seasonal : bool or "auto"
+        Seasonal dummies by the data's calendar; "auto" chooses by marginal likelihood.
+    transforms : "auto", str, sequence or mapping, optional
+        none, log, log1p, diff or logdiff, for all or per series; "auto" chooses each
+        series' levels or log-type transform by marginal likelihood (None = levels).
+
+    Settings left at "auto" (the defaults) are chosen per data set by
+    :func:`priors.autoconfig.choose_configuration`; ``configuration_`` says what was
+    chosen and why, and :meth:`resolved_params` gives the settings with every choice
+    written out.
     outliers : sequence of (first period, number of periods), optional
         "independent" only: known-date periods (a promotion, a stock-out, a supply shock)
         whose shocks get their own scale, estimated (Lenza & Primiceri 2022); the first
@@ -152,6 +159,10 @@ class FanfoldVAR:
         loop (Metropolis) under Gamma hyperpriors (tightness: mode 0.2, s.d. 0.4, as in
         Giannone, Lenza & Primiceri 2015; cross: mode 0.5, s.d. 0.5), starting from the
         tuned tightness and ``cross``; slower per sweep than fixed values.
+    counts : bool or "auto"
+        Count-aware demand: forecasts of count series (every value a whole number >= 0)
+        are censored at zero, so no path, mean or quantile goes below zero; "auto" (the
+        default) turns it on for the series that are counts, True for every series.
     volatility : "constant" or "common"
         "common" (prior "minnesota"): one stochastic volatility for all series, a log-AR(1)
         process (Carriero, Clark & Marcellino 2016), sampled by Gibbs; forecasts carry
@@ -170,18 +181,20 @@ class FanfoldVAR:
         tightness: float | str = "auto",
         decay: float = 1.0,
         det_scale: float = 1000.0,
-        sum_coef: float | str | None = None,
-        initial: float | str | None = None,
-        hyperprior: bool = False,
+        sum_coef: float | str | None = "auto",
+        initial: float | str | None = "auto",
+        season_scale: float | str | None = "auto",
+        hyperprior: bool = True,
         prior_mean: Sequence[float] | Mapping[str, float] | None = None,
         constant: bool = True,
         trend: bool = False,
-        seasonal: bool = False,
-        transforms: str | Sequence[str] | Mapping[str, str] | None = None,
+        seasonal: bool | str = "auto",
+        transforms: str | Sequence[str] | Mapping[str, str] | None = "auto",
         cross: float = 1.0,
         outliers: Sequence[tuple[str | int, int]] | None = None,
         sample_hyper: bool = False,
         volatility: str = "constant",
+        counts: bool | str = "auto",
         chains: int = 4,
         burn: int = 500,
         keep: int = 1000,
@@ -196,6 +209,7 @@ class FanfoldVAR:
         self.det_scale = det_scale
         self.sum_coef = sum_coef
         self.initial = initial
+        self.season_scale = season_scale
         self.hyperprior = hyperprior
         self.prior_mean = prior_mean
         self.constant = constant
@@ -206,6 +220,7 @@ class FanfoldVAR:
         self.outliers = outliers
         self.sample_hyper = sample_hyper
         self.volatility = volatility
+        self.counts = counts
         self.chains = chains
         self.burn = burn
         self.keep = keep
@@ -221,10 +236,16 @@ class FanfoldVAR:
             raise SpecificationError(f"lags must be 'auto' or an integer >= 1; got {self.lags!r}")
         if self.max_lags is not None and not _is_count(self.max_lags):
             raise SpecificationError(f"max_lags must be an integer >= 1; got {self.max_lags!r}")
-        for name in ("tightness", "sum_coef", "initial"):
+        for name in ("tightness", "sum_coef", "initial", "season_scale"):
             v = getattr(self, name)
             if isinstance(v, str) and v != "auto":
                 raise SpecificationError(f"{name} must be a number or 'auto'; got {v!r}")
+        if not (isinstance(self.counts, bool | np.bool_) or self.counts == "auto"):
+            raise SpecificationError(f"counts must be true, false or 'auto'; got "
+                                     f"{self.counts!r}")
+        if not (isinstance(self.seasonal, bool | np.bool_) or self.seasonal == "auto"):
+            raise SpecificationError(f"seasonal must be true, false or 'auto'; got "
+                                     f"{self.seasonal!r}")
         if self.tightness is None:
             raise SpecificationError("tightness must be a number or 'auto'")
         if self.volatility not in ("constant", "common"):
@@ -255,23 +276,21 @@ class FanfoldVAR:
         return GibbsSettings(chains=self.chains, burn=self.burn, keep=self.keep,
                              thin=self.thin, workers=self.workers)
 
-    def _base_hyper(self) -> tuple[MinnesotaHyper, tuple[str, ...]]:
-        tune = []
-        values: dict[str, float | None] = {}
-        for name, start in (("tightness", 0.2), ("sum_coef", 1.0), ("initial", 1.0)):
-            v = getattr(self, name)
-            if v == "auto":
-                tune.append(name)
-                values[name] = start
-            else:
-                values[name] = None if v is None else float(v)
-        hyper = MinnesotaHyper(
-            tightness=values["tightness"] if values["tightness"] is not None else 0.2,
-            decay=float(self.decay),
-            det_scale=float(self.det_scale), sum_coef=values["sum_coef"],
-            initial=values["initial"],
-        )
-        return hyper, tuple(tune)
+    def _auto_request(self) -> AutoRequest:
+        """What the automatic configuration chooses ("auto") and what is given."""
+        return AutoRequest(
+            transforms=self.transforms, seasonal=self.seasonal, lags=self.lags,
+            max_lags=self.max_lags, tightness=self.tightness, sum_coef=self.sum_coef,
+            initial=self.initial, season_scale=self.season_scale,
+            hyperprior=bool(self.hyperprior), decay=float(self.decay),
+            det_scale=float(self.det_scale), constant=self.constant, trend=self.trend,
+            prior_mean=self.prior_mean, dummies_allowed=self.prior != "flat")
+
+    def _count_flags(self, series: SeriesData) -> tuple[bool, ...]:
+        """Per series: whether forecasts are censored at zero (see ``counts``)."""
+        if self.counts == "auto":
+            return tuple(bool(c) for c in count_columns(series.levels))
+        return (bool(self.counts),) * series.n
 
     def _prior_mean(self, series: SeriesData) -> FloatArray:
         if self.prior_mean is None:
@@ -284,14 +303,17 @@ class FanfoldVAR:
             return np.array([float(self.prior_mean.get(nm, b))
                              for nm, b in zip(series.names, base, strict=True)])
         pm = np.asarray(self.prior_mean, dtype=np.float64)
-        if pm.shape != (series.n,):
-            raise SpecificationError(f"prior_mean needs one value per series ({series.n})")
+        if pm.shape != (series.n,) and not (pm.ndim == 2 and pm.shape[1] == series.n):
+            raise SpecificationError(f"prior_mean needs one value per series ({series.n}), "
+                                     f"or one row per lag (lags, {series.n})")
         return pm
 
     # ------------------------------------------------------------------ fitting
-    def _fit_minnesota(self, design: Design, prior_mean: FloatArray
-                       ) -> tuple[MinnesotaHyper, NIWPrior, NIWPosterior]:
-        base, tune = self._base_hyper()
+    def _fit_minnesota(self, design: Design, prior_mean: FloatArray,
+                       config: Configuration) -> tuple[MinnesotaHyper, NIWPrior, NIWPosterior]:
+        """Tune what ``config`` leaves to tune on ``design`` (starting at its values),
+        then the closed-form posterior."""
+        base, tune = config.hyper, config.tune
         psi = ar_residual_variances(design)
         hyper = base
         if tune:
@@ -310,24 +332,22 @@ class FanfoldVAR:
         build_design(series, 1, det)  # raises the informative error
         return 1
 
-    def _choose_lags(self, series: SeriesData, det: Deterministics, prior_mean: FloatArray
-                     ) -> tuple[int, list[LagChoice]]:
+    def _bic_lags(self, series: SeriesData, det: Deterministics) -> tuple[int, list[LagChoice]]:
+        """Lag order of the flat prior by the Schwarz criterion on a common sample."""
         want = self.max_lags or default_max_lags(series.calendar.kind)
         p_max = self._feasible_max_lags(series, det, want)
-        table: list[LagChoice] = []
-        for p in range(1, p_max + 1):
-            design = build_design(series, p, det, start=p_max)
-            if self.prior == "flat":
-                table.append(LagChoice(p, _bic(design), None, "bic"))
-            else:
-                hyper, _, post = self._fit_minnesota(design, prior_mean)
-                assert post.log_ml is not None
-                table.append(LagChoice(p, post.log_ml, hyper.tightness, "log_ml"))
-        if self.prior == "flat":
-            best = min(table, key=lambda c: c.score)
-        else:
-            best = max(table, key=lambda c: c.score)
-        return best.lags, table
+        table = [LagChoice(p, _bic(build_design(series, p, det, start=p_max)), None, "bic")
+                 for p in range(1, p_max + 1)]
+        return min(table, key=lambda c: c.score).lags, table
+
+    def configure(self, data: pd.DataFrame | FloatArray, *,
+                  exog: pd.DataFrame | FloatArray | None = None,
+                  names: Sequence[str] | None = None,
+                  period: int | None = None) -> Configuration:
+        """The automatic configuration for ``data`` (complete rows): the settings left at
+        "auto" chosen by marginal likelihood (see :mod:`priors.autoconfig`)."""
+        return choose_configuration(data, self._auto_request(), exog=exog, names=names,
+                                    period=period)
 
     def fit(
         self,
@@ -351,20 +371,25 @@ class FanfoldVAR:
         """
         self._check_settings()
         data, exog, ragged = split_ragged_edge(data, exog, names)
-        series = load_series(data, transforms=self.transforms, exog=exog, names=names,
-                             period=period)
-        det = Deterministics(self.constant, self.trend, self.seasonal)
+        config = self.configure(data, exog=exog, names=names, period=period)
+        series = load_series(data, transforms=list(config.transforms), exog=exog,
+                             names=names, period=period)
+        det = Deterministics(self.constant, self.trend, config.seasonal)
         prior_mean = self._prior_mean(series)
-        if self.lags == "auto":
-            lags, table = self._choose_lags(series, det, prior_mean)
-        else:
-            lags, table = int(self.lags), []
+        lags, table = config.lags, [LagChoice(p, score, tight, "log_ml")
+                                    for p, score, tight in config.lag_table]
+        if self.prior == "flat" and self.lags == "auto":
+            lags, table = self._bic_lags(series, det)
         design = build_design(series, lags, det)
+        from .data import warn_short_history  # the chosen order only, not the search's
+        warn_short_history(design)
         if self.prior == "flat":
             hyper, prior, post = None, None, flat_posterior(design)
         else:
-            hyper, prior, post = self._fit_minnesota(design, prior_mean)
+            hyper, prior, post = self._fit_minnesota(design, prior_mean, config)
+        self.configuration_ = config if hyper is None else dataclasses.replace(config, hyper=hyper)
         self.series_ = series
+        self.counts_ = self._count_flags(series)
         self.ragged_ = ragged
         self.deterministics_ = det
         self.prior_mean_ = prior_mean
@@ -476,6 +501,24 @@ class FanfoldVAR:
         names = [p for p in inspect.signature(type(self).__init__).parameters if p != "self"]
         return {name: getattr(self, name) for name in names}
 
+    def resolved_params(self) -> dict[str, object]:
+        """:meth:`get_params` with every "auto" choice of the fit written out: transforms
+        (per series), seasonal, lags and the tuned hyperparameters. A model built from
+        them and fitted to the same data is the fitted model, without any search; this is
+        what :meth:`restore` needs."""
+        self._check_fitted()
+        params = self.get_params()
+        params.update(transforms=dict(zip(self.series_.names, self.series_.transforms,
+                                          strict=True)),
+                      seasonal=bool(self.deterministics_.seasonal), lags=int(self.lags_))
+        h = self.hyper_
+        if h is not None:
+            params.update(tightness=h.tightness, sum_coef=h.sum_coef, initial=h.initial,
+                          season_scale=h.season_scale)
+        else:  # flat prior: no shrinkage, no dummies
+            params.update(sum_coef=None, initial=None, season_scale=None)
+        return params
+
     @classmethod
     def restore(
         cls,
@@ -489,18 +532,28 @@ class FanfoldVAR:
         names: Sequence[str] | None = None,
         period: int | None = None,
         draws: GibbsDraws | None = None,
+        configuration: Mapping[str, object] | None = None,
     ) -> FanfoldVAR:
         """A fitted model from stored parts, without tuning or fitting again.
 
         ``draws``: the stored Gibbs draws of a ``prior="independent"`` model.
+        ``configuration``: the original's ``configuration_.to_dict(names)`` (the report
+        of what the automatic configuration chose and why), kept as
+        ``configuration_``.
 
-        ``params`` are :meth:`get_params` of the original; ``lags``, ``hyper`` and
-        ``posterior`` its fitted ``lags_``, ``hyper_`` and ``posterior_``. The data are
-        validated and the design rebuilt (cheap and deterministic); the posterior is
-        taken as given, so forecasts equal those of the original model.
+        ``params`` are :meth:`resolved_params` of the original (settings with no "auto"
+        transforms or seasonality left); ``lags``, ``hyper`` and ``posterior`` its fitted
+        ``lags_``, ``hyper_`` and ``posterior_``. The data are validated and the design
+        rebuilt (cheap and deterministic); the posterior is taken as given, so forecasts
+        equal those of the original model.
         """
         model = cls(**params)  # type: ignore[arg-type]
         model._check_settings()
+        for name in ("transforms", "seasonal"):
+            if isinstance(params.get(name, "auto"), str) and params.get(name, "auto") == "auto":
+                raise SpecificationError(
+                    f"restore needs the fitted model's {name}, not 'auto': pass "
+                    "model.resolved_params()")
         data, exog, ragged = split_ragged_edge(data, exog, names)
         series = load_series(data, transforms=model.transforms, exog=exog, names=names,
                              period=period)
@@ -514,12 +567,15 @@ class FanfoldVAR:
         prior = None if hyper is None else minnesota_prior(
             design, dataclasses.replace(hyper, cross=1.0), prior_mean)
         model.series_ = series
+        model.counts_ = model._count_flags(series)
         model.ragged_ = ragged
         model.deterministics_ = det
         model.prior_mean_ = prior_mean
         model.design_ = design
         model.lags_ = int(lags)
         model.lag_search_ = []
+        model.configuration_ = (None if configuration is None
+                                else Configuration.from_dict(configuration, hyper))
         model.hyper_ = hyper
         model.prior_ = prior
         model.posterior_ = posterior
@@ -575,7 +631,7 @@ class FanfoldVAR:
             if isinstance(combined, pd.DataFrame):
                 exog.index = combined.index
         combined, exog, ragged = split_ragged_edge(combined, exog, old.names)
-        series = load_series(combined, transforms=self.transforms, exog=exog,
+        series = load_series(combined, transforms=list(old.transforms), exog=exog,
                              names=old.names, period=old.calendar.period)
         design = build_design(series, self.lags_, self.deterministics_)
         added = series.nobs - old.nobs
@@ -585,12 +641,14 @@ class FanfoldVAR:
                 if added else self.posterior_)
         model = type(self)(**self.get_params())  # type: ignore[arg-type]
         model.series_ = series
+        model.counts_ = model._count_flags(series)
         model.ragged_ = ragged
         model.deterministics_ = self.deterministics_
         model.prior_mean_ = self.prior_mean_
         model.design_ = design
         model.lags_ = self.lags_
         model.lag_search_ = self.lag_search_
+        model.configuration_ = self.configuration_
         model.hyper_ = self.hyper_
         model.prior_ = self.prior_
         model.posterior_ = post
@@ -732,8 +790,18 @@ class FanfoldVAR:
                                               exog_rows)
         else:
             paths = simulate_paths(rng, post, history, exog_rows, draws)
+        return Forecast(self._user_paths(paths), series.names,
+                        series.calendar.future(horizon), rejected)
+
+    def _user_paths(self, paths: FloatArray) -> FloatArray:
+        """Model-unit paths (S, h, n) in the user's units: transforms undone, and count
+        series censored at zero (the model's mass below zero goes to zero demand)."""
+        series = self.series_
         user = inverse_paths(paths, series.transforms, series.levels[-1])
-        return Forecast(user, series.names, series.calendar.future(horizon), rejected)
+        counts = np.asarray(getattr(self, "counts_", ()), dtype=bool)
+        if counts.any():
+            user[:, :, counts] = np.maximum(user[:, :, counts], 0.0)
+        return user
 
     @staticmethod
     def _check_horizon(horizon: int) -> int:
@@ -871,7 +939,7 @@ class FanfoldVAR:
                                 n_det=self.design_.n_det, sweeps=sweeps)
         dates = series.calendar.future(steps)
         def user(paths: FloatArray) -> Forecast:
-            return Forecast(inverse_paths(paths, series.transforms, series.levels[-1]),
+            return Forecast(self._user_paths(paths),
                             series.names, dates, rejected)
         return Scenario(user(out.conditional), user(out.baseline), tuple(conds),
                         out.prior_probability, out.soft_probability, out.sweeps, r)
@@ -1071,4 +1139,5 @@ class FanfoldVAR:
             "det_scale": None if h is None else h.det_scale,
             "sum_coef": None if h is None else h.sum_coef,
             "initial": None if h is None else h.initial,
+            "season_scale": None if h is None else h.season_scale,
         }

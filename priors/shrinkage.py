@@ -5,6 +5,7 @@ Parameterisation (standard-deviation form; ``decay`` applies to the s.d.)::
     sd(own lag l)            = tightness / l**decay
     sd(lag l of series j, i) ~ tightness * sigma_i / (l**decay * sigma_j)
     sd(deterministic, i)     ~ det_scale * sigma_i
+    sd(seasonal dummy, i)    ~ season_scale * sigma_i   (det_scale when None)
 
 Natural-conjugate form (Kadiyala & Karlsson 1997; Giannone, Lenza & Primiceri 2015):
 ``B | Sigma ~ MN(B0, diag(omega), Sigma)``, ``Sigma ~ IW(diag(psi) * (nu0 - n - 1), nu0)``
@@ -28,10 +29,11 @@ from dataclasses import dataclass
 import numpy as np
 
 from ._types import FloatArray
-from .data import Design
+from .data import Design, season_columns
 from .errors import ConstantSeriesError, SpecificationError
 
-__all__ = ["MinnesotaHyper", "NIWPrior", "ar_residual_variances", "minnesota_prior"]
+__all__ = ["MinnesotaHyper", "NIWPrior", "ar_residual_variances", "minnesota_prior",
+           "own_lag_means"]
 
 
 #: accepted ranges: beyond them the prior variances under- or overflow
@@ -41,6 +43,7 @@ _RANGES = {
     "det_scale": (1e-6, 1e8),
     "sum_coef": (1e-6, 1e6),
     "initial": (1e-6, 1e6),
+    "season_scale": (1e-6, 1e8),
 }
 
 
@@ -58,6 +61,11 @@ class MinnesotaHyper:
         equation's residual s.d. (large = nearly flat).
     sum_coef : weight mu of the sum-of-coefficients dummies, None = off.
     initial : weight delta of the dummy-initial-observation, None = off.
+    season_scale : prior s.d. of seasonal-dummy coefficients, in the same units as
+        ``det_scale``; None = ``det_scale``. A proper, moderate scale (tuned by marginal
+        likelihood) is what lets the marginal likelihood weigh seasonal dummies against
+        none: under a nearly flat prior every dummy costs about log(det_scale) nats per
+        equation whatever the data say (Lindley's paradox).
     """
 
     tightness: float = 0.2
@@ -66,6 +74,7 @@ class MinnesotaHyper:
     det_scale: float = 1000.0
     sum_coef: float | None = None
     initial: float | None = None
+    season_scale: float | None = None
 
     def __post_init__(self) -> None:
         for name, (lo, hi) in _RANGES.items():
@@ -139,16 +148,21 @@ def lag_variance_profile(design: Design, psi: FloatArray, decay: float) -> Float
     return 1.0 / (lags ** (2.0 * decay) * np.tile(psi, design.lags))
 
 
-def det_variances(design: Design, det_scale: float) -> FloatArray:
+def det_variances(design: Design, det_scale: float,
+                  season_scale: float | None = None) -> FloatArray:
     """omega for the deterministic/exogenous rows, shape (m,).
 
     Regressors are put on a common footing by their root mean square, so the prior
-    s.d. of a coefficient is ``det_scale * sigma_i / rms(x)``.
+    s.d. of a coefficient is ``det_scale * sigma_i / rms(x)``; seasonal dummies use
+    ``season_scale`` instead when it is given.
     """
     Xd = design.X[:, : design.n_det]
     rms = np.sqrt(np.mean(Xd**2, axis=0)) if design.nobs else np.ones(design.n_det)
     rms = np.where(rms > 0, rms, 1.0)
-    return det_scale**2 / rms**2
+    scale = np.full(design.n_det, float(det_scale))
+    if season_scale is not None:
+        scale[season_columns(design)] = season_scale
+    return scale**2 / rms**2
 
 
 def initial_means(design: Design) -> FloatArray:
@@ -156,6 +170,37 @@ def initial_means(design: Design) -> FloatArray:
     m, n, p = design.n_det, design.n, design.lags
     first = design.X[0, m : m + n * p].reshape(p, n)
     return first.mean(axis=0)
+
+
+def own_lag_means(prior_mean: FloatArray, n: int, lags: int) -> FloatArray:
+    """Prior means of each series' own lags 1..lags, shape (lags, n).
+
+    ``prior_mean`` is (n,) for the own first lag only (1 = random walk, 0 = white noise),
+    or (L, n) for own lags 1..L (e.g. 1 at lag 12 of monthly data: a seasonal random
+    walk); other coefficients have prior mean 0.
+    """
+    pm = np.asarray(prior_mean, dtype=np.float64)
+    out = np.zeros((lags, n))
+    if pm.shape == (n,):
+        out[0] = pm
+        return out
+    if pm.ndim != 2 or pm.shape[1] != n:
+        raise SpecificationError(f"prior_mean must have shape ({n},) or (lags, {n}); got "
+                                 f"{pm.shape}")
+    if np.any(pm[lags:] != 0):
+        raise SpecificationError(f"prior_mean sets lag {pm.shape[0]} but the model has "
+                                 f"{lags} lags; use at least {pm.shape[0]} lags")
+    out[: min(lags, pm.shape[0])] = pm[:lags]
+    return out
+
+
+def prior_mean_block(prior_mean: FloatArray, n: int, lags: int) -> FloatArray:
+    """The lag rows of B0, (n * lags, n): own-lag means on the diagonal of each block."""
+    means = own_lag_means(prior_mean, n, lags)
+    block = np.zeros((n * lags, n))
+    for lag in range(lags):
+        block[lag * n + np.arange(n), np.arange(n)] = means[lag]
+    return block
 
 
 def minnesota_prior(
@@ -168,7 +213,8 @@ def minnesota_prior(
 
     Parameters
     ----------
-    prior_mean : (n,) prior mean of each series' own first-lag coefficient.
+    prior_mean : (n,) prior mean of each series' own first-lag coefficient, or (L, n) of
+        own lags 1..L (:func:`own_lag_means`).
     psi : (n,) scales; default :func:`ar_residual_variances`.
     """
     n, m, k = design.n, design.n_det, design.k
@@ -179,16 +225,12 @@ def minnesota_prior(
             "equation the same shrinkage profile, so other series' lags cannot be shrunk "
             "harder than own lags; use cross=1, or an independent Normal prior"
         )
-    prior_mean = np.asarray(prior_mean, dtype=np.float64)
-    if prior_mean.shape != (n,):
-        raise SpecificationError(f"prior_mean must have one value per series ({n})")
     psi = ar_residual_variances(design) if psi is None else np.asarray(psi, dtype=np.float64)
     B0 = np.zeros((k, n))
-    B0[m + np.arange(n), np.arange(n)] = prior_mean
-    omega = np.concatenate(
-        [det_variances(design, hyper.det_scale), hyper.tightness**2 * lag_variance_profile(
-            design, psi, hyper.decay)]
-    )
+    B0[m:] = prior_mean_block(prior_mean, n, design.lags)
+    omega = np.concatenate([
+        det_variances(design, hyper.det_scale, hyper.season_scale),
+        hyper.tightness**2 * lag_variance_profile(design, psi, hyper.decay)])
     df = n + 2.0
     S0 = np.diag(psi * (df - n - 1))
     Yd, Xd = dummy_observations(design, hyper, prior_mean)
@@ -200,15 +242,17 @@ def dummy_observations(
 ) -> tuple[FloatArray, FloatArray]:
     """Sum-of-coefficients and initial-observation rows, (T_d, n) and (T_d, k).
 
-    Only series with a unit-root prior mean (prior_mean == 1) get a sum-of-coefficients
-    row. Deterministic columns are 0 except the constant in the initial observation.
+    Only series with a unit-root prior mean (own-lag means summing to 1: a random walk
+    or a seasonal random walk) get a sum-of-coefficients row. Deterministic columns are
+    0 except the constant in the initial observation.
     """
     n, m, k, p = design.n, design.n_det, design.k, design.lags
     ybar = initial_means(design)
     rows_y: list[FloatArray] = []
     rows_x: list[FloatArray] = []
     if hyper.sum_coef is not None:
-        for i in np.flatnonzero(prior_mean == 1.0):
+        unit = np.isclose(own_lag_means(prior_mean, n, p).sum(axis=0), 1.0)
+        for i in np.flatnonzero(unit):
             y = np.zeros(n)
             y[i] = ybar[i] / hyper.sum_coef
             x = np.zeros(k)

@@ -11,6 +11,12 @@ likelihood in O(k n^2 + n^3) per value after one eigendecomposition: the determi
 block is partialled out (its prior variance does not change with the tightness) and the
 remaining lag block of the posterior precision is ``D^-1/2 (W + I/lambda^2) D^-1/2``
 with a fixed W = Q diag(e) Q'.
+
+With several hyperparameters (or dummy observations) each value is the QR closed form
+(:func:`priors.conjugate.log_marginal_likelihood`), maximised by L-BFGS-B, an active-set
+polish and coarse escape scans (:func:`_maximise_in_box`). A tuned hyperparameter that
+ends at a bound of :data:`BOUNDS` gives a :class:`ConvergenceWarning` naming it, the bound
+and the value.
 """
 
 from __future__ import annotations
@@ -26,12 +32,7 @@ from scipy.special import gammaln
 
 from ._kernels import tightness_profile
 from ._types import FloatArray
-from .conjugate import (
-    Moments,
-    log_marginal_likelihood,
-    log_marginal_likelihood_fast,
-    log_multigamma,
-)
+from .conjugate import log_marginal_likelihood, log_multigamma
 from .data import Design
 from .errors import ConvergenceWarning, NotPositiveDefiniteError
 from .shrinkage import (
@@ -40,6 +41,7 @@ from .shrinkage import (
     det_variances,
     lag_variance_profile,
     minnesota_prior,
+    prior_mean_block,
 )
 
 __all__ = [
@@ -52,7 +54,8 @@ __all__ = [
 ]
 
 #: search ranges (inclusive) of each tuned hyperparameter
-BOUNDS = {"tightness": (1e-4, 5.0), "sum_coef": (1e-3, 1e3), "initial": (1e-3, 1e3)}
+BOUNDS = {"tightness": (1e-4, 5.0), "sum_coef": (1e-3, 1e3), "initial": (1e-3, 1e3),
+          "season_scale": (1e-3, 1e2)}
 #: (mode, s.d.) of the Gamma hyperpriors of Giannone, Lenza & Primiceri (2015)
 HYPERPRIOR_MODE_SD = {"tightness": (0.2, 0.4), "sum_coef": (1.0, 1.0), "initial": (1.0, 1.0)}
 
@@ -70,6 +73,8 @@ def gamma_from_mode_sd(mode: float, sd: float) -> tuple[float, float]:
 
 def log_hyperprior(name: str, value: float) -> float:
     """log Gamma density of one hyperparameter under GLP's hyperprior."""
+    if name not in HYPERPRIOR_MODE_SD:  # the season scale: flat in its log
+        return 0.0
     a, scale = gamma_from_mode_sd(*HYPERPRIOR_MODE_SD[name])
     return float((a - 1) * np.log(value) - value / scale - a * np.log(scale) - gammaln(a))
 
@@ -96,10 +101,9 @@ class TightnessProfile:
         m, n, T = design.n_det, design.n, design.nobs
         X, Y = design.X, design.Y
         Xd, Xl = X[:, :m], X[:, m:]
-        omega_d = det_variances(design, hyper.det_scale)
+        omega_d = det_variances(design, hyper.det_scale, hyper.season_scale)
         w = lag_variance_profile(design, psi, hyper.decay)
-        B0l = np.zeros((n * design.lags, n))
-        B0l[np.arange(n), np.arange(n)] = prior_mean
+        B0l = prior_mean_block(prior_mean, n, design.lags)
         # partial out the deterministic block: P_dd = Xd'Xd + diag(1/omega_d)
         P_dd = Xd.T @ Xd + np.diag(1.0 / omega_d)
         C = np.linalg.cholesky(P_dd) if m else np.zeros((0, 0))
@@ -158,7 +162,6 @@ def _objective_factory(
     """Map log-hyperparameters to (objective, log_ml); and, for the tightness alone,
     a map of an (L,) grid of log-tightness values to the (L,) objectives at once."""
     profile = None
-    moments = None  # cross-products only for the general (non-profile) path
     if names == ("tightness",) and base.sum_coef is None and base.initial is None:
         profile = TightnessProfile(design, base, prior_mean, psi)
 
@@ -167,19 +170,17 @@ def _objective_factory(
         if profile is not None:
             lml = profile(values["tightness"])
         else:
-            hyper = replace(base, **values)
-            prior = minnesota_prior(design, hyper, prior_mean, psi)
-            nonlocal moments
-            if moments is None:
-                moments = Moments.of(design)
+            prior = minnesota_prior(design, replace(base, **values), prior_mean, psi)
             try:
-                lml = log_marginal_likelihood_fast(moments, prior)
+                # The QR closed form, not the cross-product route: near the lower bounds
+                # the dummy rows are ~1e3 times the data (log levels: ~6e3) and the
+                # cross-product route's Woodbury log p(Y_d) cancels ~1e10-sized terms,
+                # off by up to 50 nats on Lutkepohl's E1 (the QR form agrees with a
+                # 60-digit evaluation to 3e-10). Its cost is at most ~2.5x, and a smooth
+                # objective saves more than that in L-BFGS-B iterations.
+                lml = log_marginal_likelihood(design, prior)
             except NotPositiveDefiniteError:
-                # cross-product route lost too many digits (extreme weights): use QR
-                try:
-                    lml = log_marginal_likelihood(design, prior)
-                except NotPositiveDefiniteError:
-                    lml = -np.inf
+                lml = -np.inf
         obj = lml
         if hyperprior:
             obj += sum(log_hyperprior(nm, v) for nm, v in values.items())
@@ -266,6 +267,214 @@ def _newton_in_bracket(objective: Callable[[FloatArray], FloatArray], a: float, 
     return x, used
 
 
+#: L-BFGS-B on the log-hyperparameters. ``eps``: forward-difference step, far above the
+#: objective's rounding (~1e-10 nats by the QR route) and small enough that its truncation
+#: error moves the maximiser by ~eps/2. ``gtol``: scipy's default (a gradient of 1e-5 per
+#: log-unit leaves ~1e-10 nats on the table).
+_LBFGSB_OPTIONS = {"eps": 1e-5, "gtol": 1e-5}
+#: L-BFGS-B stops when an iteration gains less than this many nats. scipy's ``ftol`` is
+#: relative to |objective|; it is set from this and the objective at the start, so that a
+#: log ML of 1e5 stops as close as one of 500 (the default, 2.2e-9, is 1e-6 nats at 500)
+_FTOL_NATS = 1e-6
+#: a bound is tried (that parameter pinned there, the others re-optimised) when moving the
+#: parameter there with the others held costs at most this many nats (1/10 of a nat is
+#: negligible evidence); a bound farther down than that is not the maximum of a smooth
+#: objective that L-BFGS-B has just climbed, so it costs one evaluation and no search
+_PIN_SCREEN = 0.1
+#: interior grid points per parameter of the escape scan (neighbours 10x apart for the
+#: dummy weights, 6x for the tightness) and the gain (nats) that restarts the search
+_ESCAPE_POINTS, _ESCAPE_GAIN = 5, 1e-6
+#: step inwards (log scale) from a pinned bound, to check that the interior is not better
+_RELEASE_STEP = 1e-3
+#: improvement (nats) that releases a pinned parameter: above the rounding of the objective
+_RELEASE_GAIN = 1e-8
+
+
+def _lbfgsb(negative: Callable[[FloatArray], float], start: FloatArray, lo: FloatArray,
+            hi: FloatArray, pinned: FloatArray, ftol: float) -> tuple[FloatArray, float]:
+    """Minimise ``negative`` in the box [lo, hi] by L-BFGS-B, holding the ``pinned``
+    parameters (a boolean mask) at their start values; the minimiser and its value."""
+    if np.all(pinned):  # nothing left to search
+        return start.copy(), negative(start)
+    bounds = [(s, s) if p else (a, b) for s, p, a, b in zip(start, pinned, lo, hi, strict=True)]
+    res = minimize(negative, start, method="L-BFGS-B", bounds=bounds,
+                   options={**_LBFGSB_OPTIONS, "ftol": ftol})
+    return np.asarray(res.x, dtype=np.float64), float(res.fun)
+
+
+def _bound_candidates(negative: Callable[[FloatArray], float], x: FloatArray, value: float,
+                      lo: FloatArray, hi: FloatArray, skip: FloatArray
+                      ) -> list[tuple[int, float]]:
+    """Bounds worth pinning a parameter at, most promising first, as (index, bound).
+
+    Both bounds of each parameter not in ``skip`` are evaluated with the others held at
+    ``x`` (two evaluations each); a bound is a candidate when that costs at most
+    ``_PIN_SCREEN`` nats. Why this is needed: a marginal likelihood approaches its limit
+    as a dummy weight goes to 0 (or infinity) like the square of the weight (of its
+    inverse), so in log scale it is flat near the bound, and L-BFGS-B stops, its gradient
+    at the rounding level, a log-unit or more short of it (Lutkepohl's E1: sum_coef 2.8e-3
+    for the bound 1e-3). The slope is too small there to say which bound to try.
+    """
+    found = []
+    for i in np.flatnonzero(~skip):
+        for edge in (lo[i], hi[i]):
+            trial = x.copy()
+            trial[i] = edge
+            cost = negative(trial) - value
+            if cost <= _PIN_SCREEN:
+                found.append((cost, int(i), float(edge)))
+    return [(i, edge) for _, i, edge in sorted(found)]
+
+
+def _first_release(negative: Callable[[FloatArray], float], x: FloatArray, value: float,
+                   lo: FloatArray, pinned: FloatArray) -> tuple[int, FloatArray] | None:
+    """The first pinned parameter whose one-sided slope says the interior is better, as
+    (index, start just inside its bound), or None: the Karush-Kuhn-Tucker sign condition,
+    checked by one evaluation ``_RELEASE_STEP`` inside each bound."""
+    for i in np.flatnonzero(pinned):
+        inside = x.copy()
+        inside[i] += _RELEASE_STEP if x[i] <= lo[i] else -_RELEASE_STEP
+        if negative(inside) < value - _RELEASE_GAIN:
+            return int(i), inside
+    return None
+
+
+def _climb_and_polish(negative: Callable[[FloatArray], float], start: FloatArray,
+                      lo: FloatArray, hi: FloatArray, ftol: float) -> tuple[FloatArray, float]:
+    """L-BFGS-B from ``start``, then the active-set polish; the minimiser and its value.
+
+    Polish: a parameter with a bound within ``_PIN_SCREEN`` nats is pinned there and the
+    others are re-optimised, kept if that is no worse; a pinned parameter (by L-BFGS-B or
+    here) whose inward slope is better is released and the others re-optimised from just
+    inside its bound. Each parameter is pinned and released at most once, so the polish
+    ends. Cost: two evaluations per free parameter screened, one short L-BFGS-B on the
+    rest (they start at their optimum) per pin tried, one evaluation per pinned parameter.
+    """
+    x, value = _lbfgsb(negative, start, lo, hi, np.zeros(lo.size, dtype=bool), ftol)
+    pinned = (x <= lo) | (x >= hi)  # L-BFGS-B's own active set
+    tried = pinned.copy()
+    while True:
+        moved = False
+        for i, edge in _bound_candidates(negative, x, value, lo, hi, tried):
+            if tried[i]:  # its other bound was kept already
+                continue
+            tried[i] = True
+            trial, pins = x.copy(), pinned.copy()
+            trial[i], pins[i] = edge, True
+            x_new, value_new = _lbfgsb(negative, trial, lo, hi, pins, ftol)
+            if value_new <= value:
+                x, value, pinned, moved = x_new, value_new, pins, True
+                break  # the others moved: screen them again from here
+        if not moved:
+            break
+    released = np.zeros(lo.size, dtype=bool)
+    while (found := _first_release(negative, x, value, lo, pinned & ~released)) is not None:
+        i, inside = found
+        released[i] = True
+        pins = pinned.copy()
+        pins[i] = False
+        x_new, value_new = _lbfgsb(negative, inside, lo, hi, pins, ftol)
+        if value_new < value:
+            x, value, pinned = x_new, value_new, pins
+    return x, value
+
+
+def _escape_point(negative: Callable[[FloatArray], float], x: FloatArray, value: float,
+                  lo: FloatArray, hi: FloatArray) -> FloatArray | None:
+    """The best point of coarse grids through ``x`` along each parameter (the others
+    held), if it beats ``value`` by ``_ESCAPE_GAIN``; else None.
+
+    Why: with dummy weights the objective can have several local maxima, typically one
+    with a weight near or below 1 (that prior on) and one with it large (nearly off),
+    and L-BFGS-B climbs whichever its start leads to: the same reason as the
+    one-parameter path's coarse grid. ``_ESCAPE_POINTS`` interior points per parameter
+    (the polish has tried the bounds).
+    """
+    best, best_value = None, value - _ESCAPE_GAIN
+    for i in range(lo.size):
+        for g in np.linspace(lo[i], hi[i], _ESCAPE_POINTS + 2)[1:-1]:
+            trial = x.copy()
+            trial[i] = g
+            v = negative(trial)
+            if v < best_value:
+                best, best_value = trial, v
+    return best
+
+
+def _maximise_in_box(negative: Callable[[FloatArray], float], start: FloatArray,
+                     lo: FloatArray, hi: FloatArray) -> FloatArray:
+    """Minimiser of ``negative`` (smooth, in log scale) in the box [lo, hi].
+
+    :func:`_climb_and_polish` from ``start``, then escape scans (:func:`_escape_point`):
+    from a better grid point the climb is rerun, at most once per parameter, so the cost
+    stays bounded (a scan that finds nothing costs 5 evaluations per parameter).
+    """
+    ftol = max(_FTOL_NATS / max(abs(negative(start)), 1.0), 1e-15)
+    x, value = _climb_and_polish(negative, start, lo, hi, ftol)
+    for _ in range(lo.size):
+        escape = _escape_point(negative, x, value, lo, hi)
+        if escape is None:
+            break
+        x_new, value_new = _climb_and_polish(negative, escape, lo, hi, ftol)
+        if not value_new < value:
+            break
+        x, value = x_new, value_new
+    return x
+
+
+def _at_edges(best: FloatArray, lo: FloatArray, hi: FloatArray
+              ) -> tuple[FloatArray, FloatArray]:
+    """Boolean masks of the log-hyperparameters at the lower and at the upper bound:
+    np.isclose(best, edge, atol=1e-3) written out (a tenth of its cost)."""
+    at_lower = np.abs(best - lo) <= 1e-3 + 1e-5 * np.abs(lo)
+    at_upper = np.abs(best - hi) <= 1e-3 + 1e-5 * np.abs(hi)
+    return at_lower, at_upper
+
+
+#: what a hyperparameter at a bound of its search range means, and what to do about it
+_EDGE_ADVICE = {
+    ("tightness", "lower"): "the data ask for the lag coefficients to be held at the prior "
+                            "mean; check the prior mean, or fix tightness",
+    ("tightness", "upper"): "the data barely restrain the lag coefficients (close to least "
+                            "squares); consider fewer lags, or fix tightness",
+    ("sum_coef", "lower"): "the data ask for the sum-of-coefficients prior (each series a "
+                           "unit root, no long-run relations) to be imposed almost exactly; "
+                           "consider fixing sum_coef at a small value",
+    ("sum_coef", "upper"): "the data switch the sum-of-coefficients prior off; consider "
+                           "fixing sum_coef or switching it off (sum_coef=None)",
+    ("initial", "lower"): "the data ask for the dummy-initial-observation prior (series at "
+                          "their presample means, or one common stochastic trend) to be "
+                          "imposed almost exactly; consider fixing initial at a small value",
+    ("initial", "upper"): "the data switch the dummy-initial-observation prior off; consider "
+                          "fixing initial or switching it off (initial=None)",
+    ("season_scale", "lower"): "the data ask for the seasonal-dummy coefficients to be held "
+                               "at zero; consider no seasonal dummies (seasonal=False)",
+    ("season_scale", "upper"): "the data barely restrain the seasonal-dummy coefficients; "
+                               "consider fixing season_scale",
+}
+#: advice for a name without its own entry above
+_EDGE_ADVICE_OTHER = "the data barely inform it; consider fixing it"
+
+
+def _edge_messages(names: tuple[str, ...], best: FloatArray, lo: FloatArray, hi: FloatArray,
+                   hyperprior: bool) -> list[str]:
+    """One warning text per tuned hyperparameter that ends at a bound of its search range,
+    naming it, the bound and the value, with advice."""
+    at_lower, at_upper = _at_edges(best, lo, hi)
+    what = "the hyperparameter posterior" if hyperprior else "the marginal likelihood"
+    messages = []
+    for name, value, low, high in zip(names, np.exp(best), at_lower, at_upper, strict=True):
+        if not (low or high):
+            continue
+        side = "lower" if low else "upper"
+        edge = BOUNDS[name][0 if low else 1]
+        messages.append(
+            f"{what} is largest at the edge of the search range for {name}: {value:.6g} is "
+            f"its {side} bound {edge:g} (range {BOUNDS[name][0]:g} to {BOUNDS[name][1]:g}); "
+            f"{_EDGE_ADVICE.get((name, side), _EDGE_ADVICE_OTHER)}")
+    return messages
+
+
 def tune_hyperparameters(
     design: Design,
     base: MinnesotaHyper,
@@ -315,25 +524,10 @@ def tune_hyperparameters(
                                   options={"xatol": 1e-6})
             best = np.array([res.x])
     else:
-        start = np.log([getattr(base, nm) for nm in names])
-        start = np.clip(start, lo, hi)
-        # finite-difference steps of 1e-5 in log space: far above rounding noise
-        res = minimize(negative, start, method="L-BFGS-B", bounds=list(zip(lo, hi, strict=True)),
-                       options={"eps": 1e-5})
-        best = res.x
-    # a dummy weight at its upper bound just means the data switch that prior off
-    # np.isclose(best, edge, atol=1e-3), written out (a tenth of its cost)
-    at_upper = (np.abs(best - hi) <= 1e-3 + 1e-5 * np.abs(hi)) & np.array(
-        [nm == "tightness" for nm in names])
-    at_bound = (np.abs(best - lo) <= 1e-3 + 1e-5 * np.abs(lo)) | at_upper
-    if np.any(at_bound):
-        which = ", ".join(nm for nm, b in zip(names, at_bound, strict=True) if b)
-        warnings.warn(
-            f"marginal likelihood is largest at the edge of the search range for {which}; "
-            "the data barely inform it, consider fixing it",
-            ConvergenceWarning,
-            stacklevel=2,
-        )
+        start = np.clip(np.log([getattr(base, nm) for nm in names]), lo, hi)
+        best = _maximise_in_box(negative, start, lo, hi)
+    for message in _edge_messages(names, best, lo, hi, hyperprior):
+        warnings.warn(message, ConvergenceWarning, stacklevel=2)
     obj, lml = evaluate(best)
     hyper = replace(base, **dict(zip(names, np.exp(best).tolist(), strict=True)))
     return TuningResult(hyper, lml, obj, names, count)

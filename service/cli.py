@@ -108,7 +108,9 @@ def _transform_name(name: str) -> str:
     return name
 
 
-def _transform(text: str) -> str | dict[str, str]:
+def _transform(text: str) -> str | dict[str, str] | None:
+    if text.strip() == "auto":
+        return "auto"
     if "=" not in text:
         return _transform_name(text.strip())
     spec: dict[str, str] = {}
@@ -125,13 +127,13 @@ _positive_int, _seed = _integer(1), _integer(0)
 
 
 _CANDIDATE_KEYS = ("lags", "max_lags", "prior", "tightness", "decay", "sum_coef", "initial",
-                   "hyperprior", "constant", "trend", "seasonal", "transforms")
+                   "season_scale", "hyperprior", "constant", "trend", "seasonal", "transforms")
 
 
 def _value(text: str) -> object:
     low = text.lower()
-    if low in ("auto", "minnesota", "flat", "none", "log", "log1p", "diff", "logdiff"):
-        return None if low == "none" else low
+    if low in ("auto", "minnesota", "flat", "none", "off", "log", "log1p", "diff", "logdiff"):
+        return None if low in ("none", "off") else low
     if low in ("true", "false"):
         return low == "true"
     for kind in (int, float):
@@ -214,22 +216,35 @@ def _model_options() -> argparse.ArgumentParser:
                         "marginal likelihood; ignored with --prior flat")
     g.add_argument("--decay", type=_number, default=1.0, metavar="X",
                    help="lag decay: the prior s.d. of lag l is tightness / l**X")
-    g.add_argument("--sum-coef", type=_weight, default=None, metavar="X|auto",
+    g.add_argument("--sum-coef", type=_weight, default="auto", metavar="X|auto|off",
                    help="weight of the sum-of-coefficients prior (smaller = tighter; for "
-                        "trending series), 'auto' to tune it (default: off)")
-    g.add_argument("--initial", type=_weight, default=None, metavar="X|auto",
-                   help="weight of the dummy-initial-observation prior (smaller = tighter), "
-                        "'auto' to tune it (default: off)")
-    g.add_argument("--hyperprior", action="store_true",
-                   help="tune by the posterior mode under Gamma hyperpriors instead of the "
-                        "marginal likelihood alone")
-    g.add_argument("--transform", type=_transform, metavar="SPEC",
+                        "trending series); 'auto': used when it raises the marginal "
+                        "likelihood, weight tuned (default: auto)")
+    g.add_argument("--initial", type=_weight, default="auto", metavar="X|auto|off",
+                   help="weight of the dummy-initial-observation prior (smaller = tighter); "
+                        "'auto' as for --sum-coef (default: auto)")
+    g.add_argument("--hyperprior", action=argparse.BooleanOptionalAction, default=True,
+                   help="tune by the posterior mode under the Gamma hyperpriors of Giannone, "
+                        "Lenza & Primiceri (2015) instead of the marginal likelihood alone")
+    g.add_argument("--transform", type=_transform, default="auto", metavar="SPEC|auto",
                    help=f"{', '.join(TRANSFORMS)} for all series, or per series such as "
-                        "tyres=log,chains=diff; forecasts are back in the data's units "
-                        "(default: none)")
-    g.add_argument("--seasonal", action="store_true",
-                   help="add seasonal dummies (months, quarters or weekdays, by the data's "
-                        "frequency)")
+                        "tyres=log,chains=diff; 'auto': each series' levels or log (log1p "
+                        "with zeros) by marginal likelihood; forecasts are back in the "
+                        "data's units (default: auto)")
+    g.add_argument("--seasonal", nargs="?", const="on", default="auto",
+                   choices=("auto", "on", "off"), type=str.lower,
+                   help="seasonal dummies (months, quarters or weekdays, by the data's "
+                        "frequency): on, off, or auto (by marginal likelihood); --seasonal "
+                        "alone means on (default: auto)")
+    g.add_argument("--season-scale", type=_weight, default="auto", metavar="X|auto|off",
+                   help="prior s.d. of the seasonal-dummy coefficients in residual s.d. per "
+                        "unit of the dummy's root mean square; 'auto': tuned; off: nearly "
+                        "flat (default: auto)")
+    g.add_argument("--counts", nargs="?", const="on", default="auto",
+                   choices=("auto", "on", "off"), type=str.lower,
+                   help="count-aware demand: forecasts censored at zero, reorder points and "
+                        "orders in whole units; auto: for series whose values are all whole "
+                        "numbers >= 0 (default: auto)")
     g.add_argument("--trend", action="store_true", help="add a linear time trend")
     g.add_argument("--no-constant", dest="constant", action="store_false",
                    help="leave out the constant (default: keep it)")
@@ -427,7 +442,10 @@ def _model_params(args: argparse.Namespace) -> dict[str, Any]:
     params = {"lags": args.lags, "max_lags": args.max_lags, "prior": args.prior,
               "tightness": args.tightness, "decay": args.decay, "sum_coef": args.sum_coef,
               "initial": args.initial, "hyperprior": args.hyperprior,
-              "constant": args.constant, "trend": args.trend, "seasonal": args.seasonal,
+              "season_scale": args.season_scale, "constant": args.constant,
+              "trend": args.trend,
+              "seasonal": {"on": True, "off": False}.get(args.seasonal, args.seasonal),
+              "counts": {"on": True, "off": False}.get(args.counts, args.counts),
               "transforms": args.transform}
     if args.prior == "independent" or args.cross != 1.0:
         params["cross"] = args.cross
@@ -625,12 +643,12 @@ def _store_demo(base: str) -> str:
     engine = make_engine(settings.database_url)
     upgrade(engine)
     frame = demo_frame()
-    spec = ModelSettings(seasonal=True)
+    spec = ModelSettings()
     model, seed = fit_model(spec, frame, settings)
     tenant = settings.api_keys[0].tenant if settings.api_keys else PUBLIC_TENANT
     with make_session_factory(engine)() as session:
         row = save_model(session=session, tenant=tenant, name="bicycle-parts demo",
-                         params=stored_settings(spec, seed), frame=frame, model=model)
+                         params=stored_settings(model, seed), frame=frame, model=model)
     engine.dispose()
     key = ' -H "X-API-Key: $FANFOLD_KEY"' if settings.api_keys else ""
     return "\n".join([

@@ -100,17 +100,28 @@ def _over(field: str, value: int, limit: int, advice: str) -> None:
 def _lags_and_terms(spec: ModelSettings) -> tuple[int, int]:
     """The largest lag order the fit may use and the deterministic terms per equation."""
     p = spec.lags if isinstance(spec.lags, int) else (spec.max_lags or default_max_lags("monthly"))
-    return p, int(spec.constant) + int(spec.trend) + (11 if spec.seasonal else 0)
+    seasonal = spec.seasonal is True or spec.seasonal == "auto"  # 'auto' may choose them
+    return p, int(spec.constant) + int(spec.trend) + (11 if seasonal else 0)
+
+
+def _fits(spec: ModelSettings, n: int, p: int) -> int:
+    """About how many fits the automatic configuration makes: per structure (seasonal
+    or not, levels or logs) one per lag order, one flip per series, and a joint tuning
+    of the dummy weights worth a few dozen fits (see priors.autoconfig)."""
+    structures = (1 + (spec.seasonal == "auto")) * (1 + (spec.transforms == "auto"))
+    lag_orders = p if spec.lags == "auto" else 1
+    flips = n if spec.transforms == "auto" else 0
+    dummies = 40 if "auto" in (spec.sum_coef, spec.initial) else 0
+    return structures * lag_orders + flips + dummies + 1
 
 
 def inline_cost(spec: ForecastSettings, n: int, T: int) -> float:
     """Rough flops of a conjugate one-shot forecast, for choosing where it runs: the fits
-    (T k^2 per lag order tried) plus the simulation (draws x horizon x (k + n) x n).
+    (T k^2 each, :func:`_fits`) plus the simulation (draws x horizon x (k + n) x n).
     About 1e6 is 5 ms on one core (n=3, p=4, T=120, 1000 draws, 12 steps)."""
     p, m = _lags_and_terms(spec)
     k = n * p + m
-    fits = p if spec.lags == "auto" else 1
-    return float(fits * T * k * k + spec.draws * spec.horizon * (k + n) * n)
+    return float(_fits(spec, n, p) * T * k * k + spec.draws * spec.horizon * (k + n) * n)
 
 
 # A chain-sweep's fixed cost in units of n k^2 (one unit took about 1 ns at n = 20,
@@ -228,11 +239,13 @@ def model_params(spec: ModelSettings) -> dict[str, Any]:
         "decay": spec.decay,
         "sum_coef": spec.sum_coef,
         "initial": spec.initial,
+        "season_scale": spec.season_scale,
         "hyperprior": spec.hyperprior,
         "constant": spec.constant,
         "trend": spec.trend,
         "seasonal": spec.seasonal,
         "transforms": spec.transforms,
+        "counts": spec.counts,
     }
     if spec.prior == "independent":
         params.update(cross=spec.cross)
@@ -248,11 +261,20 @@ def model_params(spec: ModelSettings) -> dict[str, Any]:
     return params
 
 
-def stored_settings(spec: ModelSettings, seed: int | None) -> dict[str, Any]:
-    """The settings kept with a model: :func:`model_params` plus the seed that produced
+def stored_settings(model: FanfoldVAR, seed: int | None) -> dict[str, Any]:
+    """The settings kept with a model: its settings with every automatic choice written
+    out (:meth:`FanfoldVAR.resolved_params`, so that restoring it needs no search), the
+    report of what was chosen and why (``configuration``), and the seed that produced
     its Gibbs draws (none for exact samplers)."""
-    params = model_params(spec)
+    params: dict[str, Any] = {k: v for k, v in model.resolved_params().items()
+                              if v is not None or k in _NULLABLE}
+    if model.configuration_ is not None and model.configuration_.chosen:
+        params["configuration"] = model.configuration_.to_dict(model.series_.names)
     return params if seed is None else {**params, "seed": seed}
+
+
+#: settings whose null means something (off), kept in the stored settings
+_NULLABLE = ("sum_coef", "initial", "season_scale", "transforms")
 
 
 def _fresh_seed(seed: int | None) -> int:

@@ -353,7 +353,7 @@ class JobRunner:
             self.metrics.fit.observe(time.perf_counter() - started)
         self._fitted_and_not_cancelled(s, job, mine)
         row = save_model(session=s, tenant=job.tenant_id, name=spec.name,
-                         params=stored_settings(spec, fitted.seed), frame=frame,
+                         params=stored_settings(fitted.model, fitted.seed), frame=frame,
                          model=fitted.model, commit=False)
         self._succeed(s, mine, row.id)
 

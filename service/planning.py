@@ -173,7 +173,8 @@ def replenishment_answer(model: FanfoldVAR, spec: ReplenishmentCreate, limits: S
         adv = replenishment_advice(
             totals, on_hand=item.on_hand, on_order=item.on_order, backorders=item.backorders,
             service_level=item.service_level, fill_rate=item.fill_rate,
-            order_quantity=item.order_quantity, levels=spec.quantiles)
+            order_quantity=item.order_quantity, levels=spec.quantiles,
+            whole_units=all(model.counts_[_series_index(model, nm)] for nm in names))
         out_items.append({
             "name": item.name or "+".join(names), "series": names, "target": adv.target,
             "target_value": adv.target_value, "mean_demand": adv.mean_demand,

@@ -140,15 +140,28 @@ class ModelSettings(Input):
         "(independent prior only; slower)")
     decay: float = Field(1.0, ge=0, le=10, description="prior s.d. of lag l ~ 1 / l**decay")
     sum_coef: Positive | Literal["auto"] | None = Field(
-        None, description="sum-of-coefficients weight (smaller = tighter); null = off")
+        "auto", description="sum-of-coefficients weight (smaller = tighter); null = off; "
+        "'auto': used if it raises the marginal likelihood, weight tuned")
     initial: Positive | Literal["auto"] | None = Field(
-        None, description="dummy-initial-observation weight; null = off")
-    hyperprior: Flag = Field(False, description="tune under Gamma hyperpriors")
-    transforms: Transform | dict[str, Transform] | None = Field(
-        None, description="one transform for all series or one per series name")
-    seasonal: Flag = Field(False, description="seasonal dummies by the data's frequency")
+        "auto", description="dummy-initial-observation weight; null = off; 'auto' as for "
+        "sum_coef")
+    season_scale: Positive | Literal["auto"] | None = Field(
+        "auto", description="prior s.d. of seasonal-dummy coefficients (in residual s.d. "
+        "per unit of the dummy's root mean square); 'auto': tuned; null: nearly flat")
+    hyperprior: Flag = Field(True, description="tune under the Gamma hyperpriors of "
+                             "Giannone, Lenza & Primiceri (2015)")
+    transforms: Literal["auto"] | Transform | dict[str, Transform] | None = Field(
+        "auto", description="one transform for all series or one per series name; 'auto': "
+        "each series' levels or log (log1p with zeros) by marginal likelihood; null: levels")
+    seasonal: Flag | Literal["auto"] = Field(
+        "auto", description="seasonal dummies by the data's frequency; 'auto': by marginal "
+        "likelihood")
     trend: Flag = False
     constant: Flag = True
+    counts: Flag | Literal["auto"] = Field(
+        "auto", description="count-aware demand: forecasts of count series are censored at "
+        "zero and their reorder points and orders are whole units; 'auto': on for series "
+        "whose values are all whole numbers >= 0")
 
     @field_validator("lags")
     @classmethod
@@ -310,10 +323,25 @@ class LeadTimeTotal(BaseModel):
     quantiles: dict[str, float]
 
 
+class ConfigurationPublic(BaseModel):
+    """What the automatic configuration chose and why (settings left at 'auto')."""
+
+    chosen: list[str] = Field(description="the settings that were chosen ('auto')")
+    seasonal: bool
+    transforms: dict[str, str]
+    lags: int
+    summary: str = Field(description="the configuration in one line")
+    reasons: list[str] = Field(description="one plain sentence per choice")
+    weights: dict[str, float] = Field(
+        description="posterior probabilities of the structures compared (equal prior odds)")
+
+
 class ForecastPublic(BaseModel):
     """The one-shot forecast answer (the CLI's ``forecast --json`` has the same layout)."""
 
     forecasts: dict[str, SeriesForecast]
+    configuration: ConfigurationPublic | None = Field(
+        None, description="what the automatic configuration chose and why")
     lags: int
     hyperparameters: dict[str, float | None]
     log_marginal_likelihood: float | None
@@ -353,6 +381,8 @@ class ModelPublic(BaseModel):
     version: int
     series: list[str]
     settings: dict[str, object]
+    configuration: ConfigurationPublic | None = Field(
+        None, description="what the automatic configuration chose and why")
     span: Span
     lags: int
     hyperparameters: dict[str, float | None]

@@ -120,6 +120,14 @@ def _hyperparameters(model: FanfoldVAR) -> dict[str, float | None]:
     return {k: _num(v) for k, v in model.hyperparameters().items() if k != "lags"}
 
 
+def configuration_to_dict(model: FanfoldVAR) -> dict[str, Any] | None:
+    """What the automatic configuration chose and why (None when nothing was chosen)."""
+    config = getattr(model, "configuration_", None)
+    if config is None or not config.chosen:
+        return None
+    return config.to_dict(model.series_.names)
+
+
 def forecast_to_dict(
     model: FanfoldVAR, forecast: Forecast, *, quantiles: Sequence[float], seed: int, draws: int
 ) -> dict[str, Any]:
@@ -159,6 +167,7 @@ def forecast_to_dict(
     }
     return {
         "forecasts": series,
+        "configuration": configuration_to_dict(model),
         "lags": int(model.lags_),
         "hyperparameters": _hyperparameters(model),
         "log_marginal_likelihood": _num(model.log_ml_),
@@ -214,6 +223,7 @@ def summary_to_dict(
     sigma = model.sigma_mean()
     out: dict[str, Any] = {
         "lags": int(model.lags_),
+        "configuration": configuration_to_dict(model),
         "hyperparameters": _hyperparameters(model),
         "log_marginal_likelihood": _num(model.log_ml_),
         "lag_search": [

@@ -111,13 +111,13 @@ def list_models(*, session: Session, tenant: str, limit: int,
 
 def load_fitted(row: StoredModel) -> FanfoldVAR:
     """The stored model, ready to forecast: no tuning, no refit (Gibbs draws as stored)."""
-    params = {k: v for k, v in row.settings.items() if k != "seed"}
+    params = {k: v for k, v in row.settings.items() if k not in ("seed", "configuration")}
     draws = None if row.draws is None else draws_from_blob(row.draws, row.draws_meta or {})
     return FanfoldVAR.restore(
         params, data_from_dict(row.data), lags=row.lags,
         hyper=hyper_from_dict(row.hyperparameters),
         posterior=posterior_from_blob(row.posterior, row.posterior_meta),
-        draws=draws,
+        draws=draws, configuration=row.settings.get("configuration"),
     )
 
 

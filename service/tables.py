@@ -63,6 +63,17 @@ def _log_ml_line(log_ml: float | None, hyper: dict[str, float | None]) -> str:
     return f"log marginal likelihood: {shown}"
 
 
+def _configuration_lines(payload: dict[str, Any], *, reasons: bool) -> list[str]:
+    """What the automatic configuration chose (and, with ``reasons``, why)."""
+    config = payload.get("configuration")
+    if not config:
+        return []
+    out = [f"configuration (auto: {', '.join(config['chosen'])}): {config['summary']}"]
+    if reasons:
+        out += [f"  - {r}" for r in config["reasons"]]
+    return out
+
+
 def _convergence_lines(diagnostics: dict[str, Any]) -> list[str]:
     """The Gibbs chains' convergence summary and, if they fail a threshold, why."""
     limits = diagnostics["thresholds"]
@@ -81,6 +92,7 @@ def format_forecast(payload: dict[str, Any]) -> str:
         f"Fanfold forecast: {len(forecasts)} series, {payload['horizon']} steps ahead, "
         f"VAR({payload['lags']}), {payload['draws']} draws, seed {payload['seed']} "
         f"(rerun with --seed {payload['seed']} to reproduce)",
+        *_configuration_lines(payload, reasons=False),
         _hyper_line(payload["hyperparameters"]),
         _log_ml_line(payload["log_marginal_likelihood"], payload["hyperparameters"]),
     ]
@@ -137,6 +149,7 @@ def format_fit(payload: dict[str, Any], *, prior: str, level: float, summary: bo
         + (f" (Gibbs sampler: {sampler})" if sampler else ""),
         f"estimation sample: {span['start']} to {span['end']} "
         f"({span['observations']} observations)",
+        *_configuration_lines(payload, reasons=summary),
         _hyper_line(payload["hyperparameters"]),
         _log_ml_line(payload["log_marginal_likelihood"], payload["hyperparameters"]),
     ]

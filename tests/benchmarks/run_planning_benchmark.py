@@ -47,7 +47,8 @@ def _best(fn, repeats: int) -> float:
 def time_products(name: str, draws: int, repeats: int) -> list[str]:
     n, p, T = SCENARIOS[name]
     Y = simulate_var(n, p, T)
-    model = FanfoldVAR(lags=p, tightness=0.2).fit(Y)
+    model = FanfoldVAR(lags=p, tightness=0.2, transforms=None, seasonal=False, sum_coef=None,
+                       initial=None).fit(Y)
     h = 12
     mean_path = model.forecast(h, rng=np.random.default_rng(0), draws=500).mean()
     fixed = [Condition(0, t, float(mean_path[t - 1, 0] + 1.0), float(mean_path[t - 1, 0] + 1.0))

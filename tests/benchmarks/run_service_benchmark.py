@@ -78,6 +78,9 @@ SCENARIO = "S"
 REQUEST_SETTINGS: dict[str, Any] = {
     "start": "2016-01-01", "frequency": "MS", "horizon": 12, "lags": 4, "draws": 1000,
     "seed": 1, "quantiles": [0.05, 0.5, 0.95],
+    # the workload of the latency target: the configuration from before the automatic one
+    "transforms": None, "seasonal": False, "sum_coef": None, "initial": None,
+    "hyperprior": False,
 }
 PATH = "/v1/forecasts"
 WARMUP = 20

@@ -8,14 +8,15 @@ from scipy import stats
 
 from priors.conjugate import (
     NIWPosterior,
+    collinear_after_scaling,
     flat_posterior,
     log_marginal_likelihood,
     log_multigamma,
     posterior,
 )
-from priors.data import Deterministics, build_design, load_series
-from priors.errors import NotPositiveDefiniteError, TooFewObservationsError
-from priors.shrinkage import NIWPrior
+from priors.data import Design, Deterministics, build_design, load_series
+from priors.errors import ExplosiveDataError, NotPositiveDefiniteError, TooFewObservationsError
+from priors.shrinkage import MinnesotaHyper, NIWPrior, minnesota_prior
 
 from .helpers import design_and_prior
 
@@ -138,6 +139,57 @@ def test_collinear_regressors_raise_not_positive_definite():
     design = build_design(load_series(y), 1, Deterministics())
     with pytest.raises(NotPositiveDefiniteError, match="collinear"):
         flat_posterior(design)
+
+
+def _var1_design(y: np.ndarray, names: tuple[str, ...]) -> Design:
+    """VAR(1) with constant on (T, n) ``y``, built by hand: no load_series validation."""
+    X = np.column_stack([np.ones(len(y) - 1), y[:-1]])
+    labels = ("const", *(f"{nm}[t-1]" for nm in names))
+    return Design(y[1:], X, 1, 1, labels, names)
+
+
+def _exploding(T: int = 121) -> np.ndarray:
+    """(T, 2): x1.5 per period with 5% noise (19 orders of magnitude), and a calm series."""
+    rng = np.random.default_rng(0)
+    return np.column_stack([1.5 ** np.arange(T) * (1 + 0.05 * rng.standard_normal(T)),
+                            10 + rng.standard_normal(T)])
+
+
+def test_singular_precision_from_explosive_data_says_the_data_explode():
+    """The failure point itself (data that bypassed load_series): it used to say
+    'the regressors are collinear'."""
+    design = _var1_design(_exploding(), ("sales", "calm"))
+    prior = minnesota_prior(design, MinnesotaHyper(), np.ones(2), psi=np.ones(2))
+    for fit in (lambda: flat_posterior(design), lambda: posterior(design, prior)):
+        with pytest.raises(ExplosiveDataError, match="series 'sales' explodes") as info:
+            fit()
+        assert isinstance(info.value.__cause__, NotPositiveDefiniteError)
+        assert "transforms={'sales': 'log'}" in str(info.value)
+
+
+def test_exploding_and_duplicated_series_are_still_called_collinear():
+    y = _exploding()
+    y = np.column_stack([y[:, 0], 2 * y[:, 0], y[:, 1]])  # a scaled copy of 'sales'
+    design = _var1_design(y, ("sales", "sales2", "calm"))
+    with pytest.raises(NotPositiveDefiniteError, match="collinear"):
+        flat_posterior(design)
+
+
+def test_log_ml_keeps_not_positive_definite_for_the_tuning():
+    """The hyperparameter search skips candidates on NotPositiveDefiniteError."""
+    design = _var1_design(_exploding(), ("sales", "calm"))
+    prior = minnesota_prior(design, MinnesotaHyper(), np.ones(2), psi=np.ones(2))
+    with pytest.raises(NotPositiveDefiniteError, match="collinear"):
+        log_marginal_likelihood(design, prior)
+
+
+def test_collinear_after_scaling_ignores_sizes_not_directions():
+    rng = np.random.default_rng(1)
+    a, b = rng.standard_normal((2, 50))
+    assert not collinear_after_scaling(np.column_stack([a, 1e20 * b]))
+    assert collinear_after_scaling(np.column_stack([a, 1e20 * a]))
+    assert collinear_after_scaling(np.column_stack([a, np.zeros(50)]))
+    assert collinear_after_scaling(np.ones((2, 3)))  # fewer rows than columns
 
 
 @pytest.mark.parametrize("dummies", [(None, None), (0.7, None), (None, 2.0), (0.5, 1.5)])

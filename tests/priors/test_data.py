@@ -7,11 +7,19 @@ import pandas as pd
 import pytest
 
 from priors import FanfoldVAR
-from priors.data import Deterministics, build_design, future_exogenous_rows, load_series
+from priors.data import (
+    Deterministics,
+    build_design,
+    explosive_message,
+    future_exogenous_rows,
+    growth_decades,
+    load_series,
+)
 from priors.errors import (
     ConstantSeriesError,
     DuplicateNameError,
     ExogenousError,
+    ExplosiveDataError,
     MissingValuesError,
     NonNumericError,
     SpecificationError,
@@ -98,6 +106,81 @@ def test_constant_growth_rate_under_logdiff(frame):
     frame["tyres"] = 100 * 1.05 ** np.arange(30)
     with pytest.raises(ConstantSeriesError, match="'tyres' has no variation"):
         load_series(frame, transforms="logdiff")
+
+
+# ---------------------------------------------------------------- explosive series
+
+
+def _explosive(kind: str) -> np.ndarray:
+    """One exploding series (T,) of each kind seen in user reports."""
+    rng = np.random.default_rng(5)
+    if kind == "doubling":
+        return 2.0 ** np.arange(120)
+    if kind == "x1.5 with noise":
+        return 1.5 ** np.arange(120) * (1 + 0.05 * rng.standard_normal(120))
+    if kind == "to 1e200":
+        return 10.0 ** np.linspace(0, 200, 150)
+    A = np.array([[1.3, 0.0], [0.1, 0.5]])  # spectral radius 1.3, 150 steps
+    y = np.ones((150, 2))
+    for t in range(1, 150):
+        y[t] = A @ y[t - 1] + rng.standard_normal(2)
+    return y[:, 0]
+
+
+def _with_a_calm_series(x: np.ndarray) -> pd.DataFrame:
+    calm = 10 + np.random.default_rng(6).standard_normal(x.size)
+    index = pd.date_range("2000-01-01", periods=x.size, freq="MS")
+    return pd.DataFrame({"calm": calm, "sales": x}, index=index)
+
+
+@pytest.mark.parametrize("kind", ["doubling", "x1.5 with noise", "to 1e200", "VAR radius 1.3"])
+def test_explosive_series_is_refused_by_name_with_its_growth(kind):
+    """These used to fail as 'the regressors are collinear' or 'fitted exactly'."""
+    with pytest.raises(ExplosiveDataError, match=r"series 'sales' explodes") as info:
+        load_series(_with_a_calm_series(_explosive(kind)))
+    text = str(info.value)
+    assert "orders of magnitude" in text and "per period" in text
+    assert "transforms={'sales': 'log'}" in text and "'logdiff'" in text
+
+
+def test_explosive_message_gives_first_and_last_magnitudes_and_growth_factor():
+    text = explosive_message(2.0 ** np.arange(120)[:, None], ["sales"])
+    assert text is not None
+    # largest values in the first and last 12 rows: 2**11 and 2**119
+    assert "is 2.05e+03 in the first 12 rows and 6.65e+35 in the last 12" in text
+    assert "(33 orders of magnitude, about x2 per period)" in text
+
+
+def test_explosive_data_fail_in_fit_with_the_explosion_not_collinearity():
+    frame = _with_a_calm_series(_explosive("x1.5 with noise"))
+    for model in (FanfoldVAR(), FanfoldVAR(lags=2, prior="flat")):
+        with pytest.raises(ExplosiveDataError, match="'sales' explodes"):
+            model.fit(frame)
+
+
+def test_logs_of_explosive_data_fit():
+    frame = _with_a_calm_series(_explosive("x1.5 with noise"))
+    model = FanfoldVAR(lags=2, tightness=0.2, transforms={"sales": "log"}).fit(frame)
+    assert model.lags_ == 2
+
+
+@pytest.mark.parametrize(("kind", "x"), [
+    ("units changed once", np.r_[np.ones(60), np.full(60, 1e7)]
+     + np.random.default_rng(1).standard_normal(120) * 0.01),
+    ("zeros before launch", np.r_[np.zeros(30), np.linspace(1.0, 1e8, 90)]),
+    ("new product, x10 000 in 10 years", np.exp(np.linspace(0.0, np.log(1e4), 120))),
+    ("75 years of nominal growth", 250 * np.exp(np.cumsum(np.full(300, 0.017)))),
+    ("stationary around 1e9", 1e9 + 1e7 * np.random.default_rng(2).standard_normal(120)),
+])
+def test_ordinary_growth_and_level_shifts_are_not_explosive(kind, x):
+    assert growth_decades(x[:, None])[0] < 6
+    assert explosive_message(x[:, None], ["x"]) is None
+
+
+def test_growth_decades_of_a_steady_exponential():
+    x = 10.0 ** (np.arange(100) / 10)  # one order of magnitude per 10 rows
+    # largest of the first 10 rows is 10**0.9, of the last 10 is 10**9.9
+    np.testing.assert_allclose(growth_decades(x[:, None]), [9.0])
 
 
 # ---------------------------------------------------------------- non-numeric, names

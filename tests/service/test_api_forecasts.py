@@ -101,6 +101,22 @@ def test_engine_errors_become_422_with_the_engine_message(client, demo_body, mut
     assert "Traceback" not in r.text
 
 
+def test_explosive_data_are_a_422_problem_saying_the_series_explodes(client, demo_body):
+    """Doubling each month for 4 years used to come back as 'the regressors are
+    collinear'."""
+    body = json.loads(json.dumps(demo_body))
+    body["series"]["tyres"] = [2.0 ** t for t in range(48)]
+    r = client.post("/v1/forecasts", json=body)
+    assert r.status_code == 422, r.text
+    assert r.headers["content-type"].startswith("application/problem+json")
+    problem = r.json()
+    assert problem["type"] == "urn:fanfold:problem:ExplosiveDataError"
+    assert problem["title"] == "The model cannot use this input"
+    assert problem["detail"].startswith("series 'tyres' explodes")
+    assert "transforms={'tyres': 'log'}" in problem["detail"]
+    assert "collinear" not in problem["detail"]
+
+
 def test_bad_csv_data_is_a_422_problem(client):
     text = DEMO_CSV.read_text().replace("2016-02-01", "2016-01-01", 1)  # duplicate date
     r = client.post("/v1/forecasts?horizon=2", content=text,

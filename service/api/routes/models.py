@@ -72,6 +72,7 @@ def _public(row: StoredModel, model: FanfoldVAR | None = None) -> dict[str, Any]
         "id": row.id, "name": row.name, "status": row.status,
         "created_at": row.created_at, "updated_at": row.updated_at, "version": row.version,
         "series": list(model.design_.names), "settings": row.settings,
+        "configuration": row.settings.get("configuration"),
         "span": summary["span"], "lags": row.lags,
         "hyperparameters": summary["hyperparameters"],
         "log_marginal_likelihood": summary["log_marginal_likelihood"],
@@ -128,7 +129,7 @@ async def create_model(
             fitted = fit_model(body, frame, settings)
             request.app.state.metrics.fit.observe(time.perf_counter() - started)
             row = save_model(session=session, tenant=tenant, name=body.name,
-                             params=stored_settings(body, fitted.seed), frame=frame,
+                             params=stored_settings(fitted.model, fitted.seed), frame=frame,
                              model=fitted.model, commit=False)
             status = 201
             out = ModelPublic.model_validate(_public(row, fitted.model)).model_dump(

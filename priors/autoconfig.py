@@ -48,8 +48,8 @@ import pandas as pd
 
 from ._types import FloatArray
 from .conjugate import posterior
-from .data import Deterministics, SeriesData, build_design, load_series
-from .errors import ConvergenceWarning, TooFewObservationsError
+from .data import Deterministics, SeriesData, _as_frame, _numeric, build_design, load_series
+from .errors import ConvergenceWarning, ExplosiveDataError, TooFewObservationsError
 from .shrinkage import MinnesotaHyper, ar_residual_variances, minnesota_prior
 from .transforms import DIFFERENCING, default_prior_mean
 from .tuning import tune_hyperparameters
@@ -339,7 +339,17 @@ def choose_configuration(
     req = request
     auto_tr = _auto(req.transforms)
     given = None if auto_tr else req.transforms
-    plain = load_series(data, transforms=given, exog=exog, names=names, period=period)
+    explodes = False
+    try:
+        plain = load_series(data, transforms=given, exog=exog, names=names, period=period)
+    except ExplosiveDataError:
+        if not auto_tr:
+            raise
+        # levels grow by orders of magnitude: only the log-type transforms are candidates
+        raw = _numeric(_as_frame(data, names), "series")
+        logs_only = [log_type_transform(raw[:, j]) for j in range(raw.shape[1])]
+        plain = load_series(data, transforms=logs_only, exog=exog, names=names, period=period)
+        explodes = True
     fixed = _nothing_to_choose(req, plain.transforms)
     if fixed is not None:
         return fixed
@@ -351,7 +361,7 @@ def choose_configuration(
 
     # ---- candidate structures
     tr_options: list[tuple[str, ...]] = [levels_tr]
-    if auto_tr:
+    if auto_tr and not explodes:
         logs = tuple(log_type_transform(plain.levels[:, j]) for j in range(plain.n))
         if logs != levels_tr:
             tr_options.append(logs)
@@ -397,7 +407,7 @@ def choose_configuration(
                 s, h = scorer.score(tr, seasonal, p, base, lag_tune)
                 table.append((s, p, h))
             s, p, h = max(table, key=lambda r: r[0])
-            label = ("log-type" if tr != levels_tr else "levels") + (
+            label = ("log-type" if explodes or tr != levels_tr else "levels") + (
                 " + seasonal" if seasonal else "")
             candidates.append(Candidate(f"{label}, lags {p}", s, len(tune)))
             best[label] = (s, tr, seasonal, p, h, table)
@@ -409,8 +419,11 @@ def choose_configuration(
 
     pick = max(best, key=margin)
     score, transforms, seasonal, lags, hyper, table = best[pick]
-    lag_table = tuple((p, s, h.tightness) for s, p, h in table)
+    lag_table = tuple((p, s, h.tightness) for s, p, h in table) if len(table) > 1 else ()
     reasons = []
+    if explodes:
+        reasons.append("levels grow by orders of magnitude, so only log-type transforms "
+                       "were tried")
     if len(best) > 1:
         others = sorted(((best[k][0], k) for k in best if k != pick), reverse=True)
         reasons.append(
@@ -428,7 +441,7 @@ def choose_configuration(
     # ---- stage 2: per-series transforms
     _, tune = _base_hyper(req, seasonal)
     lag_tune = tuple(t for t in tune if t != "season_scale")
-    if auto_tr and plain.n > 1 and len(tr_options) > 1:
+    if auto_tr and not explodes and plain.n > 1 and len(tr_options) > 1:
         flipped = []
         for j in range(plain.n):
             alt = levels_tr[j] if transforms[j] != levels_tr[j] else tr_options[1][j]

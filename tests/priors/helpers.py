@@ -8,6 +8,10 @@ import pandas as pd
 from priors.data import Deterministics, build_design, load_series
 from priors.shrinkage import MinnesotaHyper, minnesota_prior
 
+#: settings that keep a test on one configuration: levels, no seasonal dummies, no dummy
+#: observations (the automatic configuration would otherwise choose them per data set)
+FIXED = {"transforms": None, "seasonal": False, "sum_coef": None, "initial": None}
+
 
 def design_and_prior(y: np.ndarray, lags: int = 2, *, tightness: float = 0.3,
                      sum_coef: float | None = None, initial: float | None = None,

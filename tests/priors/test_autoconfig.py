@@ -138,3 +138,20 @@ def test_counts_auto_leaves_non_integer_series_alone():
     data = _slow_mover(np.random.default_rng(11))
     data["valves"] += 0.5
     assert FanfoldVAR(transforms=None).fit(data).counts_ == (False, True)
+
+
+def test_explosive_levels_are_modelled_in_logs():
+    # a series growing 12% a period for 250 periods (a 1e12-fold rise) breaks a levels
+    # model; left to choose, the configuration takes logs and says why
+    rng = np.random.default_rng(4)
+    t = np.arange(250)
+    grow = np.exp(0.12 * t + np.cumsum(rng.normal(0, 0.02, 250)))
+    data = pd.DataFrame({"a": 50.0 * grow, "b": 20.0 * grow * np.exp(rng.normal(0, 0.05, 250))},
+                        index=pd.date_range("1990-01-01", periods=250, freq="MS"))
+    model = FanfoldVAR(lags=2, seasonal=False).fit(data)
+    assert model.series_.transforms == ("log", "log")
+    assert any("orders of magnitude" in r for r in model.configuration_.reasons)
+    from priors.errors import ExplosiveDataError
+
+    with pytest.raises(ExplosiveDataError):
+        FanfoldVAR(lags=2, seasonal=False, transforms=None).fit(data)

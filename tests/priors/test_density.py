@@ -17,7 +17,7 @@ from priors.density import mixture_log_scores
 from priors.errors import SpecificationError
 from priors.model import FanfoldVAR
 
-from .helpers import two_lines
+from .helpers import FIXED, two_lines
 
 A1 = np.array([[0.5, 0.2], [0.3, 0.4]])
 A2 = np.array([[-0.2, 0.0], [0.1, 0.1]])
@@ -65,7 +65,7 @@ def test_fixed_parameters_give_the_gaussian_h_step_density():
 
 def test_the_one_step_mixture_approaches_the_exact_t():
     frame = two_lines(80, 2)
-    model = FanfoldVAR(lags=1, tightness=0.3).fit(frame)
+    model = FanfoldVAR(lags=1, tightness=0.3, **FIXED).fit(frame)
     y = frame.iloc[-1].to_numpy() * 1.02
     exact = model.one_step_log_density(y)
     d = model.sample(20_000, rng=np.random.default_rng(0))

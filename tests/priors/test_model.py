@@ -113,10 +113,10 @@ def test_unfitted_model_and_bad_settings():
 
 def test_reported_hyperparameters_and_lag_search(known_var, rng):
     y = np.cumsum(known_var.simulate(rng, 120), axis=0) + 100.0  # random walks
-    model = FanfoldVAR(max_lags=4, sum_coef="auto").fit(y)
+    model = FanfoldVAR(max_lags=4, sum_coef=0.5, initial=None).fit(y)
     hp = model.hyperparameters()
     assert hp["lags"] == model.lags_ and 1 <= hp["lags"] <= 4
-    assert hp["tightness"] > 0 and hp["sum_coef"] > 0 and hp["initial"] is None
+    assert hp["tightness"] > 0 and hp["sum_coef"] == 0.5 and hp["initial"] is None
     assert len(model.lag_search_) == 4
     assert np.isfinite(model.log_ml_)
 
@@ -139,14 +139,14 @@ def test_arviz_export_has_named_dimensions(known_var, rng):
 def test_restore_from_stored_parts_forecasts_like_the_original():
     _, frame = _demo()
     model = FanfoldVAR(seasonal=True, transforms={"tyres": "log"}, max_lags=3).fit(frame)
-    again = FanfoldVAR.restore(model.get_params(), frame, lags=model.lags_,
+    again = FanfoldVAR.restore(model.resolved_params(), frame, lags=model.lags_,
                                hyper=model.hyper_, posterior=model.posterior_)
     a = model.forecast(4, rng=np.random.default_rng(3), draws=200)
     b = again.forecast(4, rng=np.random.default_rng(3), draws=200)
     assert np.array_equal(a.paths, b.paths)
     pd.testing.assert_frame_equal(model.coefficients(), again.coefficients())
     with pytest.raises(SpecificationError, match="does not match"):
-        FanfoldVAR.restore(model.get_params(), frame, lags=model.lags_ + 1,
+        FanfoldVAR.restore(model.resolved_params(), frame, lags=model.lags_ + 1,
                            hyper=model.hyper_, posterior=model.posterior_)
 
 

@@ -79,11 +79,11 @@ def test_append_runs_the_chains_again_and_restore_keeps_the_draws(fitted):
     grown = part.append(frame.iloc[-3:], rng=np.random.default_rng(0))
     assert grown.series_.nobs == model.series_.nobs
     np.testing.assert_allclose(grown.sampler_.B, model.sampler_.B, rtol=1e-4, atol=1e-5)
-    back = FanfoldVAR.restore(model.get_params(), frame, lags=model.lags_, hyper=model.hyper_,
+    back = FanfoldVAR.restore(model.resolved_params(), frame, lags=model.lags_, hyper=model.hyper_,
                               posterior=model.posterior_, draws=model.sampler_)
     np.testing.assert_array_equal(back.coefficients()["mean"], model.coefficients()["mean"])
     with pytest.raises(SpecificationError, match="stored Gibbs draws"):
-        FanfoldVAR.restore(model.get_params(), frame, lags=model.lags_, hyper=model.hyper_,
+        FanfoldVAR.restore(model.resolved_params(), frame, lags=model.lags_, hyper=model.hyper_,
                            posterior=model.posterior_)
 
 

@@ -12,7 +12,7 @@ from priors.model import FanfoldVAR
 from priors.sampling import draw_sigma_roots, sample_posterior
 from priors.shrinkage import NIWPrior
 
-from .helpers import design_and_prior
+from .helpers import FIXED, design_and_prior
 
 # Bonferroni: family-wise false-alarm rate 1e-3 over K two-sided z-tests (methods sec. 10)
 ALPHA = 1e-3
@@ -109,7 +109,7 @@ def test_univariate_case_matches_normal_inverse_gamma_posterior(rng):
     y = np.zeros(150)
     for t in range(2, 150):
         y[t] = 1.0 + 0.5 * y[t - 1] - 0.2 * y[t - 2] + e[t]
-    model = FanfoldVAR(lags=2, tightness=0.3).fit(y[:, None])
+    model = FanfoldVAR(lags=2, tightness=0.3, **FIXED).fit(y[:, None])
     prior, X, Y = model.prior_, model.design_.X, model.design_.Y[:, 0]
     V0i = np.diag(1.0 / prior.omega)
     b0 = prior.B0[:, 0]

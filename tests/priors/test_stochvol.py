@@ -142,7 +142,7 @@ def test_sv_models_restore_from_their_draws_and_rerun_on_new_data():
     model = FanfoldVAR(lags=1, volatility="common", chains=2, burn=20, keep=40)
     model.fit(y[:77], rng=np.random.default_rng(0))
     assert model.uses_gibbs and model.sampler_.volatility.shape == (2, 40, 3)
-    back = FanfoldVAR.restore(model.get_params(), y[:77], lags=1, hyper=model.hyper_,
+    back = FanfoldVAR.restore(model.resolved_params(), y[:77], lags=1, hyper=model.hyper_,
                               posterior=model.posterior_, draws=model.sampler_)
     a = back.forecast(2, rng=np.random.default_rng(1), draws=50).paths
     b = model.forecast(2, rng=np.random.default_rng(1), draws=50).paths

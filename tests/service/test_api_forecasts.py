@@ -19,7 +19,8 @@ def test_json_forecast_layout_and_values(client, demo_body):
     r = client.post("/v1/forecasts", json=demo_body)
     assert r.status_code == 200, r.text
     out = r.json()
-    assert set(out) == {"forecasts", "lags", "hyperparameters", "log_marginal_likelihood",
+    assert set(out) == {"forecasts", "configuration", "lags", "hyperparameters",
+                        "log_marginal_likelihood",
                         "seed", "draws", "horizon", "rejected_explosive_share", "cumulative",
                         "lead_time_totals"}
     assert (out["lags"], out["seed"], out["draws"], out["horizon"]) == (2, 11, 300, 4)

@@ -180,7 +180,7 @@ def test_concurrent_updates_cannot_both_win(tmp_path, demo):
     part = demo[["tyres", "chains"]]
     model = FanfoldVAR(lags=1).fit(part.iloc[:100])
     with sessions() as s:
-        model_id = save_model(session=s, tenant="t", name=None, params=model.get_params(),
+        model_id = save_model(session=s, tenant="t", name=None, params=model.resolved_params(),
                               frame=part.iloc[:100], model=model).id
     grown = model.append(part.iloc[100:])
     with sessions() as a, sessions() as b:

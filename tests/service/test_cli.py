@@ -32,12 +32,13 @@ def _forecast_json(run, *extra: object) -> dict:
 # ---------------------------------------------------------------------- forecast
 def test_forecast_json_layout(run) -> None:
     out = _forecast_json(run, "--seed", 1)
-    assert set(out) == {"forecasts", "lags", "hyperparameters", "log_marginal_likelihood",
+    assert set(out) == {"forecasts", "configuration", "lags", "hyperparameters",
+                        "log_marginal_likelihood",
                         "seed", "draws", "horizon",
                         "rejected_explosive_share", "cumulative", "lead_time_totals"}
     assert (out["lags"], out["seed"], out["draws"], out["horizon"]) == (2, 1, 200, 3)
     assert set(out["hyperparameters"]) == {"tightness", "cross", "decay", "det_scale",
-                                           "sum_coef", "initial"}
+                                           "sum_coef", "initial", "season_scale"}
     assert isinstance(out["log_marginal_likelihood"], float)
     assert list(out["forecasts"]) == NAMES
     for fc in out["forecasts"].values():
@@ -116,7 +117,8 @@ def test_fit_json_layout_with_lag_search(run) -> None:
     code, out, err = run("fit", DEMO, "--max-lags", 3, "--json")
     assert code == 0, err
     fit = json.loads(out)
-    assert set(fit) == {"lags", "hyperparameters", "log_marginal_likelihood", "lag_search",
+    assert set(fit) == {"lags", "configuration", "hyperparameters", "log_marginal_likelihood",
+                        "lag_search",
                         "coefficients", "sigma", "span", "spectral_radius", "diagnostics"}
     assert fit["diagnostics"] is None  # exact sampler: nothing to diagnose
     assert [c["lags"] for c in fit["lag_search"]] == [1, 2, 3]
@@ -307,11 +309,18 @@ def test_command_help_states_defaults(run, command: str, defaults: list[str]) ->
 
 
 def test_dummy_priors_hyperprior_and_explosive_screening_options(run) -> None:
-    code, out, err = run("fit", DEMO, "--lags", 2, "--sum-coef", "auto", "--initial", "0.5",
+    code, out, err = run("fit", DEMO, "--lags", 2, "--sum-coef", "0.7", "--initial", "0.5",
                          "--hyperprior", "--decay", "2", "--json")
     assert code == 0, err
     hp = json.loads(out)["hyperparameters"]
-    assert hp["initial"] == 0.5 and hp["decay"] == 2.0 and hp["sum_coef"] > 0
+    assert hp["initial"] == 0.5 and hp["decay"] == 2.0 and hp["sum_coef"] == 0.7
+    # 'auto': used only when it raises the marginal likelihood, and reported as chosen
+    code, out, err = run("fit", DEMO, "--lags", 2, "--sum-coef", "auto", "--initial", "off",
+                         "--no-hyperprior", "--json")
+    assert code == 0, err
+    fit = json.loads(out)
+    assert "sum_coef" in fit["configuration"]["chosen"]
+    assert fit["hyperparameters"]["initial"] is None
     radius = json.loads(out)["spectral_radius"]
     assert 0 < radius["q0.05"] <= radius["median"] <= radius["q0.95"]
     code, out, err = run("forecast", DEMO, "--horizon", 2, "--draws", 200, "--seed", 3,

@@ -56,8 +56,8 @@ def test_forecast_dict_layout(model: FanfoldVAR) -> None:
     fc = model.forecast(4, rng=np.random.default_rng(0), draws=200)
     out = forecast_to_dict(model, fc, quantiles=QUANTILES, seed=7, draws=200)
 
-    assert list(out) == ["forecasts", "lags", "hyperparameters", "log_marginal_likelihood",
-                         "seed", "draws", "horizon",
+    assert list(out) == ["forecasts", "configuration", "lags", "hyperparameters",
+                         "log_marginal_likelihood", "seed", "draws", "horizon",
                          "rejected_explosive_share"]
     assert list(out["forecasts"]) == list(model.series_.names)
     assert (out["lags"], out["seed"], out["draws"], out["horizon"]) == (2, 7, 200, 4)
@@ -93,8 +93,9 @@ def test_forecast_dict_rejects_bad_quantiles(model: FanfoldVAR) -> None:
 def test_summary_dict_layout(model: FanfoldVAR) -> None:
     out = summary_to_dict(model, 0.8)
     n, k = 5, 1 + 5 * 2
-    assert list(out) == ["lags", "hyperparameters", "log_marginal_likelihood", "lag_search",
-                         "coefficients", "sigma", "span"]
+    assert list(out) == ["lags", "configuration", "hyperparameters",
+                         "log_marginal_likelihood", "lag_search", "coefficients", "sigma",
+                         "span"]
     assert out["lag_search"] == []
     assert len(out["coefficients"]) == n * k
     first = out["coefficients"][0]

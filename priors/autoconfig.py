@@ -49,9 +49,14 @@ import pandas as pd
 from ._types import FloatArray
 from .conjugate import posterior
 from .data import Deterministics, SeriesData, _as_frame, _numeric, build_design, load_series
-from .errors import ConvergenceWarning, ExplosiveDataError, TooFewObservationsError
+from .errors import (
+    ConvergenceWarning,
+    ExplosiveDataError,
+    SpecificationError,
+    TooFewObservationsError,
+)
 from .shrinkage import MinnesotaHyper, ar_residual_variances, minnesota_prior
-from .transforms import DIFFERENCING, default_prior_mean
+from .transforms import default_prior_mean
 from .tuning import tune_hyperparameters
 
 __all__ = [
@@ -63,6 +68,7 @@ __all__ = [
     "default_max_lags",
     "log_jacobian",
     "log_type_transform",
+    "resolve_prior_mean",
 ]
 
 #: nats a candidate must gain per extra tuned hyperparameter to be preferred
@@ -232,21 +238,15 @@ class _Scorer:
         return Deterministics(self.request.constant, self.request.trend, seasonal)
 
     def prior_mean(self, series: SeriesData) -> FloatArray:
-        pm = self.request.prior_mean
-        base = default_prior_mean(series.transforms)
-        if pm is None:
-            return base
-        if isinstance(pm, Mapping):
-            return np.array([float(pm.get(nm, b)) for nm, b in zip(series.names, base,
-                                                                   strict=True)])
-        return np.asarray(pm, dtype=np.float64)
+        return resolve_prior_mean(self.request.prior_mean, series)
 
     def score(self, transforms: tuple[str, ...], seasonal: bool, lags: int,
-              hyper: MinnesotaHyper, tune: tuple[str, ...]) -> tuple[float, MinnesotaHyper]:
+              hyper: MinnesotaHyper, tune: tuple[str, ...],
+              prior_mean: FloatArray | None = None) -> tuple[float, MinnesotaHyper]:
         """(log density of the data in user units, tuned hyperparameters)."""
         series = self.series(transforms)
         design = build_design(series, lags, self.det(seasonal), start=self.start)
-        prior_mean = self.prior_mean(series)
+        prior_mean = self.prior_mean(series) if prior_mean is None else prior_mean
         psi = ar_residual_variances(design)
         with warnings.catch_warnings():
             warnings.simplefilter("ignore", ConvergenceWarning)  # bounds: judged later
@@ -260,6 +260,28 @@ class _Scorer:
         drop = series.levels.shape[0] - series.nobs
         rows = series.levels[drop + self.start:]
         return float(lml) + log_jacobian(rows, transforms), hyper
+
+
+def resolve_prior_mean(given: Sequence[float] | Mapping[str, float] | None,
+                       series: SeriesData) -> FloatArray:
+    """Own-lag prior means for ``series``: by transform when ``given`` is None (random walk
+    for levels and logs, white noise for differences), else the user's values: a mapping
+    name -> mean of the first own lag (others by transform), one value per series (n,), or
+    one row per lag (L, n)."""
+    base = default_prior_mean(series.transforms)
+    if given is None:
+        return base
+    if isinstance(given, Mapping):
+        unknown = sorted(set(given) - set(series.names))
+        if unknown:
+            raise SpecificationError(f"prior_mean given for unknown series {unknown[0]!r}")
+        return np.array([float(given.get(nm, b)) for nm, b in zip(series.names, base,
+                                                                  strict=True)])
+    pm = np.asarray(given, dtype=np.float64)
+    if pm.shape != (series.n,) and not (pm.ndim == 2 and pm.shape[1] == series.n):
+        raise SpecificationError(f"prior_mean needs one value per series ({series.n}), "
+                                 f"or one row per lag (lags, {series.n})")
+    return pm
 
 
 def _auto(v: object) -> bool:
@@ -457,19 +479,21 @@ def choose_configuration(
                            "marginal likelihood)")
             candidates.append(Candidate("per-series transforms", score, len(tune)))
 
+    prior_mean = scorer.prior_mean(scorer.series(transforms))
     # ---- stage 3: tune jointly; sum-of-coefficients and initial-observation dummies
     dummy_names = tuple(nm for nm in ("sum_coef", "initial")
                         if _auto(getattr(req, nm)) and req.dummies_allowed)
-    if "sum_coef" in dummy_names and not np.any(
-            scorer.prior_mean(scorer.series(transforms)) == 1.0):
+    if "sum_coef" in dummy_names and not np.any(prior_mean == 1.0):
         dummy_names = tuple(nm for nm in dummy_names if nm != "sum_coef")
     if tune:
-        score, hyper = scorer.score(transforms, seasonal, lags, hyper, tune)
+        score, hyper = scorer.score(transforms, seasonal, lags, hyper, tune,
+                                    prior_mean=prior_mean)
     if dummy_names:
         chosen.extend(dummy_names)
         trial_h = replace(hyper, **dict.fromkeys(dummy_names, 1.0))
         names_all = tune + dummy_names
-        s, h = scorer.score(transforms, seasonal, lags, trial_h, names_all)
+        s, h = scorer.score(transforms, seasonal, lags, trial_h, names_all,
+                            prior_mean=prior_mean)
         from .tuning import BOUNDS
 
         # a weight at its upper bound: the data switch that prior off
@@ -477,8 +501,8 @@ def choose_configuration(
         if off:
             keep = tuple(nm for nm in dummy_names if nm not in off)
             trial_h = replace(hyper, **dict.fromkeys(keep, 1.0))
-            s, h = (scorer.score(transforms, seasonal, lags, trial_h, tune + keep) if keep
-                    else (-np.inf, hyper))
+            s, h = (scorer.score(transforms, seasonal, lags, trial_h, tune + keep,
+                                 prior_mean=prior_mean) if keep else (-np.inf, hyper))
             dummy_names = keep
         label = " and ".join({"sum_coef": "sum-of-coefficients",
                               "initial": "initial-observation"}[nm] for nm in dummy_names)
@@ -503,8 +527,6 @@ def choose_configuration(
         if logged:
             reasons.append(f"{' / '.join(sorted(set(transforms) - {'none'}))} for "
                            f"{', '.join(logged)}")
-    if any(t in DIFFERENCING for t in transforms):
-        pass  # differenced by the user; nothing chosen here
     return Configuration(seasonal, tuple(transforms), int(lags), hyper, tuple(tune),
                          tuple(reasons), tuple(candidates), weights, tuple(chosen),
                          lag_table)

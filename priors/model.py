@@ -17,7 +17,13 @@ from scipy import stats
 from scipy.linalg import solve_triangular
 
 from ._types import FloatArray
-from .autoconfig import AutoRequest, Configuration, choose_configuration, default_max_lags
+from .autoconfig import (
+    AutoRequest,
+    Configuration,
+    choose_configuration,
+    default_max_lags,
+    resolve_prior_mean,
+)
 from .conjugate import NIWPosterior, flat_posterior, posterior, update_posterior
 from .convergence import ConvergenceReport
 from .data import (
@@ -67,7 +73,7 @@ from .scenarios import (
 )
 from .shrinkage import MinnesotaHyper, NIWPrior, ar_residual_variances, minnesota_prior
 from .stochvol import run_sv_chains, simulate_log_volatility
-from .transforms import default_prior_mean, inverse_paths
+from .transforms import inverse_paths
 from .tuning import tune_hyperparameters
 
 __all__ = ["FanfoldVAR", "LagChoice", "default_max_lags"]
@@ -293,20 +299,7 @@ class FanfoldVAR:
         return (bool(self.counts),) * series.n
 
     def _prior_mean(self, series: SeriesData) -> FloatArray:
-        if self.prior_mean is None:
-            return default_prior_mean(series.transforms)
-        if isinstance(self.prior_mean, Mapping):
-            unknown = sorted(set(self.prior_mean) - set(series.names))
-            if unknown:
-                raise SpecificationError(f"prior_mean given for unknown series {unknown[0]!r}")
-            base = default_prior_mean(series.transforms)
-            return np.array([float(self.prior_mean.get(nm, b))
-                             for nm, b in zip(series.names, base, strict=True)])
-        pm = np.asarray(self.prior_mean, dtype=np.float64)
-        if pm.shape != (series.n,) and not (pm.ndim == 2 and pm.shape[1] == series.n):
-            raise SpecificationError(f"prior_mean needs one value per series ({series.n}), "
-                                     f"or one row per lag (lags, {series.n})")
-        return pm
+        return resolve_prior_mean(self.prior_mean, series)
 
     # ------------------------------------------------------------------ fitting
     def _fit_minnesota(self, design: Design, prior_mean: FloatArray,

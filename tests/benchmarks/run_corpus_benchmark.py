@@ -13,6 +13,7 @@ writes ``results/corpus.md``:
 - interval coverage within 5 percentage points of nominal.
 
     python tests/benchmarks/run_corpus_benchmark.py [--sets a,b] [--draws 1000] [--jobs 2]
+        [--params '{"seasonal": false}']   (other settings than the defaults, to compare)
 
 Not part of pass/fail; ``tests/priors/test_corpus_defaults.py`` asserts the targets on a
 few sets.
@@ -21,6 +22,7 @@ few sets.
 from __future__ import annotations
 
 import argparse
+import json
 import sys
 import time
 from concurrent.futures import ProcessPoolExecutor
@@ -41,10 +43,10 @@ from tests.evaluation import BENCHMARKS, score_set  # noqa: E402
 TARGETS = {"seasonal_naive": 1.0, "ols_var": 1.02, "coverage_pp": 5.0}
 
 
-def score_one(name: str, draws: int) -> dict[str, object]:
+def score_one(name: str, draws: int, params: dict[str, object]) -> dict[str, object]:
     cs = load(name)
     started = time.perf_counter()
-    s = score_set(cs, {}, draws=draws)
+    s = score_set(cs, params, draws=draws)
     row: dict[str, object] = {"set": name, "period": cs.period, "origins": cs.origins,
                               "horizon": cs.horizon, "source": cs.source,
                               "seconds": time.perf_counter() - started}
@@ -104,13 +106,18 @@ def main(argv: list[str] | None = None) -> int:
     ap.add_argument("--sets", default=",".join(LOADERS))
     ap.add_argument("--draws", type=int, default=1000)
     ap.add_argument("--jobs", type=int, default=2)
+    ap.add_argument("--params", default="{}", help="FanfoldVAR settings as JSON (default: "
+                    "none, i.e. the defaults)")
     ap.add_argument("--out", default=str(HERE / "results" / "corpus.md"))
     args = ap.parse_args(argv)
     names = [s for s in args.sets.split(",") if s]
+    params = json.loads(args.params)
     started = time.perf_counter()
     with ProcessPoolExecutor(max_workers=args.jobs) as pool:
-        rows = list(pool.map(score_one, names, [args.draws] * len(names)))
-    lines = ["# Forecast quality of the defaults on the open-data corpus", "",
+        rows = list(pool.map(score_one, names, [args.draws] * len(names),
+                             [params] * len(names)))
+    title = "the defaults" if not params else f"FanfoldVAR(**{params})"
+    lines = [f"# Forecast quality of {title} on the open-data corpus", "",
              f"commit {repo_commit('priors', 'service', 'tests')}, {cpu_model()}, "
              f"{args.draws} draws, "
              f"{time.perf_counter() - started:.0f} s in all", "",

@@ -58,3 +58,26 @@ def test_series_fitted_exactly_by_its_own_lags_is_refused():
     design = build_design(load_series(y), 2, Deterministics())
     with pytest.raises(ConstantSeriesError, match="fitted exactly by its own lags"):
         ar_residual_variances(design)
+
+
+def test_prior_mean_on_a_seasonal_lag_and_its_sum_of_coefficients_row():
+    # A (L, n) prior mean puts own-lag means on lags 1..L: here a seasonal random walk
+    # (lag 4 of quarterly data) for the first series and a random walk for the second.
+    # The sum-of-coefficients prior (Doan, Litterman & Sims 1984) applies to both, since
+    # their own-lag means sum to one.
+    from priors.shrinkage import MinnesotaHyper, minnesota_prior, own_lag_means
+
+    y = np.random.default_rng(0).standard_normal((60, 2)).cumsum(axis=0) + 50.0
+    design = build_design(load_series(y), 5, Deterministics())
+    pm = np.zeros((4, 2))
+    pm[3, 0] = 1.0
+    pm[0, 1] = 1.0
+    means = own_lag_means(pm, 2, 5)
+    assert means.shape == (5, 2) and means[3, 0] == 1.0 and means[4].sum() == 0.0
+    prior = minnesota_prior(design, MinnesotaHyper(sum_coef=1.0), pm)
+    m = design.n_det
+    assert prior.B0[m + 3 * 2 + 0, 0] == 1.0 and prior.B0[m + 0 * 2 + 1, 1] == 1.0
+    assert prior.B0.sum() == 2.0
+    assert prior.Yd.shape[0] == 2  # one sum-of-coefficients row per unit-root series
+    with pytest.raises(Exception, match="lags"):
+        own_lag_means(np.ones((6, 2)), 2, 5)

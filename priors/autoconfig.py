@@ -322,8 +322,7 @@ def _feasible_max(scorer: _Scorer, transforms: tuple[str, ...], seasonal: bool,
     series = scorer.series(transforms)
     for p in range(want, 0, -1):
         try:
-            # room for the common sample and a few rows per tuned hyperparameter
-            build_design(series, p, scorer.det(seasonal), start=p)
+            build_design(series, p, scorer.det(seasonal), start=p)  # enough rows for p?
             return p
         except TooFewObservationsError:
             continue
@@ -394,7 +393,7 @@ def choose_configuration(
         try:
             plain.calendar.season_labels()
             season_options.append(True)
-        except Exception:  # no seasons in this calendar (plain rows, irregular kinds)
+        except SpecificationError:  # no seasons in this calendar (plain rows, other kinds)
             pass
 
     # one common sample for every candidate
@@ -435,11 +434,9 @@ def choose_configuration(
             best[label] = (s, tr, seasonal, p, h, table)
     weights = _softmax({k: v[0] for k, v in best.items()})
 
-    def margin(label: str) -> float:
-        return best[label][0] - OCCAM_NATS * ("seasonal" in label) * (
-            "season_scale" in _base_hyper(req, True)[1])
-
-    pick = max(best, key=margin)
+    # a seasonal structure with its scale tuned has one more tuned hyperparameter
+    extra = OCCAM_NATS if "season_scale" in _base_hyper(req, True)[1] else 0.0
+    pick = max(best, key=lambda k: best[k][0] - extra * best[k][2])
     score, transforms, seasonal, lags, hyper, table = best[pick]
     lag_table = tuple((p, s, h.tightness) for s, p, h in table) if len(table) > 1 else ()
     reasons = []

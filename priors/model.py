@@ -141,9 +141,11 @@ class FanfoldVAR:
     hyperprior : bool
         Tune by the posterior mode under Gamma hyperpriors (Giannone, Lenza & Primiceri
         2015) instead of the marginal likelihood alone (default).
-    prior_mean : sequence or mapping, optional
-        Prior mean of each series' own first lag; default 1 for levels and logs, 0 for
-        differenced series.
+    prior_mean : sequence, (lags, n) array or mapping, optional
+        Prior mean of each series' own first lag (one value per series, or a mapping by
+        name); default 1 for levels and logs, 0 for differenced series. A (L, n) array
+        gives the own lags 1..L, e.g. 1 at lag 12 of monthly data for a seasonal random
+        walk (:func:`priors.shrinkage.own_lag_means`).
     constant, trend : bool
         Deterministic terms.
     seasonal : bool or "auto"

@@ -13,9 +13,9 @@ from dataclasses import dataclass
 
 import numpy as np
 import pandas as pd
-from scipy import stats
-from scipy.linalg import solve_triangular
 
+from ._model_gibbs import GibbsParts
+from ._model_summaries import PosteriorSummaries
 from ._types import FloatArray
 from .autoconfig import (
     AutoRequest,
@@ -25,7 +25,6 @@ from .autoconfig import (
     resolve_prior_mean,
 )
 from .conjugate import NIWPosterior, flat_posterior, posterior, update_posterior
-from .convergence import ConvergenceReport
 from .data import (
     Design,
     Deterministics,
@@ -36,8 +35,6 @@ from .data import (
     load_series,
     split_ragged_edge,
 )
-from .density import differenced_flags, mixture_log_scores, model_unit_outcomes
-from .draw_summaries import coefficient_table, mixture_log_density
 from .errors import (
     DataError,
     ExogenousError,
@@ -49,20 +46,14 @@ from .forecast import Forecast
 from .gibbs import (
     GibbsDraws,
     GibbsSettings,
-    gibbs_convergence,
     independent_minnesota_prior,
-    precompute,
-    run_chains,
 )
-from .hyper_mh import HyperSampler, gamma_from_mode_sd
 from .predictive import (
     companion_spectral_radius,
-    recursion_with_shocks,
     simulate_paths,
     simulate_paths_from_draws,
 )
-from .propagation import ShockResponses, VarianceShares, shock_responses, variance_shares
-from .sampling import Draws, check_size, sample_posterior
+from .sampling import Draws, check_size
 from .scenarios import (
     DEFAULT_SWEEPS,
     Condition,
@@ -72,7 +63,6 @@ from .scenarios import (
     model_unit_conditions,
 )
 from .shrinkage import MinnesotaHyper, NIWPrior, ar_residual_variances, minnesota_prior
-from .stochvol import run_sv_chains, simulate_log_volatility
 from .transforms import inverse_paths
 from .tuning import tune_hyperparameters
 
@@ -104,7 +94,7 @@ def _bic(design: Design) -> float:
     return float(logdet + np.log(T) / T * design.n * design.k)
 
 
-class FanfoldVAR:
+class FanfoldVAR(GibbsParts, PosteriorSummaries):
     """Bayesian VAR with a natural-conjugate Minnesota prior.
 
     Parameters
@@ -402,95 +392,6 @@ class FanfoldVAR:
             self._run_sv(rng, progress)
         return self
 
-    def _run_sv(self, rng: np.random.Generator | None,
-                progress: Callable[[int, int], None] | None) -> None:
-        """Common stochastic volatility by Gibbs (:mod:`priors.stochvol`) at the tuned
-        prior; sets ``sampler_`` (with the volatility state) and ``log_volatility_``."""
-        if rng is None:
-            raise SpecificationError("volatility='common' is sampled by Gibbs: pass "
-                                     "rng=np.random.default_rng(seed) to fit")
-        settings = self._gibbs_settings()
-        assert self.prior_ is not None
-        sv = run_sv_chains(rng.spawn(settings.chains), self.design_, self.prior_,
-                           burn=settings.burn, keep=settings.keep, thin=settings.thin,
-                           progress=progress, workers=settings.workers)
-        vol = np.stack([sv.h[:, :, -1], sv.phi, sv.sig2], axis=-1)
-        self.sampler_ = GibbsDraws(sv.B, sv.Sigma, settings, volatility=vol)
-        self.log_volatility_ = sv.h
-        self.sv_acceptance_ = sv.acceptance
-        self.log_ml_ = None
-
-    def _run_gibbs(self, rng: np.random.Generator | None,
-                   progress: Callable[[int, int], None] | None) -> None:
-        """Independent prior at the chosen hyperparameters (cross applied), Gibbs chains
-        started at the conjugate posterior mean; sets ``prior_`` and ``sampler_``."""
-        if rng is None:
-            raise SpecificationError("prior='independent' is sampled by Gibbs: pass "
-                                     "rng=np.random.default_rng(seed) to fit")
-        assert self.hyper_ is not None and self.posterior_ is not None
-        hyper = dataclasses.replace(self.hyper_, cross=float(self.cross))
-        prior = independent_minnesota_prior(self.design_, hyper, self.prior_mean_)
-        pre = precompute(self.design_, prior, self._outlier_rows())
-        sampler = None
-        if self.sample_hyper:
-            m = self.design_.n_det
-            own = np.tile(np.eye(self.design_.n, dtype=bool), (self.lags_, 1))
-            unit = hyper.tightness**2 * np.where(own, 1.0, hyper.cross**2)
-            sampler = HyperSampler(prior.V[:m], prior.V[m:] / unit, own, prior.B0,
-                                   gamma_from_mode_sd(0.2, 0.4), gamma_from_mode_sd(0.5, 0.5))
-        draws = run_chains(rng, pre, self.posterior_.B, self.posterior_.sigma_mean(),
-                           self._gibbs_settings(), progress=progress, hyper=sampler,
-                           hyper_start=(hyper.tightness, hyper.cross))
-        self.hyper_ = hyper
-        self.prior_ = prior
-        self.sampler_ = draws
-        self.log_ml_ = None
-
-    def _outlier_rows(self) -> list[list[int]]:
-        """Rows of the design covered by each outlier period (see :meth:`_outlier_spans`)."""
-        return [rows for rows, _ in self._outlier_spans()]
-
-    def _outlier_future(self) -> list[tuple[int, list[int]]]:
-        """(period, forecast steps) for periods that run past the last complete period:
-        their estimated scale carries into those forecast steps."""
-        return [(k, steps) for k, (_, steps) in enumerate(self._outlier_spans()) if steps]
-
-    def _outlier_spans(self) -> list[tuple[list[int], list[int]]]:
-        """Per outlier period: the design rows it covers, and the forecast steps (1 = the
-        first period after the complete data) it still covers. Dates, or 0-based data
-        rows for plain arrays, as given by the user."""
-        if not self.outliers:
-            return []
-        series, design = self.series_, self.design_
-        first = series.levels.shape[0] - design.nobs  # data row of design row 0
-        index = self._level_index() if series.calendar.index is not None else None
-        spans = []
-        for item in self.outliers:
-            try:
-                start, length = item
-            except (TypeError, ValueError):
-                raise SpecificationError(f"an outlier period is (first period, number of "
-                                         f"periods); got {item!r}") from None
-            if int(length) != length or length < 1:
-                raise SpecificationError(f"outlier period length must be >= 1; got {length!r}")
-            if index is not None:
-                hit = np.flatnonzero(index == pd.Timestamp(start))
-                if not hit.size:
-                    raise SpecificationError(f"outlier period start {start!r} is not a date "
-                                             "of the data")
-                row0 = int(hit[0])
-            else:
-                row0 = int(start)
-            rows = [r - first for r in range(row0, row0 + int(length))]
-            if not 0 <= rows[0] < design.nobs:
-                raise SpecificationError(
-                    f"outlier period {item!r} must start within the estimation sample (after "
-                    f"the first {first} rows used as lags, up to the last complete period), "
-                    "so that its scale can be estimated")
-            spans.append(([r for r in rows if r < design.nobs],
-                          [r - design.nobs + 1 for r in rows if r >= design.nobs]))
-        return spans
-
     def get_params(self) -> dict[str, object]:
         """The settings given to ``__init__`` (enough to build an identical model)."""
         names = [p for p in inspect.signature(type(self).__init__).parameters if p != "self"]
@@ -670,72 +571,6 @@ class FanfoldVAR:
             raise NotFittedError("this FanfoldVAR is not fitted yet; call fit(data) first")
 
     # ------------------------------------------------------------------ results
-    def sample(self, draws: int, *, rng: np.random.Generator) -> Draws:
-        """Posterior draws of (B, Sigma): exact i.i.d. draws for the conjugate and flat
-        priors; for "independent", draws picked at random from the stored Gibbs draws
-        (without replacement while there are enough)."""
-        self._check_fitted()
-        if self.sampler_ is None:
-            return sample_posterior(rng, self.posterior_, draws)
-        return self._pick(draws, rng)[0]
-
-    def _pick(self, draws: int, rng: np.random.Generator) -> tuple[Draws, FloatArray | None]:
-        """Stored draws picked at random, with their volatility state (S, 3) if any."""
-        picked, state, _ = self._pick_all(draws, rng)
-        return picked, state
-
-    def _pick_all(self, draws: int, rng: np.random.Generator
-                  ) -> tuple[Draws, FloatArray | None, FloatArray | None]:
-        """Stored draws picked at random, with their volatility state (S, 3) and outlier
-        scales (S, K) where the model has them."""
-        assert self.sampler_ is not None
-        draws = check_size(draws)
-        B, Sig = self.sampler_.flat()
-        pick = rng.choice(B.shape[0], size=draws, replace=draws > B.shape[0])
-        vol, sc = self.sampler_.volatility, self.sampler_.scales
-        state = None if vol is None else vol.reshape(-1, 3).astype(np.float64)[pick]
-        scales = None if sc is None else sc.reshape(B.shape[0], -1).astype(np.float64)[pick]
-        return Draws(B[pick], Sig[pick]), state, scales
-
-    def time_varying_shocks(self) -> bool:  # public: the backtest asks it too
-        """Whether forecast shocks have a draw- and step-dependent scale (stochastic
-        volatility, or an outlier period running into the forecast)."""
-        return self.sampler_ is not None and (self.sampler_.volatility is not None
-                                              or bool(self._outlier_future()))
-
-    def _scaled_paths(self, rng: np.random.Generator, draws: int, history: FloatArray,
-                      exog_rows: FloatArray) -> FloatArray:
-        """Paths whose shocks are scaled per draw and step: exp(h/2) of simulated
-        log-volatility, and the outlier scales over the forecast steps they cover."""
-        picked, state, scales = self._pick_all(draws, rng)
-        horizon, n = exog_rows.shape[0], self.series_.n
-        mult = np.ones((draws, horizon))
-        if state is not None:
-            h = simulate_log_volatility(rng, state[:, 0], state[:, 1], state[:, 2], horizon)
-            mult *= np.exp(h / 2)
-        if scales is not None:
-            for k, steps in self._outlier_future():
-                inside = [s - 1 for s in steps if s <= horizon]
-                mult[:, inside] *= scales[:, k][:, None]
-        z = rng.standard_normal((draws, horizon, n))
-        shocks = mult[:, :, None] * np.einsum("sij,shj->shi",
-                                               np.linalg.cholesky(picked.Sigma), z)
-        return recursion_with_shocks(picked.B, shocks, history, exog_rows)
-
-    def convergence(self) -> ConvergenceReport | None:
-        """R-hat, bulk and tail ESS and MCSE of every coefficient and Sigma element of the
-        Gibbs draws, with ``ok`` False when any R-hat > 1.01 or ESS < 400 (then do not
-        trust the fit: run longer chains). None for exact samplers (no chains) and for a
-        single chain. Computed on first call (seconds for large models), then kept."""
-        self._check_fitted()
-        if self.sampler_ is None:
-            return None
-        cached = getattr(self, "_convergence", None)
-        if cached is None or cached[0] is not self.sampler_:
-            cached = (self.sampler_, gibbs_convergence(self.sampler_, self.design_))
-            self._convergence = cached
-        return cached[1]
-
     def forecast(
         self,
         horizon: int,
@@ -961,178 +796,3 @@ class FanfoldVAR:
         B = np.concatenate(kept_B)[:draws]
         Sig = np.concatenate(kept_S)[:draws]
         return Draws(B, Sig), 1.0 - have / total
-
-    def one_step_log_density(
-        self,
-        y_next: FloatArray,
-        *,
-        exog_next: pd.DataFrame | FloatArray | None = None,
-    ) -> float:
-        """log p(y_T+1 | data), exactly: the one-step predictive is multivariate t,
-        t_{nu-n+1}(B_bar'x, (1 + x'P^-1 x) S / (nu - n + 1)) (Zellner 1971). For
-        "independent", the mixture of normals over the stored Gibbs draws.
-
-        ``y_next`` (n,) is in model units (after transforms; the same as the data's units
-        when no transform is used). Equals log p(data + y_next) - log p(data) under the
-        fitted prior.
-        """
-        self._check_fitted()
-        post, n = self.posterior_, self.posterior_.n
-        exog = future_exogenous_rows(self.series_, self.deterministics_, 1, exog_next)[0]
-        x = np.concatenate([exog, self.series_.values[-self.lags_:][::-1].ravel()])
-        if self.sampler_ is not None:
-            B, Sig = self.sampler_.flat()
-            return mixture_log_density(B, Sig, x, np.asarray(y_next, dtype=np.float64))
-        v = solve_triangular(post.R, x, trans=1, lower=False, check_finite=False)
-        dof = post.df - n + 1
-        shape = (1.0 + v @ v) * post.S / dof
-        dist = stats.multivariate_t(loc=post.B.T @ x, shape=shape, df=dof)
-        return float(dist.logpdf(np.asarray(y_next, dtype=np.float64)))
-
-    def log_predictive_density(
-        self,
-        actual: pd.DataFrame | FloatArray,
-        *,
-        rng: np.random.Generator,
-        draws: int = 1000,
-        exog_future: pd.DataFrame | FloatArray | None = None,
-    ) -> FloatArray:
-        """log p(y_{T+h} | data) of realised outcomes (H, n) in the user's units, for
-        h = 1..H, each the joint density of all series at that step; (H,).
-
-        Step 1 of the conjugate and flat models is exact (multivariate t, see
-        :meth:`one_step_log_density`); otherwise the Rao-Blackwellised mixture over
-        ``draws`` posterior draws (:mod:`priors.density`). Transformed series include the
-        Jacobian, so scores compare across transforms. NaN where an outcome is missing.
-        """
-        self._check_fitted()
-        if self.ragged_ is not None or self.time_varying_shocks():
-            raise SpecificationError("log predictive densities are not available with "
-                                     "incomplete last periods or time-varying shock scales")
-        y = np.asarray(actual, dtype=np.float64)
-        series = self.series_
-        if y.ndim != 2 or y.shape[1] != series.n:
-            raise SpecificationError(f"outcomes must have shape (H, {series.n}); got {y.shape}")
-        H = y.shape[0]
-        w, logjac = model_unit_outcomes(y, series.transforms, series.levels[-1])
-        exog_rows = future_exogenous_rows(series, self.deterministics_, H, exog_future)
-        d = self.sample(draws, rng=rng)
-        out = mixture_log_scores(d.B, d.Sigma, series.values[-self.lags_:], exog_rows, w,
-                                 differenced_flags(series.transforms),
-                                 n_det=self.design_.n_det) + logjac
-        if self.sampler_ is None and np.all(np.isfinite(w[0])):
-            exog_next = None if exog_future is None else (
-                exog_future.iloc[:1] if isinstance(exog_future, pd.DataFrame)
-                else np.asarray(exog_future)[:1])
-            out[0] = self.one_step_log_density(w[0], exog_next=exog_next) + logjac[0]
-        return out
-
-    def spectral_radius(self, draws: int = 1000, *, rng: np.random.Generator) -> FloatArray:
-        """Posterior draws of the companion matrix's spectral radius, (draws,).
-
-        Values >= 1 mean explosive dynamics. Costs one (n p) x (n p) eigenvalue problem
-        per draw.
-        """
-        self._check_fitted()
-        B = self.sample(draws, rng=rng).B
-        return companion_spectral_radius(B, self.design_.n_det, self.lags_)
-
-    def impulse_responses(
-        self,
-        horizon: int = 24,
-        *,
-        rng: np.random.Generator,
-        draws: int = 1000,
-        identification: str = "recursive",
-        shock_size: str = "sd",
-        ordering: Sequence[str] | None = None,
-        cumulative: bool = False,
-    ) -> ShockResponses:
-        """How a shock to one series spreads to the others, with posterior bands.
-
-        One response per exact posterior draw of (B, Sigma), steps 0 (impact) to
-        ``horizon``, in the user's units where the transform allows (see
-        :func:`priors.irf.response_units`). ``identification``: "recursive" (Cholesky,
-        series in ``ordering``, a list of names, default the data's order) or
-        "generalised" (Pesaran & Shin 1998, no ordering). ``shock_size``: "sd" or
-        "unit". ``cumulative`` sums the responses over steps.
-        """
-        self._check_fitted()
-        d = self.sample(draws, rng=rng)
-        return shock_responses(d.B, d.Sigma, n_det=self.design_.n_det, lags=self.lags_,
-                               horizon=horizon, names=self.series_.names,
-                               transforms=self.series_.transforms,
-                               identification=identification, shock_size=shock_size,
-                               ordering=ordering, cumulative=cumulative)
-
-    def variance_decomposition(
-        self,
-        horizon: int = 24,
-        *,
-        rng: np.random.Generator,
-        draws: int = 1000,
-        identification: str = "recursive",
-        ordering: Sequence[str] | None = None,
-    ) -> VarianceShares:
-        """Shares of each series' 1..horizon-step forecast error variance due to each
-        shock (Lutkepohl 2005, sec. 2.3.3), one decomposition per posterior draw."""
-        self._check_fitted()
-        d = self.sample(draws, rng=rng)
-        return variance_shares(d.B, d.Sigma, n_det=self.design_.n_det, lags=self.lags_,
-                               horizon=horizon, names=self.series_.names,
-                               identification=identification, ordering=ordering)
-
-    def coefficients(self, level: float = 0.9) -> pd.DataFrame:
-        """Posterior mean, s.d. and central credible interval of every coefficient.
-
-        Analytic matrix-t marginals: B_ri ~ t_{nu-n+1}(B_bar_ri, P^-1_rr S_ii / (nu-n+1));
-        for "independent", moments and quantiles of the Gibbs draws.
-        Columns: equation, regressor, mean, sd, lower, upper.
-        """
-        self._check_fitted()
-        if not 0 < level < 1:
-            raise SpecificationError(f"level must lie strictly between 0 and 1; got {level}")
-        if self.sampler_ is not None:
-            return coefficient_table(self.sampler_.flat()[0], self.design_.labels,
-                                     self.design_.names, level)
-        post, design = self.posterior_, self.design_
-        n = post.n
-        dof = post.df - n + 1
-        scale2 = np.outer(post.row_cov_diag(), np.diag(post.S)) / dof
-        sd = np.sqrt(scale2 * dof / (dof - 2)) if dof > 2 else np.full_like(scale2, np.inf)
-        tq = stats.t.ppf(0.5 + level / 2, dof)
-        half = tq * np.sqrt(scale2)
-        rows = [
-            {"equation": design.names[i], "regressor": design.labels[r], "mean": post.B[r, i],
-             "sd": sd[r, i], "lower": post.B[r, i] - half[r, i],
-             "upper": post.B[r, i] + half[r, i]}
-            for i in range(n) for r in range(post.k)
-        ]
-        return pd.DataFrame(rows)
-
-    def sigma_mean(self) -> pd.DataFrame:
-        """Posterior mean of Sigma, labelled by series."""
-        self._check_fitted()
-        names = list(self.design_.names)
-        mean = (self.posterior_.sigma_mean() if self.sampler_ is None
-                else self.sampler_.flat()[1].mean(axis=0))
-        return pd.DataFrame(mean, index=names, columns=names)
-
-    def hyperparameters(self) -> dict[str, float | int | None]:
-        """Chosen lags and hyperparameters (None where switched off or flat); with
-        ``sample_hyper``, the posterior medians of the tightness and cross tightness."""
-        self._check_fitted()
-        h = self.hyper_
-        if h is not None and self.sampler_ is not None and self.sampler_.hyper is not None:
-            med = np.median(self.sampler_.hyper.reshape(-1, 2), axis=0)
-            h = dataclasses.replace(h, tightness=float(med[0]), cross=float(med[1]))
-        return {
-            "lags": self.lags_,
-            "tightness": None if h is None else h.tightness,
-            "cross": None if h is None else h.cross,
-            "decay": None if h is None else h.decay,
-            "det_scale": None if h is None else h.det_scale,
-            "sum_coef": None if h is None else h.sum_coef,
-            "initial": None if h is None else h.initial,
-            "season_scale": None if h is None else h.season_scale,
-        }

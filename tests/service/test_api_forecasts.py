@@ -24,6 +24,11 @@ def test_json_forecast_layout_and_values(client, demo_body):
                         "seed", "draws", "horizon", "rejected_explosive_share", "cumulative",
                         "lead_time_totals"}
     assert (out["lags"], out["seed"], out["draws"], out["horizon"]) == (2, 11, 300, 4)
+    # lags were given; the rest was chosen by the automatic configuration, with reasons
+    config = out["configuration"]
+    assert {"transforms", "seasonal"} <= set(config["chosen"]) and "lags" not in config["chosen"]
+    assert config["reasons"] and config["summary"].startswith("lags 2")
+    assert set(config["transforms"]) == {"tyres", "inner_tubes", "brake_pads"}
     tyres = out["forecasts"]["tyres"]
     assert tyres["dates"] == ["2020-01-01", "2020-02-01", "2020-03-01", "2020-04-01"]
     q = np.array([tyres["quantiles"][k] for k in ("0.05", "0.5", "0.95")])

@@ -54,6 +54,21 @@ def test_csv_body_with_query_settings_matches_the_cli(client, capsys):
     assert r.json() == json.loads(capsys.readouterr().out)
 
 
+def test_csv_query_strings_spell_the_automatic_settings_like_the_cli(client, capsys):
+    # off / on / auto in a query string mean what they mean on the command line
+    args = {"horizon": 2, "draws": 100, "seed": 5, "lags": 1, "seasonal": "on",
+            "counts": "off", "season_scale": "off", "sum_coef": "off", "initial": "auto"}
+    r = client.post("/v1/forecasts", params=args, content=DEMO_CSV.read_bytes(),
+                    headers={"content-type": "text/csv"})
+    assert r.status_code == 200, r.text
+    assert r.json()["hyperparameters"]["sum_coef"] is None
+    code = main(["forecast", str(DEMO_CSV), "--horizon", "2", "--draws", "100", "--seed", "5",
+                 "--lags", "1", "--seasonal", "on", "--counts", "off", "--season-scale", "off",
+                 "--sum-coef", "off", "--initial", "auto", "--json"])
+    assert code == 0
+    assert r.json() == json.loads(capsys.readouterr().out)
+
+
 @pytest.mark.parametrize(("change", "field"), [
     ({"horizonx": 3}, "horizonx"),
     ({"horizon": 0}, "horizon"),

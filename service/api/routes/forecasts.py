@@ -51,10 +51,10 @@ def _query_settings(request: Request) -> ForecastSettings:
     raw: dict[str, Any] = dict(request.query_params)
     if "quantiles" in raw:
         raw["quantiles"] = [q for q in raw["quantiles"].split(",") if q.strip()]
-    for key in ("sum_coef", "initial"):
+    for key in ("sum_coef", "initial", "season_scale"):
         if raw.get(key) in ("", "off", "null"):
             raw[key] = None
-    for key in ("hyperprior", "seasonal", "trend", "constant", "cumulative",
+    for key in ("hyperprior", "seasonal", "trend", "constant", "cumulative", "counts",
                 "reject_explosive"):  # query strings: true/false, 1/0, yes/no
         value = str(raw.get(key, "")).lower()
         if value in ("true", "1", "yes", "on"):

@@ -57,7 +57,7 @@ from .errors import (
 )
 from .shrinkage import MinnesotaHyper, ar_residual_variances, minnesota_prior
 from .transforms import default_prior_mean
-from .tuning import tune_hyperparameters
+from .tuning import BOUNDS, tune_hyperparameters
 
 __all__ = [
     "OCCAM_NATS",
@@ -221,10 +221,13 @@ class _Scorer:
     """Scores candidates on one common sample, caching the loaded series per transform."""
 
     def __init__(self, data: pd.DataFrame | FloatArray, request: AutoRequest, *,
-                 exog: object, names: Sequence[str] | None, period: int | None) -> None:
+                 exog: object, names: Sequence[str] | None, period: int | None,
+                 loaded: SeriesData | None = None) -> None:
         self.data, self.request = data, request
         self.exog, self.names, self.period = exog, names, period
-        self._series: dict[tuple[str, ...], SeriesData] = {}
+        # series per transform; ``loaded`` is already validated, so it is not read again
+        self._series: dict[tuple[str, ...], SeriesData] = (
+            {} if loaded is None else {loaded.transforms: loaded})
         self.start = 0
 
     def series(self, transforms: tuple[str, ...]) -> SeriesData:
@@ -374,8 +377,7 @@ def choose_configuration(
     fixed = _nothing_to_choose(req, plain.transforms)
     if fixed is not None:
         return fixed
-    scorer = _Scorer(data, req, exog=exog, names=names, period=period)
-    scorer._series[plain.transforms] = plain
+    scorer = _Scorer(data, req, exog=exog, names=names, period=period, loaded=plain)
     levels_tr = plain.transforms
     names_ = plain.names
     chosen: list[str] = []
@@ -491,8 +493,6 @@ def choose_configuration(
         names_all = tune + dummy_names
         s, h = scorer.score(transforms, seasonal, lags, trial_h, names_all,
                             prior_mean=prior_mean)
-        from .tuning import BOUNDS
-
         # a weight at its upper bound: the data switch that prior off
         off = [nm for nm in dummy_names if getattr(h, nm) >= BOUNDS[nm][1] * 0.999]
         if off:

@@ -39,7 +39,6 @@ uses the best structure rather than averaging across them.
 from __future__ import annotations
 
 import math
-import warnings
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, field, replace
 
@@ -50,7 +49,6 @@ from ._types import FloatArray
 from .conjugate import posterior
 from .data import Deterministics, SeriesData, _as_frame, _numeric, build_design, load_series
 from .errors import (
-    ConvergenceWarning,
     ExplosiveDataError,
     SpecificationError,
     TooFewObservationsError,
@@ -251,14 +249,12 @@ class _Scorer:
         design = build_design(series, lags, self.det(seasonal), start=self.start)
         prior_mean = self.prior_mean(series) if prior_mean is None else prior_mean
         psi = ar_residual_variances(design)
-        with warnings.catch_warnings():
-            warnings.simplefilter("ignore", ConvergenceWarning)  # bounds: judged later
-            if tune:
-                res = tune_hyperparameters(design, hyper, prior_mean, tune=tune,
-                                           hyperprior=self.request.hyperprior, psi=psi)
-                lml, hyper = res.log_ml, res.hyper
-            else:
-                lml = posterior(design, minnesota_prior(design, hyper, prior_mean, psi)).log_ml
+        if tune:  # a weight at a bound is judged later, so no warning here
+            res = tune_hyperparameters(design, hyper, prior_mean, tune=tune,
+                                       hyperprior=self.request.hyperprior, psi=psi, warn=False)
+            lml, hyper = res.log_ml, res.hyper
+        else:
+            lml = posterior(design, minnesota_prior(design, hyper, prior_mean, psi)).log_ml
         assert lml is not None
         drop = series.levels.shape[0] - series.nobs
         rows = series.levels[drop + self.start:]

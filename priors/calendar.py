@@ -1,4 +1,12 @@
-"""Time-index handling: frequency detection, seasonal codes and future dates."""
+"""Time-index handling: frequency detection, seasonal codes and future dates.
+
+Supported dates run from :data:`FIRST_DATE` to :data:`LAST_DATE` (whole years inside
+pandas' nanosecond timestamps, 1677-09-21 to 2262-04-11), for the data and for every
+forecast period; anything outside is refused with :class:`DateRangeError`.
+
+Nothing here changes process-wide state (pandas options, warning filters): calendars are
+built on request paths, in several threads at once.
+"""
 
 from __future__ import annotations
 
@@ -6,12 +14,37 @@ from dataclasses import dataclass, field
 
 import numpy as np
 import pandas as pd
-from pandas.tseries import offsets
+from pandas.tseries import frequencies, offsets
 
 from ._types import IntArray
-from .errors import SpecificationError, TimeIndexError
+from .errors import DateRangeError, SpecificationError, TimeIndexError
 
-__all__ = ["Calendar", "calendar_from_index", "plain_calendar", "regular_dates"]
+__all__ = ["FIRST_DATE", "LAST_DATE", "Calendar", "calendar_from_index", "check_date_range",
+           "plain_calendar", "regular_dates"]
+
+#: first and last supported date (data and forecast periods)
+FIRST_DATE = pd.Timestamp("1678-01-01")
+LAST_DATE = pd.Timestamp("2261-12-31 23:59:59")
+_RANGE = f"{FIRST_DATE.date()} to {LAST_DATE.date()}"
+
+
+def check_date_range(first: object, last: object, *, argument: str = "dates") -> None:
+    """Raise :class:`DateRangeError` unless ``first`` .. ``last`` lie inside the supported
+    dates. ``argument`` ("dates" or "horizon") is carried on the error."""
+    for when, label in ((first, "first"), (last, "last")):
+        try:
+            stamp = pd.Timestamp(when)  # type: ignore[arg-type]
+        except (ValueError, OverflowError) as exc:
+            raise DateRangeError(f"the {label} date {when} cannot be read as a date; "
+                                 f"dates must lie from {_RANGE}", argument) from exc
+        if not FIRST_DATE <= stamp <= LAST_DATE:
+            what = ("the forecast would run to" if argument == "horizon"
+                    else f"the {label} date is")
+            advice = ("shorten the horizon" if argument == "horizon"
+                      else "move the dates into that range")
+            day = f"{stamp.year:04d}-{stamp.month:02d}-{stamp.day:02d}"
+            raise DateRangeError(f"{what} {day}, outside the supported dates {_RANGE}; "
+                                 f"{advice}", argument)
 
 _WEEKDAYS = ("Mon", "Tue", "Wed", "Thu", "Fri", "Sat", "Sun")
 _MONTH_START = offsets.MonthBegin()
@@ -23,7 +56,27 @@ def regular_dates(start: object, periods: int, freq: str,
 
     Month starts ("MS", the usual layout of demand data) are built from numpy months:
     0.02 ms instead of pandas' 0.7 ms for 120 dates.
+
+    Raises
+    ------
+    DateRangeError
+        ``start`` or the last date outside :data:`FIRST_DATE` .. :data:`LAST_DATE`.
+    ValueError
+        An unknown frequency (pandas' own error).
     """
+    check_date_range(start, start)
+    try:
+        index = _regular_dates(start, periods, freq, name)
+    except (pd.errors.OutOfBoundsDatetime, OverflowError) as exc:
+        raise DateRangeError(f"{periods} periods of frequency {freq!r} from {start} run past "
+                             f"the supported dates {_RANGE}") from exc
+    if len(index):
+        check_date_range(index[0], index[-1])
+    return index
+
+
+def _regular_dates(start: object, periods: int, freq: str,
+                   name: str | None) -> pd.DatetimeIndex:
     if freq == "MS":
         first = pd.Timestamp(start)  # type: ignore[arg-type]
         if first.day == 1 and first.value % 86_400_000_000_000 == 0:  # midnight
@@ -74,14 +127,25 @@ class Calendar:
         if self.index is None:
             return None
         if horizon not in self._futures:  # asked for twice per forecast (dates, terms)
-            last = self.index.to_numpy()[-1]
-            if self.freq == "MS" and last == last.astype("datetime64[D]"):  # at midnight
-                self._futures[horizon] = _month_starts(
-                    last.astype("datetime64[M]"), 1, horizon, self.index.unit, None)
-            else:
-                self._futures[horizon] = regular_dates(self.index[-1], horizon + 1,
-                                                       self.freq)[1:]
+            self._futures[horizon] = self._future(horizon)
         return self._futures[horizon]
+
+    def _future(self, horizon: int) -> pd.DatetimeIndex:
+        assert self.index is not None and self.freq is not None
+        last = self.index.to_numpy()[-1]
+        try:
+            if self.freq == "MS" and last == last.astype("datetime64[D]"):  # at midnight
+                dates = _month_starts(last.astype("datetime64[M]"), 1, horizon,
+                                      self.index.unit, None)
+            else:
+                dates = _regular_dates(self.index[-1], horizon + 1, self.freq, None)[1:]
+        except (pd.errors.OutOfBoundsDatetime, OverflowError) as exc:
+            raise DateRangeError(f"{horizon} periods after {self.index[-1].date()} run past "
+                                 f"the supported dates {_RANGE}; shorten the horizon",
+                                 "horizon") from exc
+        if len(dates):
+            check_date_range(dates[0], dates[-1], argument="horizon")
+        return dates
 
     def season_labels(self) -> tuple[str, ...]:
         """Labels of the seasonal dummies (the first season is the baseline)."""
@@ -122,11 +186,19 @@ def plain_calendar(period: int | None = None) -> Calendar:
     return Calendar(None, None, "plain", None if period is None else int(period))
 
 
+#: pandas' frequency inference as a string, without its warning about the return type
+#: (pandas 3.1 deprecates the string): its internal string version where it has one,
+#: else the public function (which then returns a string or an offset, quietly). No
+#: ``pd.option_context``: that is process-wide and threads would undo each other's.
+_infer_freq_any = getattr(frequencies, "infer_freq_str", pd.infer_freq)
+
+
 def _infer_freq(index: pd.DatetimeIndex) -> str | None:
-    """``pd.infer_freq`` as a string, without pandas' warning about its return type."""
-    with pd.option_context("future.infer_freq_returns_offset", True):
-        offset = pd.infer_freq(index)
-    return None if offset is None else offset.freqstr
+    """The frequency of ``index`` as a string (None when uneven)."""
+    found = _infer_freq_any(index)
+    if found is None or isinstance(found, str):
+        return found
+    return str(found.freqstr)
 
 
 def _likely_freq(index: pd.DatetimeIndex) -> str | None:
@@ -158,6 +230,8 @@ def calendar_from_index(index: pd.DatetimeIndex, freq: str | None = None) -> Cal
     """
     if index.tz is not None:
         index = index.tz_localize(None)
+    if len(index):
+        check_date_range(index.min(), index.max())
     if not index.is_unique:
         dup = index[index.duplicated()]
         raise TimeIndexError(

@@ -10,6 +10,7 @@ The tree::
     │   ├── ExplosiveDataError                 a series grows by orders of magnitude
     │   ├── NonPositiveValuesError             log transform of values <= 0 (or <= -1 for log1p)
     │   ├── TimeIndexError                     duplicate, unsorted or irregular timestamps
+    │   │   └── DateRangeError                 dates (or forecast dates) outside 1678-2261
     │   ├── NonNumericError                    a column that is not numbers
     │   ├── DuplicateNameError                 two series with the same name
     │   └── ExogenousError                     exogenous regressors missing or misaligned
@@ -32,6 +33,7 @@ __all__ = [
     "ConstantSeriesError",
     "ConvergenceWarning",
     "DataError",
+    "DateRangeError",
     "DuplicateNameError",
     "ExogenousError",
     "ExplosiveDataError",
@@ -79,6 +81,19 @@ class NonPositiveValuesError(DataError):
 
 class TimeIndexError(DataError):
     """Timestamps are duplicated, unsorted or not evenly spaced."""
+
+
+class DateRangeError(TimeIndexError):
+    """Dates of the data, or of the forecast periods, outside the supported calendar
+    (:data:`priors.calendar.FIRST_DATE` to :data:`priors.calendar.LAST_DATE`).
+
+    ``argument`` says which input to change: ``"dates"`` (the data's own dates) or
+    ``"horizon"`` (the forecast would run past the last supported date).
+    """
+
+    def __init__(self, message: str, argument: str = "dates") -> None:
+        super().__init__(message)
+        self.argument = argument
 
 
 class NonNumericError(DataError):

@@ -483,11 +483,14 @@ def tune_hyperparameters(
     tune: tuple[str, ...] = ("tightness",),
     hyperprior: bool = False,
     psi: FloatArray | None = None,
+    warn: bool = True,
 ) -> TuningResult:
     """Maximise the (log) marginal likelihood, or the hyperparameter posterior, over ``tune``.
 
     ``tune`` lists names among tightness, sum_coef and initial; a dummy weight can be
     tuned only if it is switched on in ``base`` (its value there is the start).
+    ``warn=False`` skips the :class:`ConvergenceWarning` for a result at a search bound
+    (for callers that judge bounds themselves; no process-wide warning filter needed).
     """
     psi = ar_residual_variances(design) if psi is None else psi
     names = tuple(tune)
@@ -526,7 +529,7 @@ def tune_hyperparameters(
     else:
         start = np.clip(np.log([getattr(base, nm) for nm in names]), lo, hi)
         best = _maximise_in_box(negative, start, lo, hi)
-    for message in _edge_messages(names, best, lo, hi, hyperprior):
+    for message in _edge_messages(names, best, lo, hi, hyperprior) if warn else ():
         warnings.warn(message, ConvergenceWarning, stacklevel=2)
     obj, lml = evaluate(best)
     hyper = replace(base, **dict(zip(names, np.exp(best).tolist(), strict=True)))

@@ -13,8 +13,15 @@ from typing import Any, NamedTuple
 import numpy as np
 import pandas as pd
 
-from priors import DataError, FanfoldVAR, Forecast, SpecificationError, TimeIndexError
-from priors.calendar import regular_dates
+from priors import (
+    DataError,
+    DateRangeError,
+    FanfoldVAR,
+    Forecast,
+    SpecificationError,
+    TimeIndexError,
+)
+from priors.calendar import calendar_from_index, regular_dates
 from priors.inventory import window_totals
 from priors.model import default_max_lags
 
@@ -73,11 +80,14 @@ def frame_from_spec(spec: SeriesData) -> pd.DataFrame:
         if len(spec.dates) != T:
             raise DataError(f"{len(spec.dates)} dates for {T} values per series")
         index = pd.DatetimeIndex(pd.to_datetime(spec.dates), name="date")
+        calendar_from_index(index)  # at the door: duplicates, gaps, dates out of range
     elif spec.start is not None:
         if spec.frequency is None:
             raise DataError("give the frequency of the dates with start, e.g. 'MS' (monthly)")
         try:
             index = regular_dates(spec.start, T, spec.frequency, name="date")
+        except DateRangeError as exc:
+            raise DateRangeError(str(exc), "start") from exc
         except ValueError as exc:
             raise TimeIndexError(
                 f"unknown frequency {spec.frequency!r}; use a pandas "
@@ -187,16 +197,29 @@ def check_backtest_limits(spec: BacktestCreate, n: int, T: int, limits: Settings
             f"{limits.max_gibbs_work:.3g}; lower origins, keep, burn or chains"))
 
 
-def check_output_limits(spec: OutputSettings, n: int, limits: Settings) -> None:
-    """Raise :class:`LimitExceeded` (422) naming the first output limit exceeded."""
-    _over("draws", spec.draws, limits.max_draws, "lower draws")
-    _over("horizon", spec.horizon, limits.max_horizon, "lower horizon")
-    _over("quantiles", len(spec.quantiles), limits.max_quantiles, "ask for fewer quantiles")
+def check_output_limits(*, horizon: int, draws: int, n: int, limits: Settings,
+                        quantiles: int = 0, horizon_field: str = "horizon",
+                        horizon_what: str = "horizon") -> None:
+    """Raise :class:`LimitExceeded` (422) naming the first output limit exceeded.
+
+    ``horizon`` is the number of steps simulated; a route whose steps come from other
+    fields (replenishment: start + lead_time + review_period) names them in
+    ``horizon_field`` and ``horizon_what``.
+    """
+    _over("draws", draws, limits.max_draws, "lower draws")
+    if horizon > limits.max_horizon:
+        raise LimitExceeded(horizon_field, (
+            f"{horizon_field}: {horizon_what} = {horizon} steps ahead is over this server's "
+            f"limit of {limits.max_horizon}; ask for fewer steps"
+            if horizon_what != "horizon" else
+            f"horizon: {horizon} is over this server's limit of {limits.max_horizon}; "
+            "lower horizon"))
+    _over("quantiles", quantiles, limits.max_quantiles, "ask for fewer quantiles")
     _over(
         "draws",
-        spec.draws * spec.horizon * n,
+        draws * horizon * n,
         limits.max_path_values,
-        "lower draws or horizon (draws x horizon x series)",
+        f"lower draws or {horizon_field} (draws x steps x series)",
     )
 
 
@@ -327,7 +350,8 @@ def simulate_forecast(model: FanfoldVAR, *, horizon: int, draws: int, seed: int,
 
 def forecast_answer(model: FanfoldVAR, spec: OutputSettings, limits: Settings) -> dict[str, Any]:
     """Forecast from a fitted model; the answer in the layout of :func:`forecast_to_dict`."""
-    check_output_limits(spec, model.design_.n, limits)
+    check_output_limits(horizon=spec.horizon, draws=spec.draws, quantiles=len(spec.quantiles),
+                        n=model.design_.n, limits=limits)
     seed = secrets.randbits(32) if spec.seed is None else spec.seed
     fc, totals = simulate_forecast(
         model, horizon=spec.horizon, draws=spec.draws, seed=seed,
@@ -358,7 +382,8 @@ def run_forecast(spec: ForecastSettings, frame: pd.DataFrame, limits: Settings) 
     """One-shot: check every limit first, then fit and forecast. One seed (given or
     fresh, reported in the answer) drives both the Gibbs chains and the forecast draws."""
     check_model_limits(spec, frame.shape[1], frame.shape[0], limits)
-    check_output_limits(spec, frame.shape[1], limits)
+    check_output_limits(horizon=spec.horizon, draws=spec.draws, quantiles=len(spec.quantiles),
+                        n=frame.shape[1], limits=limits)
     work, field = gibbs_work(spec, frame.shape[1])
     if work > limits.sync_max_gibbs_work:
         raise LimitExceeded(field, (
@@ -381,8 +406,7 @@ def fan_chart(
     limits: Settings,
 ) -> dict[str, Any]:
     """Nested central bands, the median and the last ``history`` observations."""
-    out = OutputSettings(horizon=horizon, draws=draws, seed=seed)
-    check_output_limits(out, model.design_.n, limits)
+    check_output_limits(horizon=horizon, draws=draws, n=model.design_.n, limits=limits)
     fc = model.forecast(horizon, rng=np.random.default_rng(seed), draws=draws)
     median, band = fc.median(), fc.bands(bands)
     levels = model.series_.levels[-history:]

@@ -8,7 +8,15 @@ from typing import Annotated, Literal
 
 from pydantic import BaseModel, ConfigDict, Field, model_validator
 
-from .schemas import Flag, Input, LeadTimeTotal, Number, OutputSettings, SeriesForecast
+from .schemas import (
+    Flag,
+    Input,
+    LeadTimeTotal,
+    Number,
+    OutputSettings,
+    QuantileLevels,
+    SeriesForecast,
+)
 
 __all__ = [
     "AlertIn",
@@ -194,7 +202,7 @@ class ReplenishmentCreate(Input):
                        "periods")
     items: list[ReplenishmentItem] = Field(default_factory=list, max_length=200)
     alerts: list[AlertIn] = Field(default_factory=list, max_length=200)
-    quantiles: list[Probability] = Field([0.05, 0.5, 0.95], min_length=1, max_length=25)
+    quantiles: QuantileLevels = [0.05, 0.5, 0.95]
     draws: int = Field(4000, ge=100, le=10_000, description="simulated paths")
     seed: int | None = Field(None, ge=0, lt=2**63, description="default: a fresh seed")
 

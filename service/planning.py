@@ -15,7 +15,7 @@ from typing import Any
 import numpy as np
 
 from priors import FanfoldVAR, Forecast
-from priors.errors import SpecificationError
+from priors.errors import DateRangeError, SpecificationError
 from priors.inventory import (
     exceedance_probabilities,
     replenishment_advice,
@@ -26,7 +26,6 @@ from priors.propagation import ShockResponses, VarianceShares
 from .config import Settings
 from .engine import check_output_limits, lead_time_totals
 from .plan_schemas import ReplenishmentCreate, ScenarioCreate
-from .schemas import OutputSettings
 from .serialization import _nums, forecast_to_dict, quantile_key
 
 __all__ = [
@@ -44,7 +43,8 @@ def _seed(seed: int | None) -> int:
 def scenario_answer(model: FanfoldVAR, spec: ScenarioCreate, limits: Settings) -> dict[str, Any]:
     """Conditional forecast, baseline and condition report (:class:`ScenarioPublic`)."""
     steps = spec.horizon + (0 if model.ragged_ is None else model.ragged_.values.shape[0])
-    check_output_limits(spec.model_copy(update={"horizon": steps}), model.design_.n, limits)
+    check_output_limits(horizon=steps, draws=spec.draws, quantiles=len(spec.quantiles),
+                        n=model.design_.n, limits=limits)
     conds = [
         model.condition(c.series, c.step if c.step is not None else c.date.isoformat(),
                         value=c.value, lower=c.lower, upper=c.upper, horizon=spec.horizon)
@@ -86,7 +86,7 @@ def _pointwise(median: np.ndarray, bands: dict[float, np.ndarray], r: int, j: in
 
 
 def _check_draws(draws: int, horizon: int, n: int, limits: Settings) -> None:
-    check_output_limits(OutputSettings(horizon=min(horizon, 104) or 1, draws=draws), n, limits)
+    check_output_limits(horizon=horizon, draws=draws, n=n, limits=limits)
     if draws * (horizon + 1) * n * n > limits.max_path_values:
         raise SpecificationError(
             f"draws x steps x series^2 = {draws * (horizon + 1) * n * n} is over this "
@@ -148,8 +148,11 @@ def replenishment_answer(model: FanfoldVAR, spec: ReplenishmentCreate, limits: S
     """Reorder advice per item and alert probabilities (:class:`ReplenishmentPublic`)."""
     window = spec.lead_time + spec.review_period
     known = 0 if model.ragged_ is None else model.ragged_.values.shape[0]
-    check_output_limits(OutputSettings(horizon=spec.start - 1 + window + known, draws=spec.draws,
-                                       quantiles=spec.quantiles), model.design_.n, limits)
+    check_output_limits(horizon=spec.start - 1 + window + known, draws=spec.draws,
+                        quantiles=len(spec.quantiles), n=model.design_.n, limits=limits,
+                        horizon_field="lead_time",
+                        horizon_what="start - 1 + lead_time + review_period"
+                                     + (" + periods already known" if known else ""))
     items = []
     for item in spec.items:
         names = [item.series] if isinstance(item.series, str) else list(item.series)
@@ -161,8 +164,12 @@ def replenishment_answer(model: FanfoldVAR, spec: ReplenishmentCreate, limits: S
     for alert in spec.alerts:
         _series_index(model, alert.series)
     seed = _seed(spec.seed)
-    fc = model.forecast(spec.start - 1 + window, rng=np.random.default_rng(seed),
-                        draws=spec.draws)
+    try:
+        fc = model.forecast(spec.start - 1 + window, rng=np.random.default_rng(seed),
+                            draws=spec.draws)
+    except DateRangeError as exc:  # the window is what runs past the supported dates
+        raise DateRangeError(str(exc).replace("shorten the horizon", "shorten the window"),
+                             "lead_time") from exc
     start = known + spec.start
     end = start + window - 1
     out_items = []

@@ -11,7 +11,15 @@ import datetime as dt
 import typing
 from typing import Annotated, Literal
 
-from pydantic import BaseModel, ConfigDict, Field, ValidationInfo, field_validator, model_validator
+from pydantic import (
+    AfterValidator,
+    BaseModel,
+    ConfigDict,
+    Field,
+    ValidationInfo,
+    field_validator,
+    model_validator,
+)
 
 from priors.transforms import TRANSFORMS
 
@@ -29,8 +37,10 @@ __all__ = [
     "ModelsPublic",
     "ObservationsCreate",
     "OutputSettings",
+    "QuantileLevels",
     "SeriesData",
     "SeriesForecast",
+    "quantile_key",
 ]
 
 Number = Annotated[float, Field(allow_inf_nan=False)]
@@ -51,6 +61,33 @@ _DEMO = {
                     1916, 1819, 2042, 1920, 1969, 1965, 2153, 2471, 2369, 2171, 2051, 1993],
 }
 
+
+def quantile_key(level: float) -> str:
+    """Name of a quantile level in JSON: ``format(level, "g")`` (6 significant digits),
+    e.g. "0.05"."""
+    return format(float(level), "g")
+
+
+def _distinct_levels(levels: list[float]) -> list[float]:
+    """Quantile levels increasing, with no repeats, and distinct in their JSON names
+    (0.1 and 0.10000004 would both be "0.1")."""
+    if any(b <= a for a, b in zip(levels, levels[1:], strict=False)):
+        raise ValueError("quantile levels must be increasing with no repeats")
+    keys = [quantile_key(q) for q in levels]
+    for (a, ka), (b, kb) in zip(zip(levels, keys, strict=True),
+                                zip(levels[1:], keys[1:], strict=True), strict=False):
+        if ka == kb:
+            raise ValueError(f"quantile levels {a!r} and {b!r} are both named {ka!r} at 6 "
+                             "significant digits; give levels that differ within them")
+    return levels
+
+
+#: quantile levels of a request: each in (0, 1), increasing, distinct in their names
+QuantileLevels = Annotated[
+    list[Annotated[float, Field(gt=0, lt=1)]],
+    Field(min_length=1, max_length=25),
+    AfterValidator(_distinct_levels),
+]
 
 Seed = Annotated[int | None, Field(ge=0, lt=2**63)]
 _SEED_HELP = "default: a fresh seed"
@@ -204,8 +241,7 @@ class OutputSettings(Input):
     model_config = ConfigDict(extra="forbid")
 
     horizon: int = Field(12, ge=1, le=104, description="periods ahead")
-    quantiles: list[Annotated[float, Field(gt=0, lt=1)]] = Field(
-        [0.05, 0.5, 0.95], min_length=1, max_length=25)
+    quantiles: QuantileLevels = [0.05, 0.5, 0.95]
     draws: int = Field(2000, ge=1, le=10_000, description="simulated paths")
     seed: Seed = Field(None, description=_SEED_HELP)
     cumulative: Flag = Field(False, description="running totals over steps 1..horizon")
@@ -213,13 +249,6 @@ class OutputSettings(Input):
     lead_time: int | None = Field(
         None, ge=1, le=104, description="also report each series' total over the first "
         "lead_time periods (lead-time demand), path by path")
-
-    @field_validator("quantiles")
-    @classmethod
-    def _quantiles(cls, v: list[float]) -> list[float]:
-        if any(b <= a for a, b in zip(v, v[1:], strict=False)):
-            raise ValueError("quantile levels must be increasing with no repeats")
-        return v
 
 
 class ForecastSettings(ModelSettings, OutputSettings):

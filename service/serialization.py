@@ -15,13 +15,13 @@ import dataclasses
 import hashlib
 import io
 import math
-import warnings
 import zlib
 from collections.abc import Sequence
 from typing import Any
 
 import numpy as np
 import pandas as pd
+from pandas.tseries.api import guess_datetime_format
 
 from priors import (
     DataError,
@@ -33,6 +33,8 @@ from priors import (
 )
 from priors.forecast import check_quantiles, draw_quantiles
 from priors.gibbs import GibbsDraws, GibbsSettings
+
+from .schemas import quantile_key
 
 __all__ = [
     "CorruptBlobError",
@@ -76,6 +78,16 @@ def frame_from_csv(text: str) -> pd.DataFrame:
     return series
 
 
+def _date_format(column: pd.Series) -> str:
+    """The format of the first date, as pandas would guess it when parsing the column
+    (every date then must follow it), or "mixed" (each date parsed on its own) when it
+    cannot tell. Guessing here, not in ``pd.to_datetime``, avoids its "could not infer
+    format" warning without a process-wide warning filter on a request path."""
+    first = column.iloc[0]
+    found = guess_datetime_format(first) if isinstance(first, str) else None
+    return found or "mixed"
+
+
 def _parse_dates(column: pd.Series, name: str) -> pd.Series:
     if pd.api.types.is_numeric_dtype(column) or pd.api.types.is_bool_dtype(column):
         raise TimeIndexError(f"the first column {name!r} must hold dates but holds numbers "
@@ -85,19 +97,12 @@ def _parse_dates(column: pd.Series, name: str) -> pd.Series:
         raise TimeIndexError(f"the first column {name!r} has no date in data row "
                              f"{missing[0] + 1}")
     try:
-        with warnings.catch_warnings():
-            warnings.simplefilter("ignore", UserWarning)  # "could not infer format"
-            return pd.to_datetime(column)
+        return pd.to_datetime(column, format=_date_format(column))
     except (ValueError, TypeError, OverflowError) as exc:
         reason = (str(exc).splitlines() or [type(exc).__name__])[0]
         reason = reason.split(". You might want to try")[0].rstrip(":. ")
         raise TimeIndexError(f"cannot read the first column {name!r} as dates ({reason}); "
                              f"{_DATE_HINT}") from exc
-
-
-def quantile_key(level: float) -> str:
-    """Name of a quantile level in JSON: ``format(level, "g")``, e.g. "0.05"."""
-    return format(float(level), "g")
 
 
 def _num(value: Any) -> float | None:

@@ -6,9 +6,9 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from priors.calendar import calendar_from_index, plain_calendar, regular_dates
+from priors.calendar import FIRST_DATE, calendar_from_index, plain_calendar, regular_dates
 from priors.data import load_series
-from priors.errors import SpecificationError, TimeIndexError
+from priors.errors import DateRangeError, SpecificationError, TimeIndexError
 from priors.forecast import Forecast
 
 
@@ -193,3 +193,75 @@ def test_future_dates_equal_pandas_date_range(start, unit, freq):
     got = calendar_from_index(index).future(12)
     pd.testing.assert_index_equal(got, ref, exact=True)
     assert got.freq == ref.freq
+
+
+# ---------------------------------------------------------------- supported dates
+
+
+@pytest.mark.parametrize(("start", "periods", "freq"), [
+    ("0001-01-01", 3, "MS"),     # before pandas' nanosecond range
+    ("1500-01-01", 24, "QS"),
+    ("1677-12-01", 3, "MS"),     # one month before the first supported date
+    ("2261-06-01", 12, "MS"),    # runs into 2262
+    ("9995-01-01", 30, "MS"),
+    ("2000-01-01", 30, "1000YS"),  # the last date is in year 31000
+])
+def test_dates_outside_the_supported_calendar_are_refused(start, periods, freq):
+    with pytest.raises(DateRangeError, match="1678-01-01 to 2261-12-31") as info:
+        regular_dates(start, periods, freq)
+    assert info.value.argument == "dates"
+    assert isinstance(info.value, TimeIndexError)  # callers catching the parent still do
+
+
+def test_an_index_outside_the_supported_calendar_is_refused():
+    late = pd.DatetimeIndex(np.array(["9999-10-01", "9999-11-01", "9999-12-01"],
+                                     dtype="datetime64[s]"))
+    with pytest.raises(DateRangeError, match=r"first date is 9999-10-01"):
+        calendar_from_index(late)
+    early = pd.DatetimeIndex(np.array(["1500-01-01", "1500-02-01", "1500-03-01"],
+                                      dtype="datetime64[s]"))
+    with pytest.raises(DateRangeError, match=r"first date is 1500-01-01"):
+        calendar_from_index(early)
+
+
+def test_the_first_and_last_supported_dates_work():
+    assert regular_dates(FIRST_DATE, 3, "MS")[0] == FIRST_DATE
+    cal = calendar_from_index(_dates("MS", 12, "2260-12-01"))
+    assert cal.future(1)[0] == pd.Timestamp("2261-12-01")
+
+
+@pytest.mark.parametrize("freq", ["MS", "QS", "W-SUN", "D"])
+def test_a_future_past_the_last_supported_date_names_the_horizon(freq):
+    cal = calendar_from_index(_dates(freq, 12, "2255-01-01" if freq in ("MS", "QS")
+                                     else "2261-06-01"))
+    with pytest.raises(DateRangeError, match="shorten the horizon") as info:
+        cal.future(400)
+    assert info.value.argument == "horizon"
+
+
+# ---------------------------------------------------------------- no shared state
+
+
+def test_frequency_inference_changes_no_pandas_option(monkeypatch):
+    """Calendars are built in several request threads at once: a process-wide pandas
+    option set on one thread was undone by another ('str' object has no attribute
+    'freqstr' under load). Nothing on this path may touch pandas' options."""
+    def refuse(*args, **kwargs):
+        raise AssertionError("pandas options changed on a request path")
+
+    monkeypatch.setattr(pd, "option_context", refuse)
+    monkeypatch.setattr(pd, "set_option", refuse)
+    for freq in ("MS", "QS", "W-SUN", "D", "B", "YS"):
+        assert calendar_from_index(_dates(freq)).freq is not None
+    with pytest.raises(TimeIndexError, match="not evenly spaced"):
+        calendar_from_index(_dates("MS").delete(5))
+
+
+def test_frequency_inference_agrees_across_threads():
+    from concurrent.futures import ThreadPoolExecutor
+
+    indexes = [_dates(f) for f in ("MS", "QS", "W-SUN", "D")] * 50
+    expected = [calendar_from_index(i).freq for i in indexes]
+    with ThreadPoolExecutor(max_workers=8) as pool:
+        found = list(pool.map(lambda i: calendar_from_index(i).freq, indexes))
+    assert found == expected

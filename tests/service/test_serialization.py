@@ -141,6 +141,20 @@ def test_frame_from_csv_reads_demo(demo: pd.DataFrame) -> None:
     np.testing.assert_array_equal(frame.to_numpy(), demo.to_numpy())
 
 
+@pytest.mark.parametrize(("dates", "first"), [
+    (["2016-01-01", "2016-02-01", "2016-03-01"], "2016-01-01"),
+    (["01/31/2016", "02/29/2016", "03/31/2016"], "2016-01-31"),   # month first, as pandas
+    (["Jan 2016", "Feb 2016", "Mar 2016"], "2016-01-01"),          # no single format
+])
+def test_frame_from_csv_reads_dates_in_the_formats_pandas_guesses(dates, first) -> None:
+    """The format is guessed from the first date, as pandas does, but without its "could
+    not infer format" warning (tests/test_shared_state.py: no warning filter here)."""
+    text = "date,tyres\n" + "".join(f"{d},{i}\n" for i, d in enumerate(dates))
+    frame = frame_from_csv(text)
+    assert frame.index[0] == pd.Timestamp(first)
+    assert frame.index[-1] > frame.index[0]
+
+
 def test_frame_from_csv_keeps_duplicate_names() -> None:
     frame = frame_from_csv("date,a,a\n2020-01-01,1,2\n2020-02-01,3,4\n")
     assert list(frame.columns) == ["a", "a"]

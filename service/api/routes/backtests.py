@@ -5,8 +5,11 @@ from __future__ import annotations
 import uuid
 from typing import Any
 
+import pandas as pd
 from fastapi import APIRouter, Request
 from starlette.exceptions import HTTPException
+
+from priors.calendar import calendar_from_index
 
 from ...engine import check_backtest_limits, frame_from_spec
 from ...errors import PROBLEM_JSON
@@ -32,6 +35,8 @@ def create_backtest(body: BacktestCreate, request: Request, session: SessionDep,
                     settings: SettingsDep, tenant: TenantDep) -> JSONResponse:
     frame = frame_from_spec(body)
     check_backtest_limits(body, frame.shape[1], frame.shape[0], settings)
+    if isinstance(frame.index, pd.DatetimeIndex):  # the last origin's forecast dates
+        calendar_from_index(frame.index).future(body.horizon)
     if body.draws > settings.max_draws:
         raise HTTPException(422, f"draws: {body.draws} is over this server's limit of "
                                  f"{settings.max_draws}; lower draws")

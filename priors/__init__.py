@@ -6,6 +6,7 @@ environment access. The estimator facade is :class:`FanfoldVAR`.
 
 from ._kernels import warm_up as warm_up_kernels
 from .calendar import Calendar
+from .cancellation import CancelToken, cancel_scope, checkpoint
 from .conjugate import NIWPosterior, flat_posterior, log_marginal_likelihood, posterior
 from .convergence import ConvergenceReport, chain_diagnostics
 from .data import (
@@ -36,6 +37,7 @@ from .errors import (
     SpecificationError,
     TimeIndexError,
     TooFewObservationsError,
+    WorkCancelled,
 )
 from .forecast import Forecast, fan_bands
 from .gibbs import (
@@ -75,6 +77,7 @@ from .tuning import TightnessProfile, TuningResult, tune_hyperparameters
 __all__ = [
     "TRANSFORMS",
     "Calendar",
+    "CancelToken",
     "Condition",
     "ConstantSeriesError",
     "ConvergenceReport",
@@ -113,8 +116,11 @@ __all__ = [
     "TimeIndexError",
     "TooFewObservationsError",
     "TuningResult",
+    "WorkCancelled",
     "build_design",
+    "cancel_scope",
     "chain_diagnostics",
+    "checkpoint",
     "companion_spectral_radius",
     "conditional_paths",
     "cumulative",

@@ -46,6 +46,7 @@ import numpy as np
 import pandas as pd
 
 from ._types import FloatArray
+from .cancellation import checkpoint
 from .conjugate import posterior
 from .data import Deterministics, SeriesData, _as_frame, _numeric, build_design, load_series
 from .errors import (
@@ -245,6 +246,7 @@ class _Scorer:
               hyper: MinnesotaHyper, tune: tuple[str, ...],
               prior_mean: FloatArray | None = None) -> tuple[float, MinnesotaHyper]:
         """(log density of the data in user units, tuned hyperparameters)."""
+        checkpoint()  # one candidate fit between checks
         series = self.series(transforms)
         design = build_design(series, lags, self.det(seasonal), start=self.start)
         prior_mean = self.prior_mean(series) if prior_mean is None else prior_mean

@@ -25,6 +25,7 @@ import pandas as pd
 from scipy import stats
 
 from ._types import FloatArray
+from .cancellation import checkpoint
 from .errors import SpecificationError
 from .forecast import check_quantiles
 from .model import FanfoldVAR
@@ -358,6 +359,7 @@ def rolling_origin(
                     progress(done, origins)
     else:
         for i, a in enumerate(args):
+            checkpoint()
             outputs[i] = _one_origin(*a)
             if progress is not None:
                 progress(i + 1, origins)

@@ -16,7 +16,8 @@ The tree::
     │   └── ExogenousError                     exogenous regressors missing or misaligned
     ├── SpecificationError (ValueError)        settings that do not fit together
     ├── NotPositiveDefiniteError (LinAlgError) a matrix that must be SPD is not
-    └── NotFittedError (ValueError, AttributeError)
+    ├── NotFittedError (ValueError, AttributeError)
+    └── WorkCancelled                          stopped at a checkpoint (priors.cancellation)
 
     ConvergenceWarning (UserWarning)           an optimiser stopped at a bound or failed
     ShortHistoryWarning (UserWarning)          few rows for the coefficients of the lags
@@ -47,6 +48,7 @@ __all__ = [
     "SpecificationError",
     "TimeIndexError",
     "TooFewObservationsError",
+    "WorkCancelled",
 ]
 
 
@@ -118,6 +120,12 @@ class NotPositiveDefiniteError(PriorsError, np.linalg.LinAlgError):
 
 class NotFittedError(PriorsError, ValueError, AttributeError):
     """A method that needs a fitted model was called before ``fit``."""
+
+
+class WorkCancelled(PriorsError):
+    """A computation stopped at a checkpoint because its caller gave up on it (request
+    timeout, time limit, cancellation); see :mod:`priors.cancellation`. Not an input
+    error: nothing about the data or settings is wrong."""
 
 
 class ConvergenceWarning(UserWarning):

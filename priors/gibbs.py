@@ -39,6 +39,7 @@ from typing import NamedTuple
 import numpy as np
 
 from ._types import FloatArray
+from .cancellation import checkpoint
 from .data import Design
 from .errors import NotPositiveDefiniteError, SpecificationError
 from .hyper_mh import HyperSampler
@@ -353,6 +354,7 @@ def _run_group(rngs: list[np.random.Generator], pre: Precomputed, B0: FloatArray
                                                    dtype=np.float32)
     every = max(1, settings.sweeps // 100)
     for s in range(settings.sweeps):
+        checkpoint()
         state = sweep(rngs, state, pre)
         kept = s - settings.burn
         if kept >= 0 and (kept + 1) % settings.thin == 0:
@@ -386,6 +388,7 @@ def _run_group_hyper(rngs: list[np.random.Generator], pre: Precomputed, B0: Floa
     keep_h = np.empty((C, settings.keep, 2), dtype=np.float32)
     every = max(1, settings.sweeps // 100)
     for s in range(settings.sweeps):
+        checkpoint()
         states = [sweep([rngs[c]], states[c], pres[c]) for c in range(C)]
         B = np.concatenate([st.B for st in states])
         lam, theta, accepted = hyper.step_all(rngs, B, lam, theta)

@@ -19,6 +19,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from ._types import FloatArray
+from .cancellation import checkpoint
 from .errors import NotPositiveDefiniteError, SpecificationError
 from .transforms import check_transforms
 
@@ -79,6 +80,7 @@ def _ma(B: FloatArray, n_det: int, lags: int, horizon: int) -> FloatArray:
     Phi = np.zeros((S, horizon + 1, n, n))
     Phi[:, 0] = np.eye(n)
     for i in range(1, horizon + 1):
+        checkpoint()
         for j in range(1, min(i, lags) + 1):
             Phi[:, i] += Phi[:, i - j] @ A[:, j - 1]
     return Phi

@@ -31,6 +31,7 @@ from scipy.linalg import solve_triangular
 
 from ._kernels import bartlett_roots, gram_shock_step
 from ._types import FloatArray
+from .cancellation import checkpoint
 from .conjugate import NIWPosterior
 from .errors import SpecificationError
 from .sampling import Draws, bartlett_factors, check_size, draw_sigma_roots
@@ -168,6 +169,7 @@ def _simulate_projected(
     W_all = buf[per_block : per_block + nblocks * block * h * n].reshape(nblocks, h, n, block)
     rng.standard_normal(out=W_all)
     for b, lo in enumerate(range(0, nblocks * block, block)):
+        checkpoint()
         M = bartlett_roots(L_S, diag[lo : lo + block], below[lo : lo + block])  # (n, n, s)
         for step in range(h):
             lags = min(step, p)
@@ -209,6 +211,7 @@ def _simulate_explicit(
     buf = np.empty((size, h + p, n))  # position h - 1 - step holds step's value
     buf[:, h:] = history[::-1]
     for step in range(h):
+        checkpoint()
         x = buf[:, h - step : h - step + p].reshape(size, p * n)  # lag 1 first
         u = np.einsum("snk,sk->sn", W_lags_t, x) + shocks[step]
         buf[:, h - 1 - step] = det_mean[step] + x @ B_lags + np.einsum("sij,sj->si", M, u)
@@ -245,6 +248,7 @@ def recursion_with_shocks(
     buf[:, h:] = history[::-1]
     B_lags_t = np.ascontiguousarray(B[:, m:].transpose(0, 2, 1))  # (S, n, np)
     for step in range(h):
+        checkpoint()
         x = buf[:, h - step : h - step + p].reshape(size, p * n)
         buf[:, h - 1 - step] = base[:, step] + np.einsum("snk,sk->sn", B_lags_t, x)
     return np.ascontiguousarray(buf[:, h - 1 :: -1]) if h else buf[:, :0]

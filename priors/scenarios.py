@@ -39,6 +39,7 @@ import pandas as pd
 from scipy import special
 
 from ._types import FloatArray
+from .cancellation import checkpoint
 from .errors import SpecificationError
 from .forecast import Forecast
 from .irf import ma_coefficients
@@ -265,6 +266,7 @@ def _gibbs_box(rng: np.random.Generator, mean: FloatArray, cov: FloatArray,
     w = start.copy()
     q = mean.shape[1]
     for _ in range(sweeps):
+        checkpoint()
         for i in range(q):
             col = L[:, :, i]  # (S, q): w moves along this column when v_i moves
             rest = w - col * v[:, i : i + 1]

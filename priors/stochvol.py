@@ -32,6 +32,7 @@ from scipy import special
 from scipy.linalg import cho_solve_banded, cholesky_banded, solve_banded
 
 from ._types import FloatArray
+from .cancellation import checkpoint
 from .conjugate import posterior
 from .data import Design
 from .sampling import sample_posterior
@@ -175,6 +176,7 @@ def run_sv_chains(
     for c, rng in enumerate(rngs):
         h, phi, sig2 = np.zeros(T), sv_prior.phi_mean, sv_prior.scale / (sv_prior.shape - 1)
         for s in range(sweeps):
+            checkpoint()
             w = np.exp(-0.5 * h)[:, None]
             reweighted = Design(design.Y * w, design.X * w, design.lags, design.n_det,
                                 design.labels, design.names)

@@ -19,9 +19,10 @@ from .api.routes import backtests, forecasts, health, jobs, models, planning
 from .auth import authenticate
 from .config import Settings, get_settings
 from .db import make_engine, make_session_factory
-from .engine import SWEEP_COST, limit_blas_threads
+from .engine import limit_blas_threads
 from .errors import register_error_handlers
 from .jobs import JobRunner
+from .limits import SWEEP_COST
 from .logs import configure_logging
 from .metrics import Metrics, MetricsMiddleware
 from .middleware import BodyLimitMiddleware, RequestIdMiddleware

@@ -36,13 +36,16 @@ class Settings(BaseSettings):
     max_coefficients: int = Field(5_000, ge=1)  # n * (n * p + m) per model
     max_path_values: int = Field(50_000_000, ge=1)  # draws * horizon * series
     # prior "independent" (Gibbs): work chains * (burn + keep * thin) * (series * k**2 +
-    # engine.SWEEP_COST), k coefficients per equation (measured on one core: 3e8 in about
+    # limits.SWEEP_COST), k coefficients per equation (measured on one core: 3e8 in about
     # 1 s at n = 7, 8e9 in about 8 s at n = 20), and the values kept, chains * keep *
     # (k * series + series**2) (4 bytes each, stored with the model)
     max_gibbs_work: float = Field(2e10, gt=0)
     max_stored_draws: int = Field(30_000_000, ge=1)
     request_timeout_s: float = Field(60.0, gt=0)
-    # one-shot conjugate forecasts whose engine.inline_cost is at most this run on the
+    # estimated seconds (service.limits) x cost_scale: above 1 on a slower machine than
+    # the reference one (tests/benchmarks/run_cost_benchmark.py tells the ratio)
+    cost_scale: float = Field(1.0, gt=0)
+    # one-shot conjugate forecasts whose limits.inline_cost is at most this run on the
     # event loop instead of the thread pool: no thread hop (about 0.5 ms on these
     # machines) for the small, frequent requests; they take a few ms (about 5 ms at
     # 1e6), too little for the request timeout to matter. 0 = always the thread pool.
@@ -63,6 +66,9 @@ class Settings(BaseSettings):
     # per tenant and process; 0 = no limit (OWASP API4)
     rate_limit_per_minute: float = Field(600.0, ge=0)
     rate_limit_burst: int = Field(60, ge=1)
+    # a request takes one more token per this many seconds of estimated work (at most the
+    # burst), so that expensive requests cost more; 0 = one token per request
+    rate_limit_token_s: float = Field(0.25, ge=0)
     max_running_jobs_per_tenant: int = Field(4, ge=1)
     docs_enabled: bool = True
     cors_origins: list[str] = []

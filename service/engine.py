@@ -1,4 +1,6 @@
-"""The bridge from request specs to :mod:`priors`: data frames, limits, forecasts.
+"""The bridge from request specs to :mod:`priors`: data frames, fits, forecasts.
+
+Limits and cost estimates are in :mod:`service.limits`.
 
 Pure functions of (spec, settings); the routes call them in a worker thread.
 """
@@ -23,27 +25,31 @@ from priors import (
 )
 from priors.calendar import calendar_from_index, regular_dates
 from priors.inventory import window_totals
-from priors.model import default_max_lags
 
 from .config import Settings
 from .errors import LimitExceeded
-from .schemas import BacktestCreate, ForecastSettings, ModelSettings, OutputSettings, SeriesData
+from .limits import (
+    Admission,
+    Shape,
+    admit_forecast,
+    check_model_limits,
+    check_output_limits,
+    fit_seconds,
+    forecast_seconds,
+    gibbs_work,
+    lags_and_terms,
+)
+from .schemas import ForecastSettings, ModelSettings, OutputSettings, SeriesData
 from .serialization import forecast_to_dict, quantile_key
 
 __all__ = [
-    "SWEEP_COST",
     "Fitted",
     "append_observations",
     "blas_threads",
-    "check_backtest_limits",
-    "check_model_limits",
-    "check_output_limits",
     "fan_chart",
     "fit_model",
     "forecast_answer",
     "frame_from_spec",
-    "gibbs_work",
-    "inline_cost",
     "lead_time_totals",
     "simulate_forecast",
     "limit_blas_threads",
@@ -98,129 +104,6 @@ def frame_from_spec(spec: SeriesData) -> pd.DataFrame:
     # one float array (null -> NaN), a tenth of the cost of pandas reading the lists
     values = np.array(list(spec.series.values()), dtype=np.float64).reshape(len(lengths), T)
     return pd.DataFrame(values.T, columns=list(spec.series), index=index, copy=False)
-
-
-def _over(field: str, value: int, limit: int, advice: str) -> None:
-    if value > limit:
-        raise LimitExceeded(
-            field, f"{field}: {value} is over this server's limit of {limit}; {advice}"
-        )
-
-
-def _lags_and_terms(spec: ModelSettings) -> tuple[int, int]:
-    """The largest lag order the fit may use and the deterministic terms per equation."""
-    p = spec.lags if isinstance(spec.lags, int) else (spec.max_lags or default_max_lags("monthly"))
-    seasonal = spec.seasonal is True or spec.seasonal == "auto"  # 'auto' may choose them
-    return p, int(spec.constant) + int(spec.trend) + (11 if seasonal else 0)
-
-
-def _fits(spec: ModelSettings, n: int, p: int) -> int:
-    """About how many fits the automatic configuration makes: per structure (seasonal
-    or not, levels or logs) one per lag order, one flip per series, and a joint tuning
-    of the dummy weights worth a few dozen fits (see priors.autoconfig)."""
-    structures = (1 + (spec.seasonal == "auto")) * (1 + (spec.transforms == "auto"))
-    lag_orders = p if spec.lags == "auto" else 1
-    flips = n if spec.transforms == "auto" else 0
-    dummies = 40 if "auto" in (spec.sum_coef, spec.initial) else 0
-    return structures * lag_orders + flips + dummies + 1
-
-
-def inline_cost(spec: ForecastSettings, n: int, T: int) -> float:
-    """Rough flops of a conjugate one-shot forecast, for choosing where it runs: the fits
-    (T k^2 each, :func:`_fits`) plus the simulation (draws x horizon x (k + n) x n).
-    About 1e6 is 5 ms on one core (n=3, p=4, T=120, 1000 draws, 12 steps)."""
-    p, m = _lags_and_terms(spec)
-    k = n * p + m
-    return float(_fits(spec, n, p) * T * k * k + spec.draws * spec.horizon * (k + n) * n)
-
-
-# A chain-sweep's fixed cost in units of n k^2 (one unit took about 1 ns at n = 20,
-# k = 261; a chain-sweep of a one-series model 25-160 us), so that long runs of tiny
-# models count too.
-SWEEP_COST = 50_000
-
-
-def gibbs_work(spec: ModelSettings, n: int) -> tuple[float, str]:
-    """The Gibbs sampler's work, chains x (burn + keep x thin) x (n x k**2 + SWEEP_COST)
-    (k coefficients per equation at the largest lag order), and the setting that drives
-    it most; (0, "") for the exact samplers."""
-    if not spec.uses_gibbs:
-        return 0.0, ""
-    p, m = _lags_and_terms(spec)
-    k = n * p + m
-    field = "burn" if spec.burn > spec.keep * spec.thin else "keep"
-    sweeps = spec.chains * (spec.burn + spec.keep * spec.thin)
-    # stochastic volatility: one QR of the reweighted data per sweep, ~ T (k + n)^2,
-    # counted with T = 20 k (measured 12 ms per sweep at n = 20, k = 261, T = 400)
-    per_sweep = n * k * k if spec.prior == "independent" else 20 * k * (k + n) ** 2
-    return float(sweeps * (per_sweep + SWEEP_COST)), field
-
-
-def check_model_limits(spec: ModelSettings, n: int, T: int, limits: Settings) -> None:
-    """Raise :class:`LimitExceeded` (422) naming the first model limit the data exceed."""
-    p, m = _lags_and_terms(spec)
-    _over("series", n, limits.max_series, "send fewer series")
-    _over("series", T, limits.max_observations, "send fewer observations per series")
-    _over("lags", p, limits.max_lags, "lower lags or max_lags")
-    _over(
-        "lags",
-        n * (n * p + m),
-        limits.max_coefficients,
-        "lower lags or send fewer series (coefficients = series x (series x lags + terms))",
-    )
-    if not spec.uses_gibbs:
-        return
-    work, field = gibbs_work(spec, n)
-    if work > limits.max_gibbs_work:
-        raise LimitExceeded(field, (
-            f"{field}: the Gibbs sampler's work, chains x (burn + keep x thin) x (series x "
-            f"coefficients per equation^2 + {SWEEP_COST}) = {work:.3g}, is over this "
-            f"server's limit of {limits.max_gibbs_work:.3g}; lower keep, thin, burn or "
-            "chains (or lags)"))
-    k = n * p + m
-    stored = spec.chains * spec.keep * (k * n + n * n)
-    if stored > limits.max_stored_draws:
-        raise LimitExceeded("keep", (
-            f"keep: the draws to store, chains x keep x (coefficients + series^2) = "
-            f"{stored} values, are over this server's limit of {limits.max_stored_draws}; "
-            "lower keep or chains (raise thin to keep the chains as long)"))
-
-
-def check_backtest_limits(spec: BacktestCreate, n: int, T: int, limits: Settings) -> None:
-    """The model limits, plus the Gibbs work of every origin's refit together."""
-    check_model_limits(spec, n, T, limits)
-    work, _ = gibbs_work(spec, n)
-    if work * spec.origins > limits.max_gibbs_work:
-        raise LimitExceeded("origins", (
-            f"origins: refitting the Gibbs sampler at {spec.origins} origins is "
-            f"{work * spec.origins:.3g} units of work, over this server's limit of "
-            f"{limits.max_gibbs_work:.3g}; lower origins, keep, burn or chains"))
-
-
-def check_output_limits(*, horizon: int, draws: int, n: int, limits: Settings,
-                        quantiles: int = 0, horizon_field: str = "horizon",
-                        horizon_what: str = "horizon") -> None:
-    """Raise :class:`LimitExceeded` (422) naming the first output limit exceeded.
-
-    ``horizon`` is the number of steps simulated; a route whose steps come from other
-    fields (replenishment: start + lead_time + review_period) names them in
-    ``horizon_field`` and ``horizon_what``.
-    """
-    _over("draws", draws, limits.max_draws, "lower draws")
-    if horizon > limits.max_horizon:
-        raise LimitExceeded(horizon_field, (
-            f"{horizon_field}: {horizon_what} = {horizon} steps ahead is over this server's "
-            f"limit of {limits.max_horizon}; ask for fewer steps"
-            if horizon_what != "horizon" else
-            f"horizon: {horizon} is over this server's limit of {limits.max_horizon}; "
-            "lower horizon"))
-    _over("quantiles", quantiles, limits.max_quantiles, "ask for fewer quantiles")
-    _over(
-        "draws",
-        draws * horizon * n,
-        limits.max_path_values,
-        f"lower draws or {horizon_field} (draws x steps x series)",
-    )
 
 
 def limit_blas_threads(limit: int) -> None:
@@ -348,10 +231,12 @@ def simulate_forecast(model: FanfoldVAR, *, horizon: int, draws: int, seed: int,
     return (fc.cumulative() if cumulative else fc), totals
 
 
-def forecast_answer(model: FanfoldVAR, spec: OutputSettings, limits: Settings) -> dict[str, Any]:
+def forecast_answer(model: FanfoldVAR, spec: OutputSettings, limits: Settings, *,
+                    admission: Admission | None = None) -> dict[str, Any]:
     """Forecast from a fitted model; the answer in the layout of :func:`forecast_to_dict`."""
     check_output_limits(horizon=spec.horizon, draws=spec.draws, quantiles=len(spec.quantiles),
                         n=model.design_.n, limits=limits)
+    admit_forecast(admission, model, draws=spec.draws, horizon=spec.horizon)
     seed = secrets.randbits(32) if spec.seed is None else spec.seed
     fc, totals = simulate_forecast(
         model, horizon=spec.horizon, draws=spec.draws, seed=seed,
@@ -378,12 +263,22 @@ def lead_time_totals(fc: Forecast, lead_time: int, quantiles: Sequence[float],
             for j, name in enumerate(fc.names)}
 
 
-def run_forecast(spec: ForecastSettings, frame: pd.DataFrame, limits: Settings) -> dict[str, Any]:
+def run_forecast(spec: ForecastSettings, frame: pd.DataFrame, limits: Settings, *,
+                 admission: Admission | None = None) -> dict[str, Any]:
     """One-shot: check every limit first, then fit and forecast. One seed (given or
     fresh, reported in the answer) drives both the Gibbs chains and the forecast draws."""
-    check_model_limits(spec, frame.shape[1], frame.shape[0], limits)
+    T, n = frame.shape
+    check_model_limits(spec, n, T, limits)
     check_output_limits(horizon=spec.horizon, draws=spec.draws, quantiles=len(spec.quantiles),
-                        n=frame.shape[1], limits=limits)
+                        n=n, limits=limits)
+    if admission is not None:
+        p, m = lags_and_terms(spec)
+        fit_s = fit_seconds(spec, n, T)
+        sim_s = forecast_seconds(Shape.of(n, p, m), draws=spec.draws, horizon=spec.horizon)
+        field = (gibbs_work(spec, n)[1] or "lags") if fit_s > sim_s else "draws"
+        admission.admit(fit_s + sim_s, field, "lower draws, horizon or lags (or keep and "
+                        "burn); or store the model with POST /v1/models (large fits run "
+                        "as jobs) and forecast it with POST /v1/models/{id}/forecasts")
     work, field = gibbs_work(spec, frame.shape[1])
     if work > limits.sync_max_gibbs_work:
         raise LimitExceeded(field, (
@@ -404,15 +299,18 @@ def fan_chart(
     seed: int,
     history: int,
     limits: Settings,
+    admission: Admission | None = None,
 ) -> dict[str, Any]:
     """Nested central bands, the median and the last ``history`` observations."""
     check_output_limits(horizon=horizon, draws=draws, n=model.design_.n, limits=limits)
+    admit_forecast(admission, model, draws=draws, horizon=horizon)
     fc = model.forecast(horizon, rng=np.random.default_rng(seed), draws=draws)
     median, band = fc.median(), fc.bands(bands)
-    levels = model.series_.levels[-history:]
+    first = max(model.series_.levels.shape[0] - history, 0)  # history=0: none ([-0:] is all)
+    levels = model.series_.levels[first:]
     index = model.series_.calendar.index
     past = (
-        [d.date().isoformat() for d in index[-history:]]
+        [d.date().isoformat() for d in index[first:]]
         if index is not None
         else [str(i) for i in range(-len(levels) + 1, 1)]
     )

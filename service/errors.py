@@ -17,14 +17,24 @@ from fastapi.exceptions import RequestValidationError
 from sqlalchemy.orm.exc import StaleDataError
 from starlette.exceptions import HTTPException as StarletteHTTPException
 
-from priors.errors import DateRangeError, NotFittedError, PriorsError
+from priors.errors import DateRangeError, NotFittedError, PriorsError, WorkCancelled
 
 from .context import request_id
 from .responses import JSONResponse
 
-__all__ = ["PROBLEM_JSON", "LimitExceeded", "problem", "register_error_handlers"]
+__all__ = ["PROBLEM_JSON", "LimitExceeded", "RequestTimedOut", "problem",
+           "register_error_handlers"]
 
 PROBLEM_JSON = "application/problem+json"
+
+
+class RequestTimedOut(Exception):
+    """The work of a request ran past the request timeout and was stopped (503)."""
+
+    def __init__(self, limit_s: float) -> None:
+        super().__init__(f"the request took longer than this server's limit of "
+                         f"{limit_s:g} s and was stopped")
+        self.limit_s = limit_s
 
 
 class LimitExceeded(Exception):
@@ -120,6 +130,14 @@ async def _engine(request: Request, exc: PriorsError) -> JSONResponse:
                    errors=None if field is None else [{"field": field, "message": str(exc)}])
 
 
+async def _timed_out(request: Request, exc: Exception) -> JSONResponse:
+    detail = (str(exc) if isinstance(exc, RequestTimedOut) else
+              "the work was stopped before it finished")
+    return problem(503, f"{detail}; ask for less (draws, horizon, sweeps, lags) or store "
+                        "the model and use a job", request=request,
+                   headers={"Retry-After": "5"})
+
+
 async def _stale(request: Request, exc: StaleDataError) -> JSONResponse:
     return problem(409, "the model changed while this request was updating it; fetch it "
                         "again and retry", request=request)
@@ -135,3 +153,7 @@ def register_error_handlers(app: FastAPI) -> None:
     app.add_exception_handler(LimitExceeded, _limit)  # type: ignore[arg-type]
     app.add_exception_handler(PriorsError, _engine)  # type: ignore[arg-type]
     app.add_exception_handler(StaleDataError, _stale)  # type: ignore[arg-type]
+    # Starlette looks a handler up along the exception's MRO: WorkCancelled gets this
+    # one, not PriorsError's 422
+    app.add_exception_handler(RequestTimedOut, _timed_out)
+    app.add_exception_handler(WorkCancelled, _timed_out)

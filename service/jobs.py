@@ -32,19 +32,20 @@ from sqlalchemy import func, select, update
 from sqlalchemy.orm import Session, sessionmaker
 from sqlalchemy.orm.exc import StaleDataError
 
-from priors.errors import PriorsError
+from priors import CancelToken, cancel_scope
+from priors.errors import PriorsError, WorkCancelled
 
 from .config import Settings
 from .engine import (
     Progress,
     append_observations,
-    check_backtest_limits,
     fit_model,
     frame_from_spec,
     model_params,
     stored_settings,
 )
 from .errors import LimitExceeded
+from .limits import check_backtest_limits
 from .metrics import Metrics
 from .orm import Job
 from .schemas import BacktestCreate, ModelCreate, ObservationsCreate
@@ -268,13 +269,21 @@ class JobRunner:
                                                           error=error))
                 s.commit()
 
+            # the engine stops at its next checkpoint once the time limit has passed
+            limit = CancelToken(deadline_s=self.settings.fit_timeout_s)
             try:
-                if job.kind == "backtest":
-                    self._backtest(s, job, mine)
-                elif job.kind == "update_model":
-                    self._update_model(s, job, mine)
-                else:
-                    self._fit_model(s, job, mine)
+                with cancel_scope(limit):
+                    if job.kind == "backtest":
+                        self._backtest(s, job, mine)
+                    elif job.kind == "update_model":
+                        self._update_model(s, job, mine)
+                    else:
+                        self._fit_model(s, job, mine)
+            except WorkCancelled:
+                fail({"title": "Time limit exceeded", "status": 503,
+                      "detail": f"the job ran past this server's limit of "
+                                f"{self.settings.fit_timeout_s:g} s and was stopped; ask "
+                                "for less work (keep, burn, chains, origins, lags)"})
             except _Cancelled:
                 s.rollback()
                 s.execute(update(Job).where(*mine).values(status="cancelled",

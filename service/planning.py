@@ -24,7 +24,15 @@ from priors.inventory import (
 from priors.propagation import ShockResponses, VarianceShares
 
 from .config import Settings
-from .engine import check_output_limits, lead_time_totals
+from .engine import lead_time_totals
+from .limits import (
+    Admission,
+    Shape,
+    admit_forecast,
+    check_output_limits,
+    scenario_seconds,
+    shocks_seconds,
+)
 from .plan_schemas import ReplenishmentCreate, ScenarioCreate
 from .serialization import _nums, forecast_to_dict, quantile_key
 
@@ -40,11 +48,19 @@ def _seed(seed: int | None) -> int:
     return secrets.randbits(32) if seed is None else int(seed)
 
 
-def scenario_answer(model: FanfoldVAR, spec: ScenarioCreate, limits: Settings) -> dict[str, Any]:
+def scenario_answer(model: FanfoldVAR, spec: ScenarioCreate, limits: Settings, *,
+                    admission: Admission | None = None) -> dict[str, Any]:
     """Conditional forecast, baseline and condition report (:class:`ScenarioPublic`)."""
     steps = spec.horizon + (0 if model.ragged_ is None else model.ragged_.values.shape[0])
     check_output_limits(horizon=steps, draws=spec.draws, quantiles=len(spec.quantiles),
                         n=model.design_.n, limits=limits)
+    if admission is not None:
+        ranges = sum(1 for c in spec.conditions if c.value is None)
+        seconds = scenario_seconds(Shape.of_model(model), draws=spec.draws, horizon=steps,
+                                   conditions=len(spec.conditions), ranges=ranges,
+                                   sweeps=spec.sweeps)
+        admission.admit(seconds, "sweeps" if ranges else "draws",
+                        "lower draws or sweeps, or give fewer ranges")
     conds = [
         model.condition(c.series, c.step if c.step is not None else c.date.isoformat(),
                         value=c.value, lower=c.lower, upper=c.upper, horizon=spec.horizon)
@@ -85,8 +101,13 @@ def _pointwise(median: np.ndarray, bands: dict[float, np.ndarray], r: int, j: in
                       for c, b in bands.items()}}
 
 
-def _check_draws(draws: int, horizon: int, n: int, limits: Settings) -> None:
+def _check_draws(model: FanfoldVAR, draws: int, horizon: int, limits: Settings,
+                 admission: Admission | None) -> None:
+    n = model.design_.n
     check_output_limits(horizon=horizon, draws=draws, n=n, limits=limits)
+    if admission is not None:
+        admission.admit(shocks_seconds(Shape.of_model(model), draws=draws, horizon=horizon),
+                        "draws", "lower draws or horizon")
     if draws * (horizon + 1) * n * n > limits.max_path_values:
         raise SpecificationError(
             f"draws x steps x series^2 = {draws * (horizon + 1) * n * n} is over this "
@@ -95,10 +116,11 @@ def _check_draws(draws: int, horizon: int, n: int, limits: Settings) -> None:
 
 def shocks_answer(model: FanfoldVAR, *, horizon: int, identification: str, shock_size: str,
                   ordering: Sequence[str] | None, cumulative: bool, draws: int, seed: int,
-                  bands: Sequence[float], limits: Settings) -> dict[str, Any]:
+                  bands: Sequence[float], limits: Settings,
+                  admission: Admission | None = None) -> dict[str, Any]:
     """Impulse responses with pointwise bands (:class:`ShocksPublic` without the model
     id and version)."""
-    _check_draws(draws, horizon, model.design_.n, limits)
+    _check_draws(model, draws, horizon, limits, admission)
     res: ShockResponses = model.impulse_responses(
         horizon, rng=np.random.default_rng(seed), draws=draws, identification=identification,
         shock_size=shock_size, ordering=ordering, cumulative=cumulative)
@@ -117,10 +139,11 @@ def shocks_answer(model: FanfoldVAR, *, horizon: int, identification: str, shock
 
 def shares_answer(model: FanfoldVAR, *, horizon: int, identification: str,
                   ordering: Sequence[str] | None, draws: int, seed: int,
-                  bands: Sequence[float], limits: Settings) -> dict[str, Any]:
+                  bands: Sequence[float], limits: Settings,
+                  admission: Admission | None = None) -> dict[str, Any]:
     """Variance decomposition with pointwise bands (:class:`SharesPublic` without the
     model id and version)."""
-    _check_draws(draws, horizon, model.design_.n, limits)
+    _check_draws(model, draws, horizon, limits, admission)
     res: VarianceShares = model.variance_decomposition(
         horizon, rng=np.random.default_rng(seed), draws=draws, identification=identification,
         ordering=ordering)
@@ -143,8 +166,8 @@ def _series_index(model: FanfoldVAR, name: str) -> int:
     return names.index(name)
 
 
-def replenishment_answer(model: FanfoldVAR, spec: ReplenishmentCreate, limits: Settings
-                         ) -> dict[str, Any]:
+def replenishment_answer(model: FanfoldVAR, spec: ReplenishmentCreate, limits: Settings, *,
+                         admission: Admission | None = None) -> dict[str, Any]:
     """Reorder advice per item and alert probabilities (:class:`ReplenishmentPublic`)."""
     window = spec.lead_time + spec.review_period
     known = 0 if model.ragged_ is None else model.ragged_.values.shape[0]
@@ -153,6 +176,7 @@ def replenishment_answer(model: FanfoldVAR, spec: ReplenishmentCreate, limits: S
                         horizon_field="lead_time",
                         horizon_what="start - 1 + lead_time + review_period"
                                      + (" + periods already known" if known else ""))
+    admit_forecast(admission, model, draws=spec.draws, horizon=spec.start - 1 + window + known)
     items = []
     for item in spec.items:
         names = [item.series] if isinstance(item.series, str) else list(item.series)

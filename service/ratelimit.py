@@ -1,7 +1,8 @@
 """Per-tenant request rate limit (token bucket, per process): 429 with Retry-After.
 
 RFC 6585 section 4. Each tenant may burst up to ``rate_limit_burst`` requests and then
-``rate_limit_per_minute`` on average. With several server processes the limit applies
+``rate_limit_per_minute`` on average. A request whose estimated work is long takes more
+tokens (:class:`service.limits.Admission`). With several server processes the limit applies
 per process (a shared store comes with the scale-out work).
 """
 
@@ -14,7 +15,7 @@ import time
 from fastapi import Request
 from starlette.exceptions import HTTPException
 
-__all__ = ["RateLimiter", "enforce_rate_limit"]
+__all__ = ["RateLimiter", "charge", "enforce_rate_limit"]
 
 
 class RateLimiter:
@@ -26,17 +27,33 @@ class RateLimiter:
         self._buckets: dict[str, tuple[float, float]] = {}
         self._lock = threading.Lock()
 
-    def acquire(self, key: str, now: float | None = None) -> float:
-        """Take one token; 0 if allowed, else the seconds until one is available."""
+    def acquire(self, key: str, now: float | None = None, tokens: float = 1.0) -> float:
+        """Take ``tokens`` (at most the burst); 0 if allowed, else the seconds until they
+        are available (nothing is taken then)."""
         now = time.monotonic() if now is None else now
+        want = min(float(tokens), self.burst)
         with self._lock:
-            tokens, last = self._buckets.get(key, (self.burst, now))
-            tokens = min(self.burst, tokens + (now - last) * self.rate)
-            if tokens >= 1.0:
-                self._buckets[key] = (tokens - 1.0, now)
+            have, last = self._buckets.get(key, (self.burst, now))
+            have = min(self.burst, have + (now - last) * self.rate)
+            if have >= want:
+                self._buckets[key] = (have - want, now)
                 return 0.0
-            self._buckets[key] = (tokens, now)
-            return (1.0 - tokens) / self.rate
+            self._buckets[key] = (have, now)
+            return (want - have) / self.rate if self.rate > 0 else math.inf
+
+
+def _too_many(wait: float, what: str) -> HTTPException:
+    retry = max(1, math.ceil(wait)) if math.isfinite(wait) else 3600
+    return HTTPException(429, f"too many {what} for this API key; retry after the "
+                              "Retry-After seconds", headers={"Retry-After": str(retry)})
+
+
+def charge(limiter: RateLimiter, tenant: str, tokens: float) -> None:
+    """Take ``tokens`` more for an expensive request (see :mod:`service.limits`); 429 when
+    the tenant has not got them."""
+    wait = limiter.acquire(tenant, tokens=tokens)
+    if wait > 0:
+        raise _too_many(wait, "requests (or too much estimated work)")
 
 
 async def enforce_rate_limit(request: Request) -> None:
@@ -46,6 +63,4 @@ async def enforce_rate_limit(request: Request) -> None:
         return
     wait = limiter.acquire(request.state.tenant)
     if wait > 0:
-        raise HTTPException(429, "too many requests for this API key; retry after the "
-                                 "Retry-After seconds", headers={
-                                     "Retry-After": str(max(1, math.ceil(wait)))})
+        raise _too_many(wait, "requests")

@@ -15,6 +15,7 @@ from fastapi import Depends, Request
 from sqlalchemy.orm import Session
 
 from ..config import Settings
+from ..limits import Admission
 from ..metrics import Metrics
 
 
@@ -40,5 +41,13 @@ async def get_tenant(request: Request) -> str:
     return request.state.tenant
 
 
+async def get_admission(request: Request) -> Admission:
+    """Admission of this request's work: time estimate against the timeout, rate-limit
+    tokens by estimated seconds (:mod:`service.limits`)."""
+    state = request.app.state
+    return Admission(state.settings, state.rate_limiter, request.state.tenant)
+
+
 SessionDep = Annotated[Session, Depends(get_session)]
 TenantDep = Annotated[str, Depends(get_tenant)]
+AdmissionDep = Annotated[Admission, Depends(get_admission)]

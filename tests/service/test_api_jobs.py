@@ -144,6 +144,24 @@ def test_fit_past_its_time_limit_loses_the_lease(tmp_path, model_body, monkeypat
     assert job["status"] == "failed" and "stopped 1 time(s)" in job["problem"]["detail"]
 
 
+def test_a_fit_past_its_time_limit_stops_itself(tmp_path, model_body):
+    """The engine checks the job's time limit between Gibbs sweeps (priors.cancellation):
+    the job fails with a clear problem soon after the limit instead of running on."""
+    settings = Settings(database_url=f"sqlite:///{tmp_path / 'j.db'}", job_workers=1,
+                        fit_timeout_s=0.5, job_max_attempts=1)
+    long_fit = {**model_body, "prior": "independent", "chains": 1, "burn": 20_000,
+                "keep": 10, "seed": 3}  # about 15 s if it ran to the end
+    with TestClient(create_app(settings)) as c:
+        start = time.monotonic()
+        location = c.post("/v1/models", json=long_fit, headers=ASYNC).headers["location"]
+        job = wait_for_job(c, location, timeout=10.0)
+        assert time.monotonic() - start < 5.0
+        assert c.get("/v1/models").json()["data"] == []
+    assert job["status"] == "failed"
+    assert job["problem"]["title"] == "Time limit exceeded"
+    assert "0.5 s" in job["problem"]["detail"]
+
+
 def test_running_jobs_are_capped_per_tenant(tmp_path, model_body):
     settings = Settings(database_url=f"sqlite:///{tmp_path / 'j.db'}", job_workers=0,
                         max_running_jobs_per_tenant=2)

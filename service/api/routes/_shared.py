@@ -11,7 +11,9 @@ from fastapi import Request, Response
 from fastapi.concurrency import run_in_threadpool
 from starlette.exceptions import HTTPException
 
-from ...errors import PROBLEM_JSON
+from priors import CancelToken, WorkCancelled, cancel_scope
+
+from ...errors import PROBLEM_JSON, RequestTimedOut
 from ...orm import StoredModel
 from ...responses import JSONResponse
 from ...store import get_model
@@ -19,6 +21,9 @@ from ...store import get_model
 NOT_FOUND = {404: {"description": "no such model for this caller",
                    "content": {PROBLEM_JSON: {}}}}
 INVALID = {422: {"description": "invalid input or a limit exceeded",
+                 "content": {PROBLEM_JSON: {}}},
+           503: {"description": "the work took longer than the request timeout; it was "
+                                "stopped (Retry-After)",
                  "content": {PROBLEM_JSON: {}}}}
 NOT_MODIFIED = {304: {"description": "unchanged since the ETag given"}}
 
@@ -30,10 +35,28 @@ def row_or_404(session: Any, tenant: str, model_id: uuid.UUID) -> StoredModel:
     return row
 
 
+def _scoped(token: CancelToken, fn: Any, *args: Any) -> Any:
+    with cancel_scope(token):  # in the worker thread: the engine's checkpoints see it
+        return fn(*args)
+
+
 async def timed(settings: Any, fn: Any, *args: Any) -> Any:
-    """Run blocking work in the thread pool under the request timeout."""
-    return await asyncio.wait_for(run_in_threadpool(fn, *args),
-                                  timeout=settings.request_timeout_s)
+    """Run blocking work in the thread pool under the request timeout.
+
+    Past ``settings.request_timeout_s`` the answer is a 503 problem
+    (:class:`service.errors.RequestTimedOut`) and the work is told to stop: it runs under
+    a :class:`priors.CancelToken` with the same deadline, which the engine checks between
+    sweeps and steps (:mod:`priors.cancellation`), so no core stays busy for a request
+    nobody waits for.
+    """
+    limit = settings.request_timeout_s
+    token = CancelToken(deadline_s=limit)
+    try:
+        return await asyncio.wait_for(run_in_threadpool(_scoped, token, fn, *args),
+                                      timeout=limit)
+    except (TimeoutError, WorkCancelled):
+        token.cancel("the request timed out")
+        raise RequestTimedOut(limit) from None
 
 
 def parse_bands(text: str) -> list[float]:

@@ -11,9 +11,10 @@ from starlette.exceptions import HTTPException
 
 from priors.calendar import calendar_from_index
 
-from ...engine import check_backtest_limits, frame_from_spec
+from ...engine import frame_from_spec
 from ...errors import PROBLEM_JSON
 from ...jobs import get_job, submit_job
+from ...limits import check_backtest_limits
 from ...responses import JSONResponse
 from ...schemas import BacktestCreate, JobPublic
 from ..deps import SessionDep, SettingsDep, TenantDep

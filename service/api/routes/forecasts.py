@@ -2,21 +2,21 @@
 
 from __future__ import annotations
 
-import asyncio
 import time
 from typing import Any
 
 from fastapi import APIRouter, Request
-from fastapi.concurrency import run_in_threadpool
 from fastapi.exceptions import RequestValidationError
 from pydantic import ValidationError
 
-from ...engine import frame_from_spec, inline_cost, run_forecast
+from ...engine import frame_from_spec, run_forecast
 from ...errors import PROBLEM_JSON, problem
+from ...limits import Admission, inline_cost
 from ...responses import JSONResponse
 from ...schemas import ForecastCreate, ForecastPublic, ForecastSettings
 from ...serialization import frame_from_csv
-from ..deps import MetricsDep, SettingsDep
+from ..deps import AdmissionDep, MetricsDep, SettingsDep
+from ._shared import timed
 
 router = APIRouter(prefix="/v1", tags=["forecasts"])
 
@@ -93,8 +93,9 @@ def _small(spec: ForecastSettings, settings: Any) -> bool:
     return inline_cost(spec, len(lengths), max(lengths)) <= settings.inline_max_cost
 
 
-def _forecast(spec: ForecastSettings, make_frame: Any, settings: Any) -> dict[str, Any]:
-    return run_forecast(spec, make_frame(), settings)
+def _forecast(spec: ForecastSettings, make_frame: Any, settings: Any,
+              admission: Admission | None = None) -> dict[str, Any]:
+    return run_forecast(spec, make_frame(), settings, admission=admission)
 
 
 class _Unsupported(Exception):
@@ -113,24 +114,17 @@ class _Unsupported(Exception):
     responses=_PROBLEMS,
     openapi_extra=_BODY,
 )
-async def create_forecast(request: Request, settings: SettingsDep,
-                          metrics: MetricsDep) -> JSONResponse:
+async def create_forecast(request: Request, settings: SettingsDep, metrics: MetricsDep,
+                          admission: AdmissionDep) -> JSONResponse:
     try:
         spec, make_frame = await _spec_and_data(request)
     except _Unsupported as exc:
         return problem(415, f"content type {exc.ctype!r} is not supported; send "
                             "application/json or text/csv", request=request)
     start = time.perf_counter()
-    try:
-        if _small(spec, settings):  # a few ms: no hop to the thread pool
-            payload = _forecast(spec, make_frame, settings)
-        else:
-            payload = await asyncio.wait_for(
-                run_in_threadpool(_forecast, spec, make_frame, settings),
-                timeout=settings.request_timeout_s)
-    except TimeoutError:
-        return problem(503, f"the forecast took longer than {settings.request_timeout_s:g} s; "
-                            "lower draws, lags or horizon", request=request,
-                       headers={"Retry-After": "5"})
+    if _small(spec, settings):  # a few ms: no hop to the thread pool
+        payload = _forecast(spec, make_frame, settings)
+    else:
+        payload = await timed(settings, _forecast, spec, make_frame, settings, admission)
     metrics.forecast.observe(time.perf_counter() - start)
     return JSONResponse(payload)

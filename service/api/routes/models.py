@@ -15,16 +15,15 @@ from priors import FanfoldVAR
 
 from ...engine import append_observations as append_to_model
 from ...engine import (
-    check_model_limits,
     fan_chart,
     fit_model,
     forecast_answer,
     frame_from_spec,
-    gibbs_work,
     stored_settings,
 )
 from ...errors import PROBLEM_JSON, problem
 from ...jobs import submit_job
+from ...limits import check_model_limits, fit_seconds, gibbs_work
 from ...orm import StoredModel
 from ...responses import JSONResponse
 from ...schemas import (
@@ -48,7 +47,7 @@ from ...store import (
     replace_fitted,
     save_model,
 )
-from ..deps import SessionDep, SettingsDep, TenantDep
+from ..deps import AdmissionDep, SessionDep, SettingsDep, TenantDep
 from ._shared import (
     INVALID,
     NOT_FOUND,
@@ -97,7 +96,7 @@ def _public(row: StoredModel, model: FanfoldVAR | None = None) -> dict[str, Any]
                          "same key with a different body is a 422.")
 async def create_model(
     body: ModelCreate, request: Request, session: SessionDep, settings: SettingsDep,
-    tenant: TenantDep,
+    tenant: TenantDep, admission: AdmissionDep,
     idempotency_key: Annotated[str | None, Header(max_length=255)] = None,
 ) -> JSONResponse:
     body_sha = hashlib.sha256(await request.body()).hexdigest()
@@ -125,6 +124,9 @@ async def create_model(
                              max_attempts=settings.job_max_attempts, commit=False)
             status, out, location = 202, job_public(job), f"/v1/jobs/{job.id}"
         else:
+            admission.admit(fit_seconds(body, frame.shape[1], frame.shape[0]),
+                            gibbs_work(body, frame.shape[1])[1] or "lags",
+                            "send it with 'Prefer: respond-async' to run it as a job")
             started = time.perf_counter()
             fitted = fit_model(body, frame, settings)
             request.app.state.metrics.fit.observe(time.perf_counter() - started)
@@ -157,12 +159,13 @@ async def create_model(
 
 
 def _large(spec: ModelCreate, frame: Any, settings: Any) -> bool:
-    """Whether a fit is big enough to run as a job (coefficients of the largest order, or
-    the Gibbs sampler's work)."""
-    n = frame.shape[1]
+    """Whether a fit is big enough to run as a job: coefficients of the largest order,
+    the Gibbs sampler's work, or an estimated time over half the request timeout."""
+    T, n = frame.shape
     p = spec.lags if isinstance(spec.lags, int) else (spec.max_lags or 13)
     return (n * (n * p + 1) > settings.sync_max_coefficients
-            or gibbs_work(spec, n)[0] > settings.sync_max_gibbs_work)
+            or gibbs_work(spec, n)[0] > settings.sync_max_gibbs_work
+            or fit_seconds(spec, n, T) * settings.cost_scale > settings.request_timeout_s / 2)
 
 
 @router.get("", response_model=ModelsPublic, summary="List stored models (oldest first)",
@@ -200,9 +203,11 @@ def remove_model(model_id: uuid.UUID, session: SessionDep, tenant: TenantDep) ->
              responses={**NOT_FOUND, **INVALID},
              summary="Forecast from a stored model without refitting")
 async def forecast_stored(model_id: uuid.UUID, body: ModelForecastCreate, session: SessionDep,
-                          settings: SettingsDep, tenant: TenantDep) -> JSONResponse:
+                          settings: SettingsDep, tenant: TenantDep,
+                          admission: AdmissionDep) -> JSONResponse:
     row = row_or_404(session, tenant, model_id)
-    payload = await timed(settings, lambda: forecast_answer(load_fitted(row), body, settings))
+    payload = await timed(settings, lambda: forecast_answer(load_fitted(row), body, settings,
+                                                            admission=admission))
     return JSONResponse(payload)
 
 
@@ -210,9 +215,9 @@ async def forecast_stored(model_id: uuid.UUID, body: ModelForecastCreate, sessio
             responses={**NOT_FOUND, **INVALID,
                        **NOT_MODIFIED},
             summary="Nested bands and history for a dashboard (ETag, 304 when unchanged)")
-def fan_chart_data(
+async def fan_chart_data(
     model_id: uuid.UUID, request: Request, session: SessionDep, settings: SettingsDep,
-    tenant: TenantDep,
+    tenant: TenantDep, admission: AdmissionDep,
     horizon: Annotated[int, Query(ge=1, le=104)] = 12,
     bands: Annotated[str, Query(max_length=100, description="coverages in percent")] = "50,80,95",
     draws: Annotated[int, Query(ge=1, le=10_000)] = 2000,
@@ -224,8 +229,9 @@ def fan_chart_data(
     etag, headers = etag_for(row, horizon, levels, draws, seed, history)
     if not_modified(request, etag):
         return Response(status_code=304, headers=headers)
-    chart = fan_chart(load_fitted(row), horizon=horizon, bands=levels, draws=draws, seed=seed,
-                      history=history, limits=settings)
+    chart = await timed(settings, lambda: fan_chart(
+        load_fitted(row), horizon=horizon, bands=levels, draws=draws, seed=seed,
+        history=history, limits=settings, admission=admission))
     return JSONResponse({"model_id": row.id, "version": row.version, **chart},
                         headers=headers)
 

@@ -21,7 +21,7 @@ from ...plan_schemas import (
 from ...planning import replenishment_answer, scenario_answer, shares_answer, shocks_answer
 from ...responses import JSONResponse
 from ...store import load_fitted
-from ..deps import SessionDep, SettingsDep, TenantDep
+from ..deps import AdmissionDep, SessionDep, SettingsDep, TenantDep
 from ._shared import (
     INVALID,
     NOT_FOUND,
@@ -68,9 +68,11 @@ def _ordering(text: str | None, identification: str) -> list[str] | None:
                          "probability before it was imposed: a value far in the tails "
                          "means the scenario is far from what the data suggest.")
 async def create_scenario(model_id: uuid.UUID, body: ScenarioCreate, session: SessionDep,
-                          settings: SettingsDep, tenant: TenantDep) -> JSONResponse:
+                          settings: SettingsDep, tenant: TenantDep,
+                          admission: AdmissionDep) -> JSONResponse:
     row = row_or_404(session, tenant, model_id)
-    payload = await timed(settings, lambda: scenario_answer(load_fitted(row), body, settings))
+    payload = await timed(settings, lambda: scenario_answer(load_fitted(row), body, settings,
+                                                            admission=admission))
     return JSONResponse(payload)
 
 
@@ -83,8 +85,8 @@ async def create_scenario(model_id: uuid.UUID, body: ScenarioCreate, session: Se
                         "or differences, percent for log series.")
 async def impulse_responses(
     model_id: uuid.UUID, request: Request, session: SessionDep, settings: SettingsDep,
-    tenant: TenantDep, horizon: Horizon = 24, identification: Identification = "recursive",
-    ordering: Ordering = None,
+    tenant: TenantDep, admission: AdmissionDep, horizon: Horizon = 24,
+    identification: Identification = "recursive", ordering: Ordering = None,
     shock_size: Annotated[Literal["sd", "unit"], Query(
         description="sd: one standard deviation; unit: own impact of 1")] = "sd",
     cumulative: Annotated[bool, Query(description="sum responses over steps")] = False,
@@ -96,7 +98,8 @@ async def impulse_responses(
     def work() -> dict[str, Any]:
         return shocks_answer(load_fitted(row), horizon=horizon, identification=identification,
                              shock_size=shock_size, ordering=order, cumulative=cumulative,
-                             draws=draws, seed=seed, bands=levels, limits=settings)
+                             draws=draws, seed=seed, bands=levels, limits=settings,
+                             admission=admission)
 
     return await cached_model_answer(request, row, settings, (
         "irf", horizon, identification, order, shock_size, cumulative, draws, seed, levels),
@@ -110,8 +113,9 @@ async def impulse_responses(
                         "to each shock, with pointwise bands; shares sum to 1 per draw.")
 async def variance_decomposition(
     model_id: uuid.UUID, request: Request, session: SessionDep, settings: SettingsDep,
-    tenant: TenantDep, horizon: Horizon = 24, identification: Identification = "recursive",
-    ordering: Ordering = None, draws: Draws = 1000, seed: Seed = 0, bands: Bands = "68,90",
+    tenant: TenantDep, admission: AdmissionDep, horizon: Horizon = 24,
+    identification: Identification = "recursive", ordering: Ordering = None,
+    draws: Draws = 1000, seed: Seed = 0, bands: Bands = "68,90",
 ) -> Response:
     row = row_or_404(session, tenant, model_id)
     levels, order = parse_bands(bands), _ordering(ordering, identification)
@@ -119,7 +123,7 @@ async def variance_decomposition(
     def work() -> dict[str, Any]:
         return shares_answer(load_fitted(row), horizon=horizon, identification=identification,
                              ordering=order, draws=draws, seed=seed, bands=levels,
-                             limits=settings)
+                             limits=settings, admission=admission)
 
     return await cached_model_answer(
         request, row, settings, ("fevd", horizon, identification, order, draws, seed, levels),
@@ -138,8 +142,9 @@ async def variance_decomposition(
                          "threshold per period and at any period. These are model "
                          "estimates: review them before committing purchases.")
 async def replenishment(model_id: uuid.UUID, body: ReplenishmentCreate, session: SessionDep,
-                        settings: SettingsDep, tenant: TenantDep) -> JSONResponse:
+                        settings: SettingsDep, tenant: TenantDep,
+                        admission: AdmissionDep) -> JSONResponse:
     row = row_or_404(session, tenant, model_id)
-    payload = await timed(settings,
-                          lambda: replenishment_answer(load_fitted(row), body, settings))
+    payload = await timed(settings, lambda: replenishment_answer(
+        load_fitted(row), body, settings, admission=admission))
     return JSONResponse(payload)

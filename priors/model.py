@@ -40,6 +40,7 @@ from .errors import (
     ExogenousError,
     NotFittedError,
     SpecificationError,
+    TimeIndexError,
     TooFewObservationsError,
 )
 from .forecast import Forecast
@@ -502,11 +503,19 @@ class FanfoldVAR(GibbsParts, PosteriorSummaries):
         posterior equals a full refit on all the data under that same prior. The new
         rows must continue the complete data: same series, following dates. Incomplete
         last periods (a ragged edge) are replaced by the new rows, which may themselves
-        end incomplete. A model sampled by Gibbs (:attr:`uses_gibbs`) has no exact update:
+        end incomplete. New rows without dates (an array, or a frame without a
+        DatetimeIndex) continue the model's own calendar: the model's dates are never
+        replaced. A model sampled by Gibbs (:attr:`uses_gibbs`) has no exact update:
         its chains run again on all the data (pass ``rng``).
         """
         self._check_fitted()
         old = self.series_
+        if isinstance(old.calendar.index, pd.DatetimeIndex):
+            new_data = self.on_calendar(new_data)
+        elif isinstance(new_data, pd.DataFrame) and isinstance(new_data.index,
+                                                                pd.DatetimeIndex):
+            raise TimeIndexError("the model's data have no dates; send the new periods "
+                                 "without dates")
         if isinstance(new_data, pd.DataFrame) and isinstance(old.calendar.index, pd.DatetimeIndex):
             combined: pd.DataFrame | FloatArray = pd.concat(
                 [pd.DataFrame(old.levels, index=self._level_index(), columns=old.names),
@@ -556,6 +565,20 @@ class FanfoldVAR(GibbsParts, PosteriorSummaries):
         elif self.volatility == "common":
             model._run_sv(rng, progress)
         return model
+
+    def on_calendar(self, new_data: pd.DataFrame | FloatArray) -> pd.DataFrame:
+        """New rows for a model fitted on dated data, on dates: their own (a
+        DatetimeIndex), or the periods right after the model's complete data (the model's
+        calendar continued), for rows given without dates."""
+        if isinstance(new_data, pd.DataFrame) and isinstance(new_data.index, pd.DatetimeIndex):
+            return new_data
+        old = self.series_
+        frame = (new_data if isinstance(new_data, pd.DataFrame)
+                 else pd.DataFrame(np.asarray(new_data, dtype=np.float64).reshape(-1, old.n),
+                                   columns=list(old.names)))
+        dates = old.calendar.future(frame.shape[0])
+        assert dates is not None
+        return frame.set_axis(dates.rename(self._level_index().name), axis=0)
 
     def _level_index(self) -> pd.DatetimeIndex:
         """Dates of the data as given (before any differencing dropped a row)."""

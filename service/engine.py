@@ -23,7 +23,7 @@ from priors import (
     SpecificationError,
     TimeIndexError,
 )
-from priors.calendar import calendar_from_index, regular_dates
+from priors.calendar import calendar_from_index, check_date_range, regular_dates
 from priors.inventory import window_totals
 
 from .config import Settings
@@ -86,7 +86,11 @@ def frame_from_spec(spec: SeriesData) -> pd.DataFrame:
         if len(spec.dates) != T:
             raise DataError(f"{len(spec.dates)} dates for {T} values per series")
         index = pd.DatetimeIndex(pd.to_datetime(spec.dates), name="date")
-        calendar_from_index(index)  # at the door: duplicates, gaps, dates out of range
+        # at the door: dates out of range, duplicates, gaps (a spacing needs 3 dates; one
+        # or two new periods are checked against the model's calendar when appended)
+        check_date_range(index.min(), index.max())
+        if len(index) >= 3:
+            calendar_from_index(index)
     elif spec.start is not None:
         if spec.frequency is None:
             raise DataError("give the frequency of the dates with start, e.g. 'MS' (monthly)")
@@ -208,6 +212,11 @@ def append_observations(model: FanfoldVAR, old: pd.DataFrame, new: pd.DataFrame,
     the conjugate priors; the independent prior's chains run again from ``seed`` (or a
     fresh one)."""
     known = 0 if model.ragged_ is None else model.ragged_.values.shape[0]
+    if isinstance(old.index, pd.DatetimeIndex):  # rows without dates continue the calendar
+        new = model.on_calendar(new)
+    elif isinstance(new.index, pd.DatetimeIndex):
+        raise TimeIndexError("the model's data have no dates; send the new periods without "
+                             "start, frequency or dates")
     frame = pd.concat([old.iloc[: old.shape[0] - known], new])
     if not model.uses_gibbs:
         return Fitted(model.append(new), None), frame

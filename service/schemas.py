@@ -301,12 +301,19 @@ class ModelCreate(SeriesData, ModelSettings):
 
 
 class ObservationsCreate(SeriesData):
-    """New periods for a stored model: every series, continuing right after its data."""
+    """New periods for a stored model: every series, continuing right after its data.
+    Without ``start``/``frequency``/``dates`` they continue the model's own calendar (the
+    usual case: post each period as it closes)."""
 
     model_config = ConfigDict(extra="forbid", json_schema_extra={"examples": [{
         "series": {"tyres": [1190, 1240], "inner_tubes": [2010, 2105]},
         "start": "2026-01-01", "frequency": "MS"}]})
 
+    series: dict[Annotated[str, Field(min_length=1, max_length=100)],
+                 Annotated[list[Value | None], Field(min_length=1)]] = Field(
+        ..., min_length=1, description="values per series name for the new periods, oldest "
+        "first, equal lengths (one period is fine); null only in the last periods for "
+        "values not known yet")
 
 class BacktestCreate(SeriesData, ModelSettings):
     """A rolling-origin backtest, run as a job."""

@@ -194,6 +194,26 @@ def test_append_refuses_rows_that_do_not_continue_the_data():
         model.append(frame.iloc[90:100])  # dates already there
 
 
+def test_rows_without_dates_continue_the_models_calendar():
+    """New rows given as an array (or a frame without dates) take the periods right after
+    the model's data; the model's dates are never replaced by row numbers."""
+    _, frame = _demo()
+    model = FanfoldVAR(lags=2, seasonal=True).fit(frame.iloc[:100])
+    dated = model.append(frame.iloc[100:103])
+    for plain in (frame.iloc[100:103].to_numpy(), frame.iloc[100:103].reset_index(drop=True)):
+        grown = model.append(plain)
+        assert grown.series_.calendar.index.equals(dated.series_.calendar.index)
+        assert grown.series_.calendar.kind == "monthly"
+        np.testing.assert_array_equal(grown.posterior_.B, dated.posterior_.B)
+    one = model.append(frame.iloc[100].to_numpy())  # a single period, as a 1-D row
+    assert one.series_.calendar.index[-1] == frame.index[100]
+    plain_model = FanfoldVAR(lags=1).fit(frame.iloc[:100].to_numpy())
+    from priors.errors import TimeIndexError
+
+    with pytest.raises(TimeIndexError, match="no dates"):
+        plain_model.append(frame.iloc[100:102])
+
+
 def test_one_step_log_density_equals_the_marginal_likelihood_increment(known_var, rng):
     # log p(y_T+1 | Y) = log p(Y, y_T+1) - log p(Y) under the same prior (the sequential
     # form of the marginal likelihood; methods brief sec. 3(b))

@@ -166,6 +166,46 @@ def test_observations_must_continue_the_data(client, demo):
     assert client.get(f"/v1/models/{model_id}").json()["version"] == 1  # unchanged
 
 
+def test_one_period_without_dates_continues_the_models_calendar(client, demo):
+    """An inventory system posts each month as it closes: one value per series, no
+    dates. The model's calendar goes on (it was wiped to "1", "2", ... before), a
+    seasonal model stays seasonal, and the result equals appending with dates."""
+    part = demo[["tyres", "chains"]]
+    first = {"series": {c: part[c].iloc[:100].astype(float).tolist() for c in part},
+             "start": "2016-01-01", "frequency": "MS", "lags": 2, "seasonal": True}
+    model_id = _create(client, first).json()["id"]
+    for month in range(100, 103):  # three closes, one period each
+        row = {"series": {c: [float(part[c].iloc[month])] for c in part}}
+        r = client.post(f"/v1/models/{model_id}/observations", json=row)
+        assert r.status_code == 200, r.text
+        assert r.json()["span"]["end"] == part.index[month].date().isoformat()
+    stored = client.get(f"/v1/models/{model_id}").json()
+    assert stored["version"] == 4 and stored["span"]["start"].startswith("2016-")
+    chart = client.get(f"/v1/models/{model_id}/fan-chart", params={"history": 2}).json()
+    assert chart["history"]["dates"] == ["2024-06-01", "2024-07-01"]
+    assert chart["dates"][0] == "2024-08-01"
+    # the same three periods in one post, with their dates: the same model
+    other = _create(client, first).json()["id"]
+    dated = {"series": {c: part[c].iloc[100:103].astype(float).tolist() for c in part},
+             "start": part.index[100].date().isoformat(), "frequency": "MS"}
+    assert client.post(f"/v1/models/{other}/observations", json=dated).status_code == 200
+    a = client.get(f"/v1/models/{model_id}").json()["coefficients"]
+    b = client.get(f"/v1/models/{other}").json()["coefficients"]
+    np.testing.assert_allclose([c["mean"] for c in a], [c["mean"] for c in b], rtol=1e-10)
+
+
+def test_a_model_without_dates_takes_new_periods_without_dates(client, demo):
+    part = demo[["tyres", "chains"]]
+    plain = {"series": {c: part[c].iloc[:60].astype(float).tolist() for c in part},
+             "lags": 1}
+    model_id = _create(client, plain).json()["id"]
+    row = {"series": {c: [float(part[c].iloc[60])] for c in part}}
+    assert client.post(f"/v1/models/{model_id}/observations", json=row).status_code == 200
+    dated = {**row, "start": "2021-01-01", "frequency": "MS"}
+    r = client.post(f"/v1/models/{model_id}/observations", json=dated)
+    assert r.status_code == 422 and "no dates" in r.json()["detail"]
+
+
 def test_concurrent_updates_cannot_both_win(tmp_path, demo):
     # optimistic concurrency on the model row: a writer holding an old version loses
     from sqlalchemy.orm.exc import StaleDataError

@@ -46,8 +46,11 @@ def test_stored_model_round_trip(fanfold, demo):
     model = fanfold.create_model(demo[["tyres", "chains"]].iloc[:100], lags=1)
     table = fanfold.forecast_model(model["id"], horizon=2, draws=100, seed=1)
     assert list(table["series"].unique()) == ["tyres", "chains"]
-    grown = fanfold.append(model["id"], demo[["tyres", "chains"]].iloc[100:])
-    assert grown["version"] == 2 and grown["span"]["end"] == "2025-12-01"
+    grown = fanfold.append(model["id"], demo[["tyres", "chains"]].iloc[100:-1])
+    assert grown["version"] == 2 and grown["span"]["end"] == "2025-11-01"
+    # the month that just closed, on its own (was a 422: "at least 3 items")
+    grown = fanfold.append(model["id"], demo[["tyres", "chains"]].iloc[-1:])
+    assert grown["version"] == 3 and grown["span"]["end"] == "2025-12-01"
     chart = fanfold.fan_chart(model["id"], horizon=3, bands="80")
     assert list(chart["bands"]) == ["80"]
     queued = fanfold.create_model(demo[["tyres", "chains"]], lags=1, background=True, wait=60)

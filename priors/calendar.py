@@ -20,7 +20,7 @@ from ._types import IntArray
 from .errors import DateRangeError, SpecificationError, TimeIndexError
 
 __all__ = ["FIRST_DATE", "LAST_DATE", "Calendar", "calendar_from_index", "check_date_range",
-           "plain_calendar", "regular_dates"]
+           "check_frequency", "plain_calendar", "regular_dates"]
 
 #: first and last supported date (data and forecast periods)
 FIRST_DATE = pd.Timestamp("1678-01-01")
@@ -50,6 +50,28 @@ _WEEKDAYS = ("Mon", "Tue", "Wed", "Thu", "Fri", "Sat", "Sun")
 _MONTH_START = offsets.MonthBegin()
 
 
+_DAY_NS = 86_400_000_000_000
+
+
+def check_frequency(freq: str | offsets.BaseOffset) -> offsets.BaseOffset:
+    """The offset of ``freq``; :class:`TimeIndexError` if unknown or finer than a day.
+
+    Periods are whole days or longer (D, B, W, MS, QS, YS...): dates are kept and shown
+    without a time of day, so hourly or minute data would collapse onto repeated dates.
+    """
+    try:
+        offset = frequencies.to_offset(freq)
+    except ValueError as exc:
+        raise TimeIndexError(f"unknown frequency {freq!r}; use a pandas frequency such as "
+                             "MS, QS, W or D", "frequency") from exc
+    if isinstance(offset, offsets.Tick) and offset.nanos < _DAY_NS:
+        raise TimeIndexError(
+            f"frequency {offset.freqstr!r} is finer than a day; Fanfold works with daily "
+            "or longer periods (D, B, W, MS, QS, YS): add the values up per day first",
+            "frequency")
+    return offset
+
+
 def regular_dates(start: object, periods: int, freq: str,
                   name: str | None = None) -> pd.DatetimeIndex:
     """``pd.date_range(start, periods=periods, freq=freq, name=name)``, the same index.
@@ -61,9 +83,10 @@ def regular_dates(start: object, periods: int, freq: str,
     ------
     DateRangeError
         ``start`` or the last date outside :data:`FIRST_DATE` .. :data:`LAST_DATE`.
-    ValueError
-        An unknown frequency (pandas' own error).
+    TimeIndexError
+        An unknown frequency, or one finer than a day (:func:`check_frequency`).
     """
+    check_frequency(freq)
     check_date_range(start, start)
     try:
         index = _regular_dates(start, periods, freq, name)
@@ -241,7 +264,7 @@ def calendar_from_index(index: pd.DatetimeIndex, freq: str | None = None) -> Cal
         raise TimeIndexError("timestamps are not in increasing order; sort the rows by date")
     if freq is None and index.freq is not None:
         # pandas checked the spacing when it attached the frequency to the index
-        return Calendar(index, index.freq.freqstr, _kind(index.freq))
+        return Calendar(index, check_frequency(index.freq).freqstr, _kind(index.freq))
     if freq is None:
         if len(index) < 3:
             raise TimeIndexError("need at least 3 timestamps to tell the frequency")
@@ -259,10 +282,7 @@ def calendar_from_index(index: pd.DatetimeIndex, freq: str | None = None) -> Cal
             f"timestamps are not evenly spaced (first break at {index[where].date()}, "
             f"after {index[where - 1].date()}{hint}); give one row per period with no gaps"
         )
-    try:
-        offset = pd.tseries.frequencies.to_offset(freq)
-    except ValueError as exc:
-        raise TimeIndexError(f"unknown frequency {freq!r}") from exc
+    offset = check_frequency(freq)
     if index.freq is not None and index.freq == offset:
         # pandas checked the spacing when it attached the frequency to the index
         return Calendar(index, offset.freqstr, _kind(offset))

@@ -82,7 +82,13 @@ class NonPositiveValuesError(DataError):
 
 
 class TimeIndexError(DataError):
-    """Timestamps are duplicated, unsorted or not evenly spaced."""
+    """Timestamps are duplicated, unsorted or not evenly spaced, or their frequency is
+    unknown or finer than a day. ``argument``, when known, names the input to change
+    (e.g. "frequency")."""
+
+    def __init__(self, message: str, argument: str | None = None) -> None:
+        super().__init__(message)
+        self.argument = argument
 
 
 class DateRangeError(TimeIndexError):
@@ -94,8 +100,7 @@ class DateRangeError(TimeIndexError):
     """
 
     def __init__(self, message: str, argument: str = "dates") -> None:
-        super().__init__(message)
-        self.argument = argument
+        super().__init__(message, argument)
 
 
 class NonNumericError(DataError):

@@ -98,11 +98,11 @@ def frame_from_spec(spec: SeriesData) -> pd.DataFrame:
             index = regular_dates(spec.start, T, spec.frequency, name="date")
         except DateRangeError as exc:
             raise DateRangeError(str(exc), "start") from exc
-        except ValueError as exc:
-            raise TimeIndexError(
-                f"unknown frequency {spec.frequency!r}; use a pandas "
-                "frequency such as MS, QS, W or D"
-            ) from exc
+        except TimeIndexError:
+            raise  # an unknown or sub-daily frequency, named as such
+        except ValueError as exc:  # anything else pandas refuses about the spacing
+            raise TimeIndexError(f"cannot build dates of frequency {spec.frequency!r} from "
+                                 f"{spec.start}: {exc}", "frequency") from exc
     elif spec.frequency is not None:
         raise DataError("give start together with frequency")
     # one float array (null -> NaN), a tenth of the cost of pandas reading the lists

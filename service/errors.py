@@ -17,7 +17,7 @@ from fastapi.exceptions import RequestValidationError
 from sqlalchemy.orm.exc import StaleDataError
 from starlette.exceptions import HTTPException as StarletteHTTPException
 
-from priors.errors import DateRangeError, NotFittedError, PriorsError, WorkCancelled
+from priors.errors import NotFittedError, PriorsError, TimeIndexError, WorkCancelled
 
 from .context import request_id
 from .responses import JSONResponse
@@ -124,7 +124,7 @@ async def _engine(request: Request, exc: PriorsError) -> JSONResponse:
     status = 409 if isinstance(exc, NotFittedError) else 422
     name = type(exc).__name__
     # an engine error that knows which input to change names it as the field
-    field = exc.argument if isinstance(exc, DateRangeError) else None
+    field = exc.argument if isinstance(exc, TimeIndexError) else None
     return problem(status, str(exc), request=request, title="The model cannot use this input",
                    type_=f"urn:fanfold:problem:{name}",
                    errors=None if field is None else [{"field": field, "message": str(exc)}])

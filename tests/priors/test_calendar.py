@@ -265,3 +265,21 @@ def test_frequency_inference_agrees_across_threads():
     with ThreadPoolExecutor(max_workers=8) as pool:
         found = list(pool.map(lambda i: calendar_from_index(i).freq, indexes))
     assert found == expected
+
+
+# ---------------------------------------------------------------- daily or longer
+
+
+@pytest.mark.parametrize("freq", ["h", "min", "30min", "12h", "s"])
+def test_frequencies_finer_than_a_day_are_refused(freq):
+    with pytest.raises(TimeIndexError, match="finer than a day") as info:
+        regular_dates("2024-01-01", 10, freq)
+    assert info.value.argument == "frequency"
+    hourly = pd.DatetimeIndex(list(pd.date_range("2024-01-01", periods=24, freq=freq)))
+    with pytest.raises(TimeIndexError, match="finer than a day"):
+        calendar_from_index(hourly)
+
+
+@pytest.mark.parametrize("freq", ["D", "B", "2D", "24h", "W-SUN", "MS", "QS", "YS"])
+def test_daily_and_longer_frequencies_are_accepted(freq):
+    assert len(regular_dates("2024-01-01", 10, freq)) == 10

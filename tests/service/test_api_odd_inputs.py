@@ -144,3 +144,24 @@ def test_a_backtest_of_dates_out_of_range_is_refused_before_it_is_queued(client)
                                             "frequency": "MS"})
     assert ok.status_code == 202
     assert wait_for_job(client, ok.headers["location"])["status"] == "succeeded"
+
+
+@pytest.mark.parametrize("route", list(ROUTES))
+@pytest.mark.parametrize("freq", ["h", "min", "30min"])
+def test_frequencies_finer_than_a_day_are_refused_at_the_door(client, route, freq):
+    """They were stored with only the date part, after which every read answered 422
+    "timestamp appears more than once" (and one-shot hourly forecasts repeated dates)."""
+    response = client.post(route, json={"series": SERIES, "lags": 1, **ROUTES[route],
+                                        "start": "2024-01-01", "frequency": freq})
+    body = _assert_problem(response, 422, "frequency")
+    assert "finer than a day" in body["detail"]
+    assert client.get("/v1/models").json()["data"] == []
+
+
+def test_hourly_csv_is_refused(client):
+    text = "time,a,b\n" + "".join(
+        f"2024-01-01 {h:02d}:00,{SERIES['a'][h]},{SERIES['b'][h]}\n" for h in range(24))
+    response = client.post("/v1/forecasts", content=text,
+                           headers={"content-type": "text/csv"}, params={"lags": 1})
+    assert response.status_code == 422
+    assert "finer than a day" in response.json()["detail"]

@@ -22,7 +22,7 @@ from priors.errors import NotFittedError, PriorsError, TimeIndexError, WorkCance
 from .context import request_id
 from .responses import JSONResponse
 
-__all__ = ["PROBLEM_JSON", "LimitExceeded", "RequestTimedOut", "problem",
+__all__ = ["PROBLEM_JSON", "InvalidField", "LimitExceeded", "RequestTimedOut", "problem",
            "register_error_handlers"]
 
 PROBLEM_JSON = "application/problem+json"
@@ -37,13 +37,21 @@ class RequestTimedOut(Exception):
         self.limit_s = limit_s
 
 
-class LimitExceeded(Exception):
-    """A request over one of the configured limits (422, names the field)."""
+class InvalidField(Exception):
+    """A request field that is invalid in a way the schema cannot tell (422, names it)."""
+
+    title = "Invalid request"
 
     def __init__(self, field: str, message: str) -> None:
         super().__init__(message)
         self.field = field
         self.message = message
+
+
+class LimitExceeded(InvalidField):
+    """A request over one of the configured limits (422, names the field)."""
+
+    title = "Limit exceeded"
 
 
 def problem(
@@ -79,6 +87,10 @@ def _field(loc: Sequence[Any]) -> str:
 
 
 async def _validation(request: Request, exc: RequestValidationError) -> JSONResponse:
+    broken = [e for e in exc.errors() if e.get("type") == "json_invalid"]
+    if broken:  # not JSON at all: a 400, as for every route (service.api.json_body)
+        return problem(400, f"the body is not valid JSON: {broken[0].get('msg', '')}",
+                       request=request)
     errors = [{"field": _field(e.get("loc", ())), "message": str(e.get("msg", "invalid"))}
               for e in exc.errors()]
     fields = ", ".join(sorted({e["field"] for e in errors}))
@@ -115,8 +127,8 @@ async def _http(request: Request, exc: StarletteHTTPException) -> JSONResponse:
     return problem(exc.status_code, detail, request=request, headers=headers or None)
 
 
-async def _limit(request: Request, exc: LimitExceeded) -> JSONResponse:
-    return problem(422, exc.message, request=request, title="Limit exceeded",
+async def _limit(request: Request, exc: InvalidField) -> JSONResponse:
+    return problem(422, exc.message, request=request, title=exc.title,
                    errors=[{"field": exc.field, "message": exc.message}])
 
 
@@ -150,7 +162,7 @@ def register_error_handlers(app: FastAPI) -> None:
     """
     app.add_exception_handler(RequestValidationError, _validation)  # type: ignore[arg-type]
     app.add_exception_handler(StarletteHTTPException, _http)  # type: ignore[arg-type]
-    app.add_exception_handler(LimitExceeded, _limit)  # type: ignore[arg-type]
+    app.add_exception_handler(InvalidField, _limit)  # type: ignore[arg-type]
     app.add_exception_handler(PriorsError, _engine)  # type: ignore[arg-type]
     app.add_exception_handler(StaleDataError, _stale)  # type: ignore[arg-type]
     # Starlette looks a handler up along the exception's MRO: WorkCancelled gets this

@@ -152,8 +152,8 @@ class ReplenishmentItem(Input):
 
     model_config = ConfigDict(extra="forbid")
 
-    series: SeriesName | list[SeriesName] = Field(
-        ..., description="a series name, or several names whose demand is added")
+    series: SeriesName | Annotated[list[SeriesName], Field(min_length=1, max_length=100)] = (
+        Field(..., description="a series name, or several names whose demand is added"))
     name: str | None = Field(None, max_length=100, description="label (default: the series)")
     on_hand: Stock
     on_order: Stock = 0.0

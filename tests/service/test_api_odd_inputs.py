@@ -165,3 +165,79 @@ def test_hourly_csv_is_refused(client):
                            headers={"content-type": "text/csv"}, params={"lags": 1})
     assert response.status_code == 422
     assert "finer than a day" in response.json()["detail"]
+
+
+# ---------------------------------------------------------------- one way to read a body
+
+BODY = ('{"series": {"a": [1, 2, 3, 4, 5, 6, 7, 8, 9, 10, 11, 12.5], '
+        '"b": [3, 1, 4, 1, 5, 9, 2, 6, 5, 3, 5, 8]}')
+
+
+def _json_routes(client) -> dict[str, tuple[str, str]]:
+    """Every route with a JSON body: (path, a valid body without its closing brace)."""
+    mid = client.post("/v1/models", content=BODY + ', "lags": 1}',
+                      headers={"content-type": "application/json"}).json()["id"]
+    item = '"items": [{"series": "a", "on_hand": 1, "service_level": 0.9}]'
+    return {
+        "one-shot forecast": ("/v1/forecasts", BODY + ', "lags": 1, "horizon": 2, "draws": 50'),
+        "model": ("/v1/models", BODY + ', "lags": 1'),
+        "backtest": ("/v1/backtests", BODY + ', "lags": 1, "origins": 1, "horizon": 1'),
+        "stored forecast": (f"/v1/models/{mid}/forecasts", '{"horizon": 2, "draws": 50'),
+        "observations": (f"/v1/models/{mid}/observations", '{"series": {"a": [13], "b": [7]}'),
+        "scenario": (f"/v1/models/{mid}/scenarios",
+                     '{"horizon": 2, "draws": 50, "conditions": [{"series": "a", "step": 1, '
+                     '"value": 12}]'),
+        "replenishment": (f"/v1/models/{mid}/replenishment", '{"lead_time": 2, ' + item),
+    }
+
+
+def test_every_json_route_reads_its_body_the_same_way(client):
+    for label, (path, body) in _json_routes(client).items():
+        ok = client.post(path, content=b"\xef\xbb\xbf" + (body + "}").encode(),
+                         headers={"content-type": "application/json"})
+        assert ok.status_code in (200, 201, 202), (label, ok.text)  # byte-order mark ignored
+        broken = client.post(path, content=body, headers={"content-type": "application/json"})
+        assert broken.status_code == 400, (label, broken.text)  # malformed: 400 everywhere
+        assert broken.headers["content-type"].startswith(PROBLEM)
+        assert "not valid JSON" in broken.json()["detail"]
+        xml = client.post(path, content=body + "}", headers={"content-type": "application/xml"})
+        assert xml.status_code == 415, (label, xml.text)
+        twice = client.post(path, content=body + ', "draws": 60}',
+                            headers={"content-type": "application/json"})
+        if '"draws"' in body:
+            _assert_problem(twice, 422, "draws")  # a key twice: refused, not "last wins"
+
+
+def test_openapi_lists_400_and_415_on_every_route_with_a_body(client):
+    paths = client.get("/openapi.json").json()["paths"]
+    for path, operations in paths.items():
+        for method, operation in operations.items():
+            if "requestBody" in operation:
+                assert {"400", "415"} <= set(operation["responses"]), (method, path)
+
+
+def test_an_empty_replenishment_item_is_refused(client):
+    mid = client.post("/v1/models", json={"series": SERIES, "lags": 1}).json()["id"]
+    answer = client.post(f"/v1/models/{mid}/replenishment", json={
+        "lead_time": 2, "items": [{"series": [], "on_hand": 1, "service_level": 0.9}]})
+    assert answer.status_code == 422  # was 200 with a reorder point of 0
+    assert any(e["field"].startswith("items.0.series") for e in answer.json()["errors"])
+
+
+def test_fan_chart_history_zero_means_no_history(client):
+    mid = client.post("/v1/models", json={"series": SERIES, "lags": 1}).json()["id"]
+    chart = client.get(f"/v1/models/{mid}/fan-chart", params={"history": 0}).json()
+    assert chart["history"]["dates"] == []  # was the whole history
+    assert all(v == [] for v in chart["history"]["values"].values())
+    some = client.get(f"/v1/models/{mid}/fan-chart", params={"history": 3}).json()
+    assert len(some["history"]["dates"]) == 3
+
+
+def test_a_backtest_with_an_irregular_last_date_is_refused_like_a_forecast(client):
+    dates = _monthly(2018)
+    dates[-1] = "2020-06-17"  # not the month start the others follow
+    body = {"series": SERIES, "lags": 1, "dates": dates}
+    forecast = client.post("/v1/forecasts", json={**body, **OUTPUT})
+    backtest = client.post("/v1/backtests", json={**body, **OUTPUT, "origins": 2})
+    assert forecast.status_code == backtest.status_code == 422
+    assert backtest.json()["type"] == forecast.json()["type"]

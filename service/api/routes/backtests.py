@@ -18,9 +18,10 @@ from ...limits import check_backtest_limits
 from ...responses import JSONResponse
 from ...schemas import BacktestCreate, JobPublic
 from ..deps import SessionDep, SettingsDep, TenantDep
+from ..json_body import JSONBodyRoute
 from .jobs import job_public
 
-router = APIRouter(prefix="/v1/backtests", tags=["backtests"])
+router = APIRouter(prefix="/v1/backtests", tags=["backtests"], route_class=JSONBodyRoute)
 
 
 @router.post("", status_code=202, response_model=JobPublic,

@@ -16,9 +16,10 @@ from ...responses import JSONResponse
 from ...schemas import ForecastCreate, ForecastPublic, ForecastSettings
 from ...serialization import frame_from_csv
 from ..deps import AdmissionDep, MetricsDep, SettingsDep
+from ..json_body import JSONBodyRoute, is_json_media_type, read_json
 from ._shared import timed
 
-router = APIRouter(prefix="/v1", tags=["forecasts"])
+router = APIRouter(prefix="/v1", tags=["forecasts"], route_class=JSONBodyRoute)
 
 _CSV_EXAMPLE = "date,tyres,inner_tubes\n" + "".join(
     f"2016-{m:02d}-01,{t},{u}\n" for m, t, u in zip(
@@ -70,16 +71,18 @@ def _query_settings(request: Request) -> ForecastSettings:
 
 async def _spec_and_data(request: Request) -> tuple[ForecastSettings, Any]:
     """The settings and a function that builds the data frame (run off the event loop)."""
-    ctype = request.headers.get("content-type", "").split(";")[0].strip().lower()
+    header = request.headers.get("content-type", "")
+    ctype = header.split(";")[0].strip().lower()
     body = await request.body()
-    if ctype in ("application/json", ""):
+    if is_json_media_type(header):
+        body, _ = read_json(body)  # the same checks as every JSON route
         try:
             spec = ForecastCreate.model_validate_json(body or b"{}")
         except ValidationError as exc:
             raise RequestValidationError(exc.errors()) from None
         return spec, lambda: frame_from_spec(spec)
     if ctype in ("text/csv", "application/csv"):
-        text = body.decode("utf-8-sig", "replace")
+        text = body.decode("utf-8-sig", "replace")  # a byte-order mark is ignored here too
         return _query_settings(request), lambda: frame_from_csv(text)
     raise _Unsupported(ctype)
 

@@ -14,8 +14,9 @@ from ...orm import Job
 from ...responses import JSONResponse
 from ...schemas import JobPublic
 from ..deps import SessionDep, TenantDep
+from ..json_body import JSONBodyRoute
 
-router = APIRouter(prefix="/v1/jobs", tags=["jobs"])
+router = APIRouter(prefix="/v1/jobs", tags=["jobs"], route_class=JSONBodyRoute)
 
 _NOT_FOUND = {404: {"description": "no such job for this caller",
                     "content": {PROBLEM_JSON: {}}}}

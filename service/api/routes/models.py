@@ -48,6 +48,7 @@ from ...store import (
     save_model,
 )
 from ..deps import AdmissionDep, SessionDep, SettingsDep, TenantDep
+from ..json_body import JSONBodyRoute
 from ._shared import (
     INVALID,
     NOT_FOUND,
@@ -60,7 +61,7 @@ from ._shared import (
 )
 from .jobs import job_public
 
-router = APIRouter(prefix="/v1/models", tags=["models"])
+router = APIRouter(prefix="/v1/models", tags=["models"], route_class=JSONBodyRoute)
 
 
 def _public(row: StoredModel, model: FanfoldVAR | None = None) -> dict[str, Any]:

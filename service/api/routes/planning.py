@@ -22,6 +22,7 @@ from ...planning import replenishment_answer, scenario_answer, shares_answer, sh
 from ...responses import JSONResponse
 from ...store import load_fitted
 from ..deps import AdmissionDep, SessionDep, SettingsDep, TenantDep
+from ..json_body import JSONBodyRoute
 from ._shared import (
     INVALID,
     NOT_FOUND,
@@ -32,7 +33,7 @@ from ._shared import (
     timed,
 )
 
-router = APIRouter(prefix="/v1/models", tags=["planning"])
+router = APIRouter(prefix="/v1/models", tags=["planning"], route_class=JSONBodyRoute)
 
 Identification = Annotated[Literal["recursive", "generalised"], Query(
     description="recursive: Cholesky in 'ordering'; generalised: Pesaran & Shin (1998), "

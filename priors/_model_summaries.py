@@ -186,6 +186,17 @@ class PosteriorSummaries:
                 else self.sampler_.flat()[1].mean(axis=0))
         return pd.DataFrame(mean, index=names, columns=names)
 
+    @property
+    def log_ml_note(self) -> str | None:
+        """Why :attr:`log_ml_` is None (None when it is a number): in plain words."""
+        if getattr(self, "log_ml_", None) is not None:
+            return None
+        if self.prior == "flat":  # type: ignore[attr-defined]
+            return "flat prior: improper, so no marginal likelihood"
+        if self.volatility == "common":  # type: ignore[attr-defined]
+            return "no closed form with stochastic volatility (sampled by Gibbs)"
+        return "no closed form with the independent prior (sampled by Gibbs)"
+
     def hyperparameters(self) -> dict[str, float | int | None]:
         """Chosen lags and hyperparameters (None where switched off or flat); with
         ``sample_hyper``, the posterior medians of the tightness and cross tightness."""

@@ -9,7 +9,6 @@ forecast steps.
 
 from __future__ import annotations
 
-import warnings
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
 
@@ -25,7 +24,6 @@ from .errors import (
     ExplosiveDataError,
     MissingValuesError,
     NonNumericError,
-    ShortHistoryWarning,
     SpecificationError,
     TooFewObservationsError,
 )
@@ -44,9 +42,9 @@ __all__ = [
     "future_exogenous_rows",
     "growth_decades",
     "load_series",
+    "negative_values_message",
     "season_columns",
     "split_ragged_edge",
-    "warn_short_history",
 ]
 
 #: steady growth over the sample, in orders of magnitude, that :func:`load_series`
@@ -124,10 +122,15 @@ class Design:
         return self.Y.shape[0]
 
 
-def _row_label(calendar: Calendar, row: int) -> str:
-    if calendar.index is None:
-        return f"row {row}"
-    return f"{calendar.index[row].date()} (row {row})"
+def _row_label(index: pd.Index | None, row: int, first: int = 1) -> str:
+    """Where row ``row`` (0-based) of the data is, for a message: its date and its data
+    row counted from 1 (the first row of data, not a header, is data row 1), or the data
+    row alone without dates. ``first`` is the data row of row 0 when rows were dropped
+    before it (e.g. to differencing)."""
+    where = f"data row {row + first}"
+    if isinstance(index, pd.DatetimeIndex):
+        return f"{index[row].date()} ({where})"
+    return where
 
 
 def _as_frame(data: pd.DataFrame | FloatArray, names: Sequence[str] | None) -> pd.DataFrame:
@@ -163,25 +166,49 @@ def _numeric(frame: pd.DataFrame, what: str) -> FloatArray:
     plain = frame.to_numpy()  # one numpy dtype: pandas mixes bool and numbers as object
     if plain.dtype.kind in "fiu":
         return plain.astype(np.float64, copy=False)
-    for col, dtype in frame.dtypes.items():
+    for j, (col, dtype) in enumerate(frame.dtypes.items()):
         if not (pd.api.types.is_numeric_dtype(dtype) and not pd.api.types.is_bool_dtype(dtype)):
-            sample = frame[col].dropna().iloc[:1].tolist()
+            column = frame.iloc[:, j]
+            row = _first_non_number(column)
+            if row is None:  # numbers stored as text or objects: show one
+                found = (f"its values are stored as {dtype}, not as numbers (e.g. "
+                         f"{column.dropna().iloc[:1].tolist()})")
+            else:
+                found = (f"the first cell that is not a number is {column.iloc[row]!r} at "
+                         f"{_row_label(frame.index, row)}")
             raise NonNumericError(
-                f"{what} {str(col)!r} is not numeric (dtype {dtype}, e.g. {sample}); "
-                "give numbers only, with dates in the index or the first column"
+                f"{what} {str(col)!r} is not numeric (dtype {dtype}); {found}; give numbers "
+                "only (leave a missing value empty), with dates in the index or the first "
+                "column"
             )
     return frame.to_numpy(dtype=np.float64, na_value=np.nan)
 
 
-def _check_finite(values: FloatArray, names: Sequence[str], calendar: Calendar, what: str) -> None:
+def _first_non_number(column: pd.Series) -> int | None:
+    """Position of the first present cell that is not a number (every present cell of
+    a boolean column), or None."""
+    present = column.notna()
+    if pd.api.types.is_bool_dtype(column.dtype):
+        bad = present
+    else:
+        bad = present & pd.to_numeric(column, errors="coerce").isna()
+    rows = np.flatnonzero(bad.to_numpy(dtype=bool))
+    return int(rows[0]) if rows.size else None
+
+
+def _check_finite(values: FloatArray, names: Sequence[str], calendar: Calendar, what: str,
+                  first: int = 1) -> None:
+    """Refuse NaN and inf, naming the first one's series, date and data row (``first``:
+    the data row of ``values[0]``)."""
     bad = ~np.isfinite(values)
     if bad.any():
         row, col = (int(i) for i in np.argwhere(bad)[0])
-        kind = "NaN" if np.isnan(values[row, col]) else "an infinite value"
+        kind = ("a missing value (an empty cell, NaN or null)" if np.isnan(values[row, col])
+                else "an infinite value")
         raise MissingValuesError(
-            f"{what} {names[col]!r} has {kind} at {_row_label(calendar, row)}, inside the "
-            f"estimation window ({int(bad.sum())} such values in all); fill them or cut the "
-            "data to a window without them"
+            f"{what} {names[col]!r} has {kind} at {_row_label(calendar.index, row, first)}, "
+            f"inside the estimation window ({int(bad.sum())} such values in all); fill them "
+            "or cut the data to a window without them"
         )
 
 
@@ -321,7 +348,7 @@ def load_series(
         raise ExplosiveDataError(explosive)
     ex, ex_names = _load_exog(exog, frame, series_names)
     ex = ex[drop:]
-    _check_finite(ex, ex_names, calendar, "exogenous regressor")
+    _check_finite(ex, ex_names, calendar, "exogenous regressor", first=drop + 1)
     return SeriesData(series_names, levels, values, calendar, tr, ex, ex_names)
 
 
@@ -361,10 +388,10 @@ def split_ragged_edge(
     empty = ~np.any(np.isfinite(tail), axis=1)
     if empty.any():
         row = last + 1 + int(np.flatnonzero(empty)[0])
-        label = frame.index[row]
         raise MissingValuesError(
-            f"row {label} has no value for any series; drop empty trailing rows (only "
-            "the last periods may be incomplete, and each needs at least one value)")
+            f"{_row_label(frame.index, row)} has no value for any series; drop empty "
+            "trailing rows (only the last periods may be incomplete, and each needs at least "
+            "one value)")
     if np.any(np.isinf(tail)):
         raise MissingValuesError("the incomplete last periods contain an infinite value")
     ex_tail = None
@@ -536,12 +563,40 @@ def check_history(design: Design) -> str | None:
     )
 
 
-def warn_short_history(design: Design) -> None:
-    """Warn with :class:`ShortHistoryWarning` when :func:`check_history` finds the sample
-    short; called once on the fitted model's design (not on the lag search's)."""
-    message = check_history(design)
-    if message:
-        warnings.warn(message, ShortHistoryWarning, stacklevel=3)
+#: share of a series' values that must be >= 0 for its negative values to look like
+#: errors in demand data (:func:`negative_values_message`)
+MOSTLY_NONNEGATIVE = 0.9
+
+
+def negative_values_message(series: SeriesData) -> str | None:
+    """What to tell the user when a series looks like demand with a few negative values.
+
+    A series "looks like demand" when all its values are whole numbers (counts of
+    units) with a positive median, and at least :data:`MOSTLY_NONNEGATIVE` of them are
+    >= 0. A few negative values in such a series are usually a data error, e.g. returns
+    booked as negative sales. Series with fractional values are not checked: negative
+    values are ordinary in many of them (changes, balances, temperatures). Returns the
+    message for the first such series (its name, how many negative values, the first
+    one's value, date and data row), or None.
+    """
+    levels = series.levels
+    lost = levels.shape[0] - series.nobs  # the calendar starts after rows lost to differencing
+    for j, name in enumerate(series.names):
+        y = levels[:, j]
+        negative = y < 0
+        if (not negative.any() or np.mean(~negative) < MOSTLY_NONNEGATIVE
+                or not np.all(y == np.round(y)) or np.median(y) <= 0):
+            continue
+        row = int(np.flatnonzero(negative)[0])
+        where = (f"data row {row + 1}" if row < lost
+                 else _row_label(series.calendar.index, row - lost, first=lost + 1))
+        share = np.floor(100 * np.mean(~negative))
+        return (f"series {name!r} has {int(negative.sum())} negative value(s), the first "
+                f"{y[row]:g} at {where}, though {share:.0f}% "
+                "of its values are >= 0; in demand data a negative value is usually an error "
+                "(e.g. returns booked as negative sales): check the data. The model uses "
+                "the values as given")
+    return None
 
 
 def future_exogenous_rows(

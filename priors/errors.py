@@ -21,6 +21,7 @@ The tree::
 
     ConvergenceWarning (UserWarning)           an optimiser stopped at a bound or failed
     ShortHistoryWarning (UserWarning)          few rows for the coefficients of the lags
+    NegativeValuesWarning (UserWarning)        a few negative values in counts (demand?)
 
 Every message says what was found and what to change. The service maps each class to
 an RFC 9457 problem response in one place (``service/errors.py``).
@@ -39,6 +40,7 @@ __all__ = [
     "ExogenousError",
     "ExplosiveDataError",
     "MissingValuesError",
+    "NegativeValuesWarning",
     "NonNumericError",
     "NonPositiveValuesError",
     "NotFittedError",
@@ -140,3 +142,9 @@ class ConvergenceWarning(UserWarning):
 class ShortHistoryWarning(UserWarning):
     """The estimation sample is short for the number of coefficients of the chosen lags,
     so the prior, not the data, decides most of them."""
+
+
+class NegativeValuesWarning(UserWarning):
+    """A series of whole numbers that is almost never negative has a few negative
+    values: if it is demand, likely a data error (e.g. returns booked as negative
+    sales). The model uses the values as given."""

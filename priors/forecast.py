@@ -118,8 +118,10 @@ class Forecast:
         return np.datetime_as_string(self.dates.to_numpy(), unit="D").tolist()
 
     def to_frame(self, levels: Sequence[float] = (0.05, 0.5, 0.95)) -> pd.DataFrame:
-        """Tidy table: one row per series and step with mean, median and quantiles."""
+        """Tidy table: one row per series and step with mean, median and quantiles (the
+        0.5 level is the median column, not a second column with the same numbers)."""
         q = check_quantiles(levels)
+        q = q[q != 0.5]
         qs = self.quantiles(q)
         mean, med = self.mean(), self.median()
         steps = self.steps()

@@ -8,6 +8,7 @@ from __future__ import annotations
 
 import dataclasses
 import inspect
+import warnings
 from collections.abc import Callable, Mapping, Sequence
 from dataclasses import dataclass
 
@@ -38,7 +39,9 @@ from .data import (
 from .errors import (
     DataError,
     ExogenousError,
+    NegativeValuesWarning,
     NotFittedError,
+    ShortHistoryWarning,
     SpecificationError,
     TimeIndexError,
     TooFewObservationsError,
@@ -94,6 +97,16 @@ def _bic(design: Design) -> float:
     _, logdet = np.linalg.slogdet(E.T @ E / T)
     return float(logdet + np.log(T) / T * design.n * design.k)
 
+
+
+def _advice(series: SeriesData, design: Design) -> list[tuple[str, type[Warning]]]:
+    """Advice about the fitted data: negative values in what looks like demand, a short
+    history for the lag order (messages and their warning classes)."""
+    from .data import check_history, negative_values_message
+
+    found = [(negative_values_message(series), NegativeValuesWarning),
+             (check_history(design), ShortHistoryWarning)]
+    return [(message, category) for message, category in found if message]
 
 class FanfoldVAR(GibbsParts, PosteriorSummaries):
     """Bayesian VAR with a natural-conjugate Minnesota prior.
@@ -344,11 +357,18 @@ class FanfoldVAR(GibbsParts, PosteriorSummaries):
         period: int | None = None,
         rng: np.random.Generator | None = None,
         progress: Callable[[int, int], None] | None = None,
+        warn: bool = True,
     ) -> FanfoldVAR:
         """Fit to ``data`` (T, n): a DataFrame with a regular DatetimeIndex or an array.
 
         ``rng`` and ``progress(done, total)`` are used by the Gibbs sampler of
         ``prior="independent"`` (required there; the same seed gives the same draws).
+
+        Advice about the data (a short history for the lag order, negative values in
+        what looks like demand) is kept in ``warnings_`` (plain messages) and, with
+        ``warn=True``, also issued as Python warnings (:class:`ShortHistoryWarning`,
+        :class:`NegativeValuesWarning`). A server passes ``warn=False`` and reports
+        ``warnings_`` in its answer: no process-wide warning filter is needed.
 
         The last rows may be incomplete (a "ragged edge": some series not yet known for
         the latest periods). The model is fitted on the complete rows, and forecasts
@@ -367,8 +387,11 @@ class FanfoldVAR(GibbsParts, PosteriorSummaries):
         if self.prior == "flat" and self.lags == "auto":
             lags, table = self._bic_lags(series, det)
         design = build_design(series, lags, det)
-        from .data import warn_short_history  # the chosen order only, not the search's
-        warn_short_history(design)
+        # once, on the data and lag order fitted (not for each candidate of the search)
+        advice = _advice(series, design)
+        self.warnings_ = [message for message, _ in advice]
+        for message, category in advice if warn else ():
+            warnings.warn(message, category, stacklevel=2)
         if self.prior == "flat":
             hyper, prior, post = None, None, flat_posterior(design)
         else:
@@ -469,6 +492,7 @@ class FanfoldVAR(GibbsParts, PosteriorSummaries):
         model.deterministics_ = det
         model.prior_mean_ = prior_mean
         model.design_ = design
+        model.warnings_ = [message for message, _ in _advice(series, design)]
         model.lags_ = int(lags)
         model.lag_search_ = []
         model.configuration_ = (None if configuration is None
@@ -551,6 +575,7 @@ class FanfoldVAR(GibbsParts, PosteriorSummaries):
         model.deterministics_ = self.deterministics_
         model.prior_mean_ = self.prior_mean_
         model.design_ = design
+        model.warnings_ = [message for message, _ in _advice(series, design)]
         model.lags_ = self.lags_
         model.lag_search_ = self.lag_search_
         model.configuration_ = self.configuration_

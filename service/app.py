@@ -2,16 +2,19 @@
 
 from __future__ import annotations
 
+import functools
 from collections.abc import AsyncIterator
 from contextlib import asynccontextmanager
+from importlib.resources import files
 from typing import Any
 
-from fastapi import Depends, FastAPI
+from fastapi import Depends, FastAPI, Response
 from fastapi.concurrency import run_in_threadpool
 from fastapi.middleware.cors import CORSMiddleware
 from fastapi.openapi.docs import get_swagger_ui_html
 from fastapi.openapi.utils import get_openapi
 from fastapi.responses import HTMLResponse, JSONResponse
+from starlette.exceptions import HTTPException
 
 from priors import warm_up_kernels
 
@@ -138,6 +141,21 @@ def _limits(settings: Settings) -> str:
     return head + "\n\n" + "\n".join(f"- {what}: {value} (`{env}`)" for what, value, env in rows)
 
 
+SWAGGER_UI_VERSION = "5.35.0"  # service/static/docs/VENDORED.md
+
+
+@functools.cache
+def _asset(name: str) -> bytes:
+    return (files("service.static") / "docs" / name).read_bytes()
+
+
+_DOCS_ASSETS = {
+    name: (media, functools.partial(_asset, name)) for name, media in (
+        ("swagger-ui-bundle.js", "text/javascript"), ("swagger-ui.css", "text/css"),
+        ("favicon-32x32.png", "image/png"))
+}
+
+
 def _add_docs(app: FastAPI, dependencies: list[Any]) -> None:
     @app.get("/openapi.json", include_in_schema=False, dependencies=dependencies)
     def openapi_document() -> JSONResponse:
@@ -145,7 +163,21 @@ def _add_docs(app: FastAPI, dependencies: list[Any]) -> None:
 
     @app.get("/docs", include_in_schema=False, dependencies=dependencies)
     def docs() -> HTMLResponse:
-        return get_swagger_ui_html(openapi_url="/openapi.json", title="Fanfold API")
+        # the page's scripts come from this server (service/static/docs), not from a
+        # public web address: /docs works offline and leaks nothing
+        return get_swagger_ui_html(openapi_url="/openapi.json", title="Fanfold API",
+                                   swagger_js_url="/docs/assets/swagger-ui-bundle.js",
+                                   swagger_css_url="/docs/assets/swagger-ui.css",
+                                   swagger_favicon_url="/docs/assets/favicon-32x32.png")
+
+    @app.get("/docs/assets/{name}", include_in_schema=False, dependencies=dependencies)
+    def docs_asset(name: str) -> Response:
+        if name not in _DOCS_ASSETS:
+            raise HTTPException(404, f"no asset {name!r}")
+        media, data = _DOCS_ASSETS[name]
+        return Response(data(), media_type=media,
+                        headers={"Cache-Control": "public, max-age=86400, immutable",
+                                 "ETag": f'"swagger-ui-{SWAGGER_UI_VERSION}-{name}"'})
 
 
 def _openapi(app: FastAPI) -> dict[str, object]:

@@ -24,11 +24,25 @@ from typing import Any, NoReturn
 import numpy as np
 import pandas as pd
 
-from priors import TRANSFORMS, ConvergenceWarning, FanfoldVAR, PriorsError, SpecificationError
+from priors import (
+    TRANSFORMS,
+    ConvergenceWarning,
+    FanfoldVAR,
+    NegativeValuesWarning,
+    PriorsError,
+    SpecificationError,
+)
 from priors.model import default_max_lags
 
 from .engine import blas_threads, simulate_forecast
-from .serialization import forecast_to_dict, frame_from_csv, quantile_key, summary_to_dict
+from .serialization import (
+    convergence_summary,
+    convergence_warnings,
+    forecast_to_dict,
+    frame_from_csv,
+    quantile_key,
+    summary_to_dict,
+)
 from .tables import format_backtest, format_fit, format_forecast, format_ranking
 
 __all__ = ["InputError", "UsageError", "build_parser", "main", "read_data"]
@@ -45,20 +59,30 @@ class InputError(Exception):
     """A data file that cannot be read, or an output file that cannot be written (1)."""
 
 
+#: the seed rule of every command that draws random numbers
+SEED_RULE = ("default: a fresh random seed, printed with the output, so --seed with it "
+             "repeats the numbers exactly")
+SEED_HELP = f"random seed; {SEED_RULE}"
+
 def _one_line(text: object) -> str:
     return " ".join(str(text).split())
 
 
-def read_data(path: str) -> pd.DataFrame:
-    """The series in the CSV file at ``path``, see :func:`frame_from_csv`."""
+def read_text_file(path: str, what: str) -> str:
+    """The text of the file at ``path`` (a byte-order mark dropped); :class:`InputError`
+    naming ``what`` ("data file", "stock file") when it is missing or unreadable."""
     try:
         with open(path, encoding="utf-8-sig", newline="") as fh:
-            text = fh.read()
+            return fh.read()
     except FileNotFoundError:
-        raise InputError(f"data file {path!r} not found") from None
+        raise InputError(f"{what} {path!r} not found") from None
     except (OSError, UnicodeDecodeError) as exc:
-        raise InputError(f"cannot read data file {path!r}: {_one_line(exc)}") from exc
-    return frame_from_csv(text)
+        raise InputError(f"cannot read {what} {path!r}: {_one_line(exc)}") from exc
+
+
+def read_data(path: str, *, dayfirst: bool = False) -> pd.DataFrame:
+    """The series in the CSV file at ``path``, see :func:`frame_from_csv`."""
+    return frame_from_csv(read_text_file(path, "data file"), dayfirst=dayfirst)
 
 
 # ---------------------------------------------------------------------- option types
@@ -278,6 +302,17 @@ def _model_options() -> argparse.ArgumentParser:
     return parent
 
 
+def _data_options() -> argparse.ArgumentParser:
+    parent = _Parser(add_help=False)
+    g = parent.add_argument_group("data file options")
+    g.add_argument("--dayfirst", action="store_true",
+                   help="read dates such as 01/02/2024 day first (1 February) instead of "
+                        "month first (2 January, the default unless the first date only "
+                        "reads day first, like 31/01/2024); dates starting with the year "
+                        "(2024-02-01) are read year, month, day either way")
+    return parent
+
+
 def build_parser() -> argparse.ArgumentParser:
     """The ``fanfold`` parser with its commands (the planning ones from
     :mod:`service.cli_planning`)."""
@@ -290,7 +325,7 @@ def build_parser() -> argparse.ArgumentParser:
                              "thread was fastest at every model size on 2-core machines "
                              "(see DEVELOPERS.md, benchmarks)")
     sub = parser.add_subparsers(dest="command", metavar="COMMAND", required=True)
-    common = {"parents": [_model_options()], "formatter_class": _HelpFormatter}
+    common = {"parents": [_data_options(), _model_options()], "formatter_class": _HelpFormatter}
     data_help = "CSV file: a header row, dates in the first column, one column per series"
 
     fc = sub.add_parser("forecast", help="forecast every series with uncertainty bands",
@@ -298,12 +333,14 @@ def build_parser() -> argparse.ArgumentParser:
                         **common)
     fc.add_argument("data", metavar="DATA.csv", help=data_help)
     fc.add_argument("--horizon", type=_positive_int, required=True, metavar="H",
-                    help="number of periods ahead (required)")
+                    help="number of periods after the last date of the file (required). "
+                         "When the last periods are incomplete (some series still empty), "
+                         "they are forecast too, given the values already there, so the "
+                         "output starts with them and has H more; a note on stderr says so")
     fc.add_argument("--draws", type=_positive_int, default=2000, metavar="N",
                     help="simulated paths")
     fc.add_argument("--seed", type=_seed, metavar="S",
-                    help="random seed of the forecast draws and the Gibbs chains (default: "
-                         "a fresh random seed, printed with the output)")
+                    help=f"random seed of the forecast draws and the Gibbs chains; {SEED_RULE}")
     fc.add_argument("--quantiles", type=_quantiles, default="0.05,0.5,0.95", metavar="Q,...",
                     help="comma-separated quantile levels in (0, 1)")
     fc.add_argument("--out", metavar="FILE.csv",
@@ -335,9 +372,9 @@ def build_parser() -> argparse.ArgumentParser:
                           "smallest bulk and tail ESS, and what failed")
     fit.add_argument("--level", type=_level, default=0.9,
                      help="coverage of the coefficients' credible intervals")
-    fit.add_argument("--seed", type=_seed, default=0, metavar="S",
+    fit.add_argument("--seed", type=_seed, metavar="S",
                      help="random seed of the Gibbs chains and of the draws behind the "
-                          "spectral-radius summary")
+                          f"spectral-radius summary; {SEED_RULE}")
     fit.add_argument("--json", action="store_true",
                      help="print the full summary as JSON (implies --summary; "
                           "\"diagnostics\" is null for exact samplers)")
@@ -351,7 +388,8 @@ def build_parser() -> argparse.ArgumentParser:
                        help="address to bind; only loopback while API keys are not configured")
     serve.add_argument("--port", type=_positive_int, default=8000, help="port to listen on")
     serve.add_argument("--workers", type=_positive_int, default=1,
-                       help="worker processes")
+                       help="worker processes; set PROMETHEUS_MULTIPROC_DIR so that "
+                            "/metrics counts for all of them (see deploy/README.md)")
     serve.add_argument("--demo", action="store_true",
                        help="store the bicycle-parts demo model first and print example "
                             "requests")
@@ -375,7 +413,7 @@ def build_parser() -> argparse.ArgumentParser:
     bt.add_argument("--period", type=_positive_int, metavar="P",
                     help="seasonal period for the seasonal-naive benchmark (e.g. 12); "
                          "default: off")
-    bt.add_argument("--seed", type=_seed, default=0, metavar="S", help="random seed")
+    bt.add_argument("--seed", type=_seed, metavar="S", help=SEED_HELP)
     bt.add_argument("--candidate", action="append", type=_candidate, metavar="NAME:K=V,...",
                     help="compare settings instead: each candidate is the model options "
                          "above changed by K=V pairs (e.g. 'short:lags=2' or "
@@ -470,7 +508,7 @@ def _fitted(args: argparse.Namespace) -> FanfoldVAR:
     from --seed; without one, a fresh seed is drawn and kept in ``args.seed``, so the seed
     printed with the output reproduces the fit as well as the draws."""
     model = FanfoldVAR(**_model_params(args))
-    data = read_data(args.data)
+    data = read_data(args.data, dayfirst=args.dayfirst)
     if not _uses_gibbs(args):
         return model.fit(data)
     if getattr(args, "seed", None) is None:
@@ -484,8 +522,35 @@ def _json(payload: dict[str, Any]) -> str:
     return json.dumps(payload, indent=2, allow_nan=False)
 
 
+def _incomplete_note(model: FanfoldVAR, horizon: int) -> str | None:
+    """A note that the last periods of the data are incomplete and forecast too, or
+    None."""
+    ragged = model.ragged_
+    if ragged is None:
+        return None
+    r = ragged.values.shape[0]
+    names = model.series_.names
+    unknown = [nm for j, nm in enumerate(names) if np.isnan(ragged.values[:, j]).any()]
+    dates = model.series_.calendar.future(r)
+    if dates is None:
+        last = model.series_.levels.shape[0]
+        span = f"data rows {last + 1} to {last + r}" if r > 1 else f"data row {last + 1}"
+    else:
+        span = (f"{dates[0].date()} to {dates[-1].date()}" if r > 1
+                else str(dates[0].date()))
+    which = "the last period" if r == 1 else f"the last {r} periods"
+    who = ", ".join(unknown[:-1]) + " and " + unknown[-1] if len(unknown) > 1 else unknown[0]
+    return (f"{which} ({span}) {'is' if r == 1 else 'are'} incomplete: {who} "
+            f"{'is' if len(unknown) == 1 else 'are'} not known yet; forecasting "
+            f"{'it' if r == 1 else 'them'} plus {horizon} period{'s' if horizon > 1 else ''} "
+            "ahead")
+
+
 def _forecast(args: argparse.Namespace) -> str:
     model = _fitted(args)
+    note = _incomplete_note(model, args.horizon)
+    if note:
+        print(f"fanfold: note: {note}", file=sys.stderr)
     seed = secrets.randbits(32) if args.seed is None else args.seed
     fc, totals = simulate_forecast(
         model, horizon=args.horizon, draws=args.draws, seed=seed,
@@ -493,6 +558,9 @@ def _forecast(args: argparse.Namespace) -> str:
         quantiles=args.quantiles, cumulative=args.cumulative)
     if args.out:
         table = fc.to_frame(args.quantiles)
+        # say in the file itself whether its numbers are per period or running totals
+        table.insert(3, "values", "running total from step 1" if args.cumulative
+                     else "per period")
         try:
             table.to_csv(args.out, index=False)
         except OSError as exc:
@@ -502,7 +570,10 @@ def _forecast(args: argparse.Namespace) -> str:
         from .cli_planning import plot_forecast
 
         plot_forecast(args.plot, model, fc, cumulative=args.cumulative)
-    payload = forecast_to_dict(model, fc, quantiles=args.quantiles, seed=seed, draws=args.draws)
+    payload = forecast_to_dict(model, fc, quantiles=args.quantiles, seed=seed, draws=args.draws,
+                               convergence=convergence_summary(model))
+    for warning in convergence_warnings(payload["convergence"]):  # the data's advice is
+        print(f"fanfold: warning: {warning}", file=sys.stderr)  # a Python warning already
     payload["cumulative"] = bool(args.cumulative)
     payload["lead_time_totals"] = totals
     return _json(payload) if args.json else format_forecast(payload)
@@ -513,6 +584,7 @@ def _fit(args: argparse.Namespace) -> str:
     payload = summary_to_dict(model, args.level, rng=np.random.default_rng(args.seed))
     report = model.convergence()  # None for exact samplers
     payload["diagnostics"] = None if report is None else report.summary()
+    payload["seed"] = args.seed
     if args.json:
         return _json(payload)
     sampler = None
@@ -526,7 +598,7 @@ def _fit(args: argparse.Namespace) -> str:
 def _backtest(args: argparse.Namespace) -> str:
     from priors.backtest import rolling_origin
 
-    frame = read_data(args.data)
+    frame = read_data(args.data, dayfirst=args.dayfirst)
     params = _model_params(args)
     benchmarks = ("ols_var", "random_walk") + (("seasonal_naive",) if args.period else ())
     if args.prior == "flat":
@@ -542,7 +614,7 @@ def _backtest(args: argparse.Namespace) -> str:
                               draws=args.draws, coverage=args.coverage, workers=args.workers)
         if args.json:
             return _json({"ranking": table.to_dict(orient="records")})
-        return format_ranking(table)
+        return format_ranking(table, seed=args.seed)
     extra = None
     if args.ets:
         import functools
@@ -560,28 +632,29 @@ def _backtest(args: argparse.Namespace) -> str:
     if args.report:
         from .report import backtest_report
 
-        dates = frame.index if isinstance(frame.index, pd.DatetimeIndex) else None
         page = backtest_report(result, title=f"Fanfold backtest of {args.data}",
                                settings={"origins": args.origins, "horizon": args.horizon,
                                          "draws": args.draws, "seed": args.seed,
                                          **{k: v for k, v in params.items() if v is not None}},
-                               dates=dates)
+                               data=frame)
         try:
             with open(args.report, "w", encoding="utf-8") as fh:
                 fh.write(page)
         except OSError as exc:
             raise InputError(f"cannot write {args.report!r}: {_one_line(exc)}") from exc
         print(f"fanfold: wrote {args.report}", file=sys.stderr)
-    logs = result.log_scores()
+    logs, energy, calibration = result.log_scores(), result.energy_scores(), _calibration(result)
     if args.json:
         return _json({"origins": len(result.origins), "horizon": args.horizon,
                       "coverage": args.coverage, "seed": args.seed,
                       "scores": scores.to_dict(orient="records"),
                       "log_scores": logs.to_dict(orient="records"),
-                      "energy_scores": result.energy_scores().to_dict(orient="records"),
+                      "energy_scores": energy.to_dict(orient="records"),
                       "dm_tests": result.dm_tests().to_dict(orient="records"),
-                      "calibration": _calibration(result)})
-    return format_backtest(scores, args.coverage, logs, result.dm_tests())
+                      "calibration": calibration})
+    return format_backtest(scores, args.coverage, logs, result.dm_tests(),
+                           energy_scores=energy, calibration=calibration,
+                           origins=len(result.origins), seed=args.seed)
 
 
 def _calibration(result: Any) -> list[dict[str, Any]]:
@@ -589,6 +662,17 @@ def _calibration(result: Any) -> list[dict[str, Any]]:
     if len(result.origins) < 10:
         return []
     return result.pit_tests().to_dict(orient="records")
+
+
+def _database_place(settings: Any) -> str:
+    """Where the service keeps its data, in words: the SQLite file's absolute path, or
+    the database URL without its password."""
+    from sqlalchemy.engine import make_url
+
+    url = make_url(settings.database_url)
+    if url.get_backend_name() == "sqlite" and url.database not in (None, "", ":memory:"):
+        return f"the SQLite file {os.path.abspath(url.database)}"
+    return f"the database {url.render_as_string(hide_password=True)}"
 
 
 def _serve(args: argparse.Namespace) -> str:
@@ -611,12 +695,19 @@ def _serve(args: argparse.Namespace) -> str:
               else "loopback only: no API keys configured")
     print(f"fanfold: serving on http://{args.host}:{args.port} ({access}); docs at /docs",
           file=sys.stderr, flush=True)
+    print(f"fanfold: models and jobs are stored in {_database_place(get_settings())} "
+          "(set FANFOLD_DATABASE_URL to choose)", file=sys.stderr, flush=True)
     if args.demo:
         print(_store_demo(f"http://{_url_host(args.host)}:{args.port}"), flush=True)
     from .logs import configure_logging
 
     configure_logging()  # this process (the supervisor with --workers > 1)
     from .http_protocol import NoDelayHTTPProtocol
+    from .metrics import prepare_multiprocess_dir
+
+    # PROMETHEUS_MULTIPROC_DIR set: workers share metrics files there (service/metrics.py);
+    # created, and emptied of the last run's files, before any worker starts
+    prepare_multiprocess_dir()
 
     uvicorn.run("service.app:served_app", factory=True, host=args.host, port=args.port,
                 workers=args.workers, log_config=None, timeout_graceful_shutdown=20,
@@ -683,10 +774,20 @@ def _new_key(args: argparse.Namespace) -> str:
             f"{entry.model_dump_json()}")
 
 
+def _resolve_seed(args: argparse.Namespace) -> None:
+    """The one seed rule of every command (:data:`SEED_RULE`): without --seed, draw a
+    fresh seed now; each command's output says which, so the run can be repeated."""
+    if not hasattr(args, "seed") or args.seed is not None:
+        return
+    args.seed = secrets.randbits(32)
+
+
 def _run(args: argparse.Namespace) -> str:
     """Run the command; warnings (e.g. tuning at a bound) become one-line notes, each once."""
+    _resolve_seed(args)
     with warnings.catch_warnings(record=True) as caught, blas_threads(args.blas_threads):
         warnings.simplefilter("always", ConvergenceWarning)
+        warnings.simplefilter("always", NegativeValuesWarning)
         try:
             return args.run(args)
         finally:

@@ -13,11 +13,13 @@ from __future__ import annotations
 
 import argparse
 import contextlib
+import csv
 import datetime as dt
+import io
 import math
 import re
 import sys
-from collections.abc import Callable, Iterator
+from collections.abc import Callable, Iterator, Sequence
 from dataclasses import dataclass
 from typing import Any, NoReturn
 
@@ -29,6 +31,7 @@ from priors import FanfoldVAR, Forecast
 from priors.scenarios import Scenario
 
 from .cli import (
+    SEED_HELP,
     InputError,
     UsageError,
     _fail,
@@ -40,6 +43,7 @@ from .cli import (
     _quantiles,
     _seed,
     read_data,
+    read_text_file,
 )
 from .config import Settings
 from .errors import LimitExceeded
@@ -60,6 +64,10 @@ SET_FORM = ("SERIES@WHEN=VALUE or SERIES@WHEN=LO:HI, WHEN a step 1, 2, ... or a 
 STOCK_FORM = "NAME=ON_HAND[,ON_ORDER[,BACKORDERS]], NAME a series or a+b; e.g. tyres=2100,900"
 QUANTITY_FORM = "NAME=Q with Q > 0, NAME as in --stock; e.g. tyres=500"
 ALERT_FORM = "NAME>THRESHOLD or NAME<THRESHOLD; e.g. 'brake_pads>1000'"
+STOCK_FILE_REQUIRED = ("item", "on_hand", "on_order")
+STOCK_FILE_OPTIONAL = ("backorders", "lot_size")
+STOCK_FILE_FORM = (f"a CSV file with a header row and columns {', '.join(STOCK_FILE_REQUIRED)} "
+                   f"and optionally {', '.join(STOCK_FILE_OPTIONAL)}")
 
 
 def _limits() -> Settings:
@@ -184,8 +192,7 @@ def _add_sampling(parser: argparse.ArgumentParser, *, draws: int, quantiles: str
     """--draws, --seed (fresh by default) and --quantiles, shared by scenario and reorder."""
     parser.add_argument("--draws", type=_positive_int, default=draws, metavar="N",
                         help="simulated paths")
-    parser.add_argument("--seed", type=_seed, metavar="S", help="random seed (default: a "
-                        "fresh random seed, printed with the output)")
+    parser.add_argument("--seed", type=_seed, metavar="S", help=SEED_HELP)
     parser.add_argument("--quantiles", type=_quantiles, default="0.05,0.5,0.95",
                         metavar="Q,...", help=quantiles)
 
@@ -247,7 +254,7 @@ def add_planning_commands(sub: Any, *, parents: list[argparse.ArgumentParser],
                          "horizon)")
     sh.add_argument("--draws", type=_positive_int, default=1000, metavar="N",
                     help="posterior draws")
-    sh.add_argument("--seed", type=_seed, default=0, metavar="S", help="random seed")
+    sh.add_argument("--seed", type=_seed, metavar="S", help=SEED_HELP)
     sh.add_argument("--bands", type=_bands, default="68,90", metavar="P,...",
                     help="central credible bands in percent")
     sh.add_argument("--json", action="store_true",
@@ -277,6 +284,11 @@ def add_planning_commands(sub: Any, *, parents: list[argparse.ArgumentParser],
                     metavar="NAME=ON_HAND[,ON_ORDER[,BACKORDERS]]",
                     help="an item, repeatable: its stock; NAME a series or a+b for the sum "
                          "of several (e.g. a kit)")
+    ro.add_argument("--stock-file", metavar="POSITIONS.csv",
+                    help="items from a CSV file, one per row, beside any --stock: columns "
+                         "item (a series, or a+b for a kit), on_hand, on_order, and "
+                         "optionally backorders (blank: 0) and lot_size (the suggested "
+                         "order is rounded up to whole lots; blank: none) (default: none)")
     target = ro.add_mutually_exclusive_group()
     target.add_argument("--service-level", type=_level, metavar="P",
                         help="probability of no stock-out in a cycle, for every item "
@@ -303,9 +315,10 @@ _FIELDS = {"conditions": "--set/--plan condition", "items": "--stock item",
            "alerts": "--alert", "request": "request"}
 
 
-def _request(cls: type[BaseModel], **fields: Any) -> Any:
+def _request(cls: type[BaseModel], *, item_labels: Sequence[str] = (), **fields: Any) -> Any:
     """``cls(**fields)``; a validation error becomes a one-line usage error naming the
-    option."""
+    option (``item_labels``: where each of the ``items`` came from, when not all from
+    --stock)."""
     try:
         return cls(**fields)
     except ValidationError as exc:
@@ -313,7 +326,12 @@ def _request(cls: type[BaseModel], **fields: Any) -> Any:
         loc = [str(p) for p in err["loc"]] or ["request"]
         where = _FIELDS.get(loc[0], "--" + loc[0].replace("_", "-"))
         if len(loc) > 1 and loc[1].isdigit():
-            where += f" {int(loc[1]) + 1}" + "".join(f", {p}" for p in loc[2:])
+            k = int(loc[1])
+            if loc[0] == "items" and k < len(item_labels):
+                where = item_labels[k]
+            else:
+                where += f" {k + 1}"
+            where += "".join(f", {p}" for p in loc[2:])
         message = _one_line(err["msg"]).removeprefix("Value error, ")
         raise UsageError(f"{where}: {message}") from None
 
@@ -381,9 +399,10 @@ def _set_conditions(model: FanfoldVAR, args: argparse.Namespace) -> list[dict[st
     return out
 
 
-def _plan_conditions(path: str, model: FanfoldVAR) -> list[dict[str, Any]]:
+def _plan_conditions(path: str, model: FanfoldVAR, *, dayfirst: bool = False
+                     ) -> list[dict[str, Any]]:
     """Fixed values from a plan file: every non-blank cell, by date."""
-    plan = read_data(path)
+    plan = read_data(path, dayfirst=dayfirst)
     names = model.series_.names
     out = []
     for column in plan.columns:
@@ -408,7 +427,7 @@ def _scenario(args: argparse.Namespace) -> str:
     model = _fitted(args)
     conditions = _set_conditions(model, args)
     if args.plan:
-        conditions += _plan_conditions(args.plan, model)
+        conditions += _plan_conditions(args.plan, model, dayfirst=args.dayfirst)
     if not conditions:
         raise no_conditions
     spec = _request(ScenarioCreate, horizon=args.horizon, draws=args.draws, seed=args.seed,
@@ -472,22 +491,131 @@ def _item_series(model: FanfoldVAR, name: str) -> str | list[str]:
     return [part.strip() for part in name.split("+")]
 
 
+@dataclass(frozen=True)
+class StockRow:
+    """An item of a ``--stock-file``: its name (a series or a+b), on hand, on order,
+    backorders, lot size (None: none) and its data row (the first after the header is 1).
+    """
+
+    name: str
+    numbers: tuple[float, float, float]
+    lot_size: float | None
+    row: int
+
+    @property
+    def where(self) -> str:
+        return f"data row {self.row} ({self.name})"
+
+
+def _read_stock_file(path: str) -> list[StockRow]:
+    """The items of a ``--stock-file``; an :class:`~service.cli.InputError` naming the
+    file, data row (the first row after the header is data row 1) and column for anything
+    it cannot use."""
+    text = read_text_file(path, "stock file")
+
+    def bad(message: str) -> NoReturn:
+        raise InputError(f"stock file {path!r}: {message}")
+
+    try:
+        rows = list(csv.reader(io.StringIO(text)))
+    except csv.Error as exc:
+        bad(f"not readable as CSV ({_one_line(exc)}); expected {STOCK_FILE_FORM}")
+    while rows and not any(c.strip() for c in rows[0]):
+        rows.pop(0)
+    if not rows:
+        bad(f"the file is empty; expected {STOCK_FILE_FORM}")
+    header = [c.strip().lower() for c in rows[0]]
+    known = STOCK_FILE_REQUIRED + STOCK_FILE_OPTIONAL
+    for column in header:
+        if column not in known or header.count(column) > 1:
+            problem = "is not a known column" if column not in known else "appears twice"
+            bad(f"column {column!r} {problem}; expected {STOCK_FILE_FORM}")
+    missing = [c for c in STOCK_FILE_REQUIRED if c not in header]
+    if missing:
+        bad(f"no {missing[0]!r} column; expected {STOCK_FILE_FORM}")
+    out: dict[str, StockRow] = {}
+    for number, row in enumerate(rows[1:], start=1):
+        if not any(c.strip() for c in row):
+            continue  # a blank line
+        if len(row) != len(header):
+            bad(f"data row {number} has {len(row)} cells for {len(header)} columns")
+        cells = {c: v.strip() for c, v in zip(header, row, strict=True)}
+        name = cells["item"]
+        if not name or not all(part.strip() for part in name.split("+")):
+            bad(f"data row {number}: item {name!r} is not a series name or names joined "
+                "by '+'")
+        where = f"data row {number} ({name})"
+        if name in out:
+            bad(f"{where}: the item is also on data row {out[name].row}; give each item once")
+        values: dict[str, float | None] = {}
+        for column in known[1:]:
+            cell = cells.get(column, "")
+            if not cell:
+                if column in STOCK_FILE_REQUIRED:
+                    bad(f"{where}: {column} is empty; give a number >= 0")
+                values[column] = None
+                continue
+            try:
+                value = float(cell)
+            except ValueError:
+                value = math.nan
+            if not math.isfinite(value):
+                bad(f"{where}: {column} {cell!r} is not a number")
+            if value < 0 or (column == "lot_size" and value == 0):
+                bound = "> 0" if column == "lot_size" else ">= 0"
+                bad(f"{where}: {column} is {cell}; it must be {bound}")
+            values[column] = value
+        numbers = (values["on_hand"] or 0.0, values["on_order"] or 0.0,
+                   values["backorders"] or 0.0)
+        out[name] = StockRow(name, numbers, values["lot_size"], number)
+    if not out:
+        bad(f"no items below the header; expected {STOCK_FILE_FORM}")
+    return list(out.values())
+
+
+def _check_stock_series(model: FanfoldVAR, path: str, rows: Sequence[StockRow]) -> None:
+    names = model.series_.names
+    for row in rows:
+        parts = _item_series(model, row.name)
+        for part in [parts] if isinstance(parts, str) else parts:
+            if part not in names:
+                raise InputError(f"stock file {path!r}: {row.where}: unknown series "
+                                 f"{part!r}; series are {', '.join(names)}")
+
+
 def _reorder(args: argparse.Namespace) -> str:
     stocks = dict(args.stocks or ())
     if len(stocks) < len(args.stocks or ()):
         raise UsageError("each --stock NAME may be given once")
-    if not stocks and not args.alerts:
-        raise UsageError(f"give at least one --stock {STOCK_FORM} or --alert {ALERT_FORM}")
+    labels = [f"--stock item {k + 1}" for k in range(len(stocks))]
     quantities = dict(args.quantities or ())
+    file_rows = _read_stock_file(args.stock_file) if args.stock_file else []
+    for row in file_rows:
+        if row.name in stocks:
+            raise UsageError(f"item {row.name!r} is in --stock and in the stock file "
+                             f"({row.where}); give it once")
+        if row.lot_size is not None and row.name in quantities:
+            raise UsageError(f"--order-quantity {row.name!r}: the stock file gives its "
+                             f"lot_size ({row.where}); give it once")
+        stocks[row.name] = row.numbers
+        labels.append(f"stock file {args.stock_file!r}, {row.where}")
+    quantities.update({row.name: row.lot_size for row in file_rows
+                       if row.lot_size is not None})
+    if not stocks and not args.alerts:
+        raise UsageError(f"give at least one --stock {STOCK_FORM}, a --stock-file or an "
+                         f"--alert {ALERT_FORM}")
     extra = [q for q in quantities if q not in stocks]
     if extra:
         raise UsageError(f"--order-quantity {extra[0]!r} names no --stock item; expected "
                          f"{QUANTITY_FORM}")
     missing = [s for s in stocks if s not in quantities]
     if args.fill_rate is not None and missing:
-        raise UsageError(f"--fill-rate needs --order-quantity for every item; missing "
-                         f"for {missing[0]!r} (expected {QUANTITY_FORM})")
+        raise UsageError(f"--fill-rate needs --order-quantity (or a lot_size in the stock "
+                         f"file) for every item; missing for {missing[0]!r} (expected "
+                         f"{QUANTITY_FORM})")
     model = _fitted(args)
+    if file_rows:
+        _check_stock_series(model, args.stock_file, file_rows)
     service_level = 0.95 if args.fill_rate is None and args.service_level is None \
         else args.service_level
     items = [{"series": _item_series(model, name), "name": name,
@@ -495,7 +623,7 @@ def _reorder(args: argparse.Namespace) -> str:
               "service_level": service_level, "fill_rate": args.fill_rate,
               "order_quantity": quantities.get(name)}
              for name, numbers in stocks.items()]
-    spec = _request(ReplenishmentCreate, lead_time=args.lead_time,
+    spec = _request(ReplenishmentCreate, item_labels=labels, lead_time=args.lead_time,
                     review_period=args.review_period, start=args.start, items=items,
                     alerts=args.alerts or [], quantiles=list(args.quantiles),
                     draws=args.draws, seed=args.seed)

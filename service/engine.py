@@ -40,7 +40,7 @@ from .limits import (
     lags_and_terms,
 )
 from .schemas import ForecastSettings, ModelSettings, OutputSettings, SeriesData
-from .serialization import forecast_to_dict, quantile_key
+from .serialization import convergence_summary, forecast_to_dict, quantile_key
 
 __all__ = [
     "Fitted",
@@ -198,10 +198,13 @@ def fit_model(spec: ModelSettings, frame: pd.DataFrame, limits: Settings,
     total)`` is called as they run and may raise to stop the fit."""
     check_model_limits(spec, frame.shape[1], frame.shape[0], limits)
     model = FanfoldVAR(**model_params(spec))
+    # advice about the data goes into the answer (model.warnings_), not through Python's
+    # warning machinery, whose filters are process-wide
     if not spec.uses_gibbs:
-        return Fitted(model.fit(frame), None)
+        return Fitted(model.fit(frame, warn=False), None)
     seed = _fresh_seed(spec.seed)
-    return Fitted(model.fit(frame, rng=np.random.default_rng(seed), progress=progress), seed)
+    return Fitted(model.fit(frame, rng=np.random.default_rng(seed), progress=progress,
+                            warn=False), seed)
 
 
 def append_observations(model: FanfoldVAR, old: pd.DataFrame, new: pd.DataFrame, *,
@@ -241,8 +244,10 @@ def simulate_forecast(model: FanfoldVAR, *, horizon: int, draws: int, seed: int,
 
 
 def forecast_answer(model: FanfoldVAR, spec: OutputSettings, limits: Settings, *,
-                    admission: Admission | None = None) -> dict[str, Any]:
-    """Forecast from a fitted model; the answer in the layout of :func:`forecast_to_dict`."""
+                    admission: Admission | None = None,
+                    convergence: dict[str, Any] | None = None) -> dict[str, Any]:
+    """Forecast from a fitted model; the answer in the layout of :func:`forecast_to_dict`.
+    ``convergence``: the sampled model's stored R-hat/ESS summary (computed when None)."""
     check_output_limits(horizon=spec.horizon, draws=spec.draws, quantiles=len(spec.quantiles),
                         n=model.design_.n, limits=limits)
     admit_forecast(admission, model, draws=spec.draws, horizon=spec.horizon)
@@ -251,7 +256,10 @@ def forecast_answer(model: FanfoldVAR, spec: OutputSettings, limits: Settings, *
         model, horizon=spec.horizon, draws=spec.draws, seed=seed,
         reject_explosive=spec.reject_explosive, lead_time=spec.lead_time,
         quantiles=spec.quantiles, cumulative=spec.cumulative)
-    payload = forecast_to_dict(model, fc, quantiles=spec.quantiles, seed=seed, draws=spec.draws)
+    if convergence is None:
+        convergence = convergence_summary(model)
+    payload = forecast_to_dict(model, fc, quantiles=spec.quantiles, seed=seed, draws=spec.draws,
+                               convergence=convergence)
     payload["cumulative"] = spec.cumulative
     payload["lead_time_totals"] = totals
     return payload
@@ -280,21 +288,21 @@ def run_forecast(spec: ForecastSettings, frame: pd.DataFrame, limits: Settings, 
     check_model_limits(spec, n, T, limits)
     check_output_limits(horizon=spec.horizon, draws=spec.draws, quantiles=len(spec.quantiles),
                         n=n, limits=limits)
-    if admission is not None:
-        p, m = lags_and_terms(spec)
-        fit_s = fit_seconds(spec, n, T)
-        sim_s = forecast_seconds(Shape.of(n, p, m), draws=spec.draws, horizon=spec.horizon)
-        field = (gibbs_work(spec, n)[1] or "lags") if fit_s > sim_s else "draws"
-        admission.admit(fit_s + sim_s, field, "lower draws, horizon or lags (or keep and "
-                        "burn); or store the model with POST /v1/models (large fits run "
-                        "as jobs) and forecast it with POST /v1/models/{id}/forecasts")
-    work, field = gibbs_work(spec, frame.shape[1])
+    work, field = gibbs_work(spec, n, T)
     if work > limits.sync_max_gibbs_work:
         raise LimitExceeded(field, (
             f"{field}: this Gibbs fit (work {work:.3g}) is too large to answer at once "
             f"(over {limits.sync_max_gibbs_work:.3g}); store the model with POST /v1/models "
             "(which runs as a job) and forecast it with POST /v1/models/{id}/forecasts, or "
             "lower keep, thin, burn or chains"))
+    if admission is not None:
+        p, m = lags_and_terms(spec)
+        fit_s = fit_seconds(spec, n, T)
+        sim_s = forecast_seconds(Shape.of(n, p, m), draws=spec.draws, horizon=spec.horizon)
+        field = (gibbs_work(spec, n, T)[1] or "lags") if fit_s > sim_s else "draws"
+        admission.admit(fit_s + sim_s, field, "lower draws, horizon or lags (or keep and "
+                        "burn); or store the model with POST /v1/models (large fits run "
+                        "as jobs) and forecast it with POST /v1/models/{id}/forecasts")
     spec = spec.model_copy(update={"seed": _fresh_seed(spec.seed)})
     return forecast_answer(fit_model(spec, frame, limits).model, spec, limits)
 

@@ -84,24 +84,33 @@ def inline_cost(spec: ForecastSettings, n: int, T: int) -> float:
 SWEEP_COST = 50_000
 
 
-def gibbs_work(spec: ModelSettings, n: int) -> tuple[float, str]:
-    """The Gibbs sampler's work, chains x (burn + keep x thin) x (n x k**2 + SWEEP_COST)
-    (k coefficients per equation at the largest lag order), and the setting that drives
-    it most; (0, "") for the exact samplers."""
+def gibbs_work(spec: ModelSettings, n: int, T: int | None = None) -> tuple[float, str]:
+    """The sampler's work, chains x (burn + keep x thin) x (a chain-sweep's units +
+    SWEEP_COST) (k coefficients per equation at the largest lag order; T rows, or 20 k
+    when not known), and the setting that drives it most; (0, "") for the exact
+    samplers. A unit is about 1 ns of one core."""
     if not spec.uses_gibbs:
         return 0.0, ""
     p, m = lags_and_terms(spec)
     k = n * p + m
     field = "burn" if spec.burn > spec.keep * spec.thin else "keep"
     sweeps = spec.chains * (spec.burn + spec.keep * spec.thin)
-    return float(sweeps * (_sweep_units(spec, n, k) + SWEEP_COST)), field
+    rows = 20 * k if T is None else T
+    return float(sweeps * (_sweep_units(spec, n, k, rows) + SWEEP_COST)), field
 
 
-def _sweep_units(spec: ModelSettings, n: int, k: int) -> float:
-    """A chain-sweep's work: n k^2 for the Gibbs sampler; for stochastic volatility one
-    QR of the reweighted data per sweep, ~ T (k + n)^2, counted with T = 20 k (measured
-    12 ms per sweep at n = 20, k = 261, T = 400)."""
-    return float(n * k * k if spec.prior == "independent" else 20 * k * (k + n) ** 2)
+#: stochastic volatility's fixed cost per chain-sweep in units (the log-volatility path
+#: and the reweighted posterior: measured 2-5 ms per sweep at n = 5-10, k = 22-132,
+#: T = 108-118, almost flat in k)
+SV_SWEEP_UNITS = 2_000_000
+
+
+def _sweep_units(spec: ModelSettings, n: int, k: int, T: int) -> float:
+    """A chain-sweep's work: n k^2 for the Gibbs sampler; for stochastic volatility a
+    fixed part plus one QR of the reweighted data, T (k + n)^2."""
+    if spec.prior == "independent":
+        return float(n * k * k)
+    return float(SV_SWEEP_UNITS + T * (k + n) ** 2)
 
 
 def check_model_limits(spec: ModelSettings, n: int, T: int, limits: Settings) -> None:
@@ -118,7 +127,7 @@ def check_model_limits(spec: ModelSettings, n: int, T: int, limits: Settings) ->
     )
     if not spec.uses_gibbs:
         return
-    work, field = gibbs_work(spec, n)
+    work, field = gibbs_work(spec, n, T)
     if work > limits.max_gibbs_work:
         raise LimitExceeded(field, (
             f"{field}: the Gibbs sampler's work, chains x (burn + keep x thin) x (series x "
@@ -137,7 +146,7 @@ def check_model_limits(spec: ModelSettings, n: int, T: int, limits: Settings) ->
 def check_backtest_limits(spec: BacktestCreate, n: int, T: int, limits: Settings) -> None:
     """The model limits, plus the Gibbs work of every origin's refit together."""
     check_model_limits(spec, n, T, limits)
-    work, _ = gibbs_work(spec, n)
+    work, _ = gibbs_work(spec, n, T)
     if work * spec.origins > limits.max_gibbs_work:
         raise LimitExceeded("origins", (
             f"origins: refitting the Gibbs sampler at {spec.origins} origins is "
@@ -235,7 +244,7 @@ def fit_seconds(spec: ModelSettings, n: int, T: int) -> float:
     k = n * p + m
     if spec.uses_gibbs:
         sweeps = spec.chains * (spec.burn + spec.keep * spec.thin)
-        return CALL_S + sweeps * (SWEEP_S + SWEEP_UNIT_S * _sweep_units(spec, n, k))
+        return CALL_S + sweeps * (SWEEP_S + SWEEP_UNIT_S * _sweep_units(spec, n, k, T))
     return CALL_S + _fits(spec, n, p) * (FIT_S + FIT_ROW_S * T * k * k)
 
 

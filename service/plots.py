@@ -1,25 +1,31 @@
-"""PNG charts for the command line: fan charts, scenarios and shock responses.
+"""PNG charts for the command line: fan charts, scenarios, shock responses and the
+forecasts of a backtest.
 
 matplotlib is imported inside the functions with the Agg backend (no display needed),
-as in :mod:`service.report`. Each function writes one PNG to ``path`` and returns the
-figure, already closed (its axes stay readable, e.g. for tests). Values are in the
-series' own units; ``OSError`` from an unwritable path is left to the caller.
+as in :mod:`service.report`. Each function writes one PNG to ``path`` (a file name, or a
+binary file object such as ``io.BytesIO``) and returns the figure, already closed (its
+axes stay readable, e.g. for tests). Values are in the series' own units; ``OSError``
+from an unwritable path is left to the caller.
 """
 
 from __future__ import annotations
 
 import math
-from collections.abc import Sequence
-from typing import Any
+from collections.abc import Mapping, Sequence
+from typing import TYPE_CHECKING, Any, BinaryIO
 
 import numpy as np
 import pandas as pd
 
 from priors import Forecast
+from priors.calendar import calendar_from_index
 from priors.propagation import ShockResponses
 from priors.scenarios import Scenario
 
-__all__ = ["fan_chart_png", "period_name", "responses_png", "scenario_png"]
+if TYPE_CHECKING:
+    from priors.backtest import BacktestResult
+
+__all__ = ["backtest_fan_png", "fan_chart_png", "period_name", "responses_png", "scenario_png"]
 
 _BLUE = "#2f6db5"
 _PERIODS = {"monthly": "months", "quarterly": "quarters", "weekly": "weeks", "daily": "days"}
@@ -63,7 +69,7 @@ def _legend(fig: Any, axes: Sequence[Any]) -> None:
                ncols=min(len(entries), 4), fontsize=8, frameon=False)
 
 
-def _save(fig: Any, plt: Any, path: str) -> Any:
+def _save(fig: Any, plt: Any, path: str | BinaryIO) -> Any:
     try:
         fig.savefig(path, format="png", dpi=110)
     finally:
@@ -212,4 +218,90 @@ def responses_png(path: str, responses: ShockResponses, *, shocks: Sequence[str]
     size = "one-s.d." if responses.shock_size == "sd" else "unit"
     total = ", summed over steps" if responses.cumulative else ""
     fig.suptitle(f"Responses to a {size} shock ({responses.identification}{total})")
+    return _save(fig, plt, path)
+
+
+#: date tick labels by calendar kind (ISO-like, so they read as dates in any locale)
+_DATE_FORMATS = {"monthly": "%Y-%m", "quarterly": "%Y-%m"}
+
+
+def _origin_x(result: BacktestResult, k: int, history: pd.DataFrame | None,
+              past: int) -> tuple[np.ndarray, np.ndarray, str | None]:
+    """x values of the last ``past`` rows before origin ``k`` and of its ``horizon``
+    forecast steps: dates (the rows' own, then the calendar's next ones) with the date
+    format for the ticks, or periods counted from the origin (0: its last row) and None."""
+    o = result.origins[k]
+    shown = 0 if history is None else min(past, o)
+    if history is None or not isinstance(history.index, pd.DatetimeIndex):
+        return np.arange(1 - shown, 1), np.arange(1, result.horizon + 1), None
+    calendar = calendar_from_index(history.index[:o])
+    future = calendar.future(result.horizon)
+    assert future is not None  # a calendar with dates
+    return (history.index[o - shown:o].to_numpy(), future.to_numpy(),
+            _DATE_FORMATS.get(calendar.kind, "%Y-%m-%d"))
+
+
+def _origin_ticks(ax: Any, past_x: np.ndarray, future_x: np.ndarray, fmt: str | None) -> None:
+    """At most about 6 ticks on the x axis: rows' dates (one of them the origin's) in
+    ``fmt``, or whole periods when ``fmt`` is None."""
+    from matplotlib.ticker import MaxNLocator
+
+    if fmt is None:
+        ax.xaxis.set_major_locator(MaxNLocator(nbins=6, integer=True))
+        ax.set_xlabel("periods after the forecast origin")
+        return
+    import matplotlib.dates as mdates
+    from matplotlib.ticker import FixedLocator
+
+    every = max(1, math.ceil((len(past_x) + len(future_x)) / 6))
+    both = np.concatenate([past_x, future_x])
+    origin = len(past_x) - 1  # the origin's own date is always a tick
+    picks = sorted({*range(origin, -1, -every), *range(max(origin, 0), len(both), every)})
+    ax.xaxis.set_major_locator(FixedLocator(mdates.date2num(both[picks])))
+    ax.xaxis.set_major_formatter(mdates.DateFormatter(fmt))
+    ax.tick_params(axis="x", labelrotation=45, labelsize=7)
+
+
+def backtest_fan_png(path: str | BinaryIO, result: BacktestResult, k: int, *,
+                     history: pd.DataFrame | None = None,
+                     units: Mapping[str, str] | None = None, past: int = 12) -> Any:
+    """The forecast made at the ``k``-th origin of a backtest, one panel per series: the
+    last ``past`` observations before the origin, the central band, the median and the
+    outcomes, with the forecast origin (the last row the model saw) marked.
+
+    ``history`` is the backtested data (rows x series, as given to
+    :func:`priors.backtest.rolling_origin`); with a DatetimeIndex the x axis shows dates
+    (the forecast steps at the calendar's dates after the origin), otherwise periods
+    counted from the origin, in whole numbers. ``units`` maps series to their unit for
+    the y axis labels (default "units": the data's own units).
+    """
+    if not 0 <= k < len(result.origins):
+        raise ValueError(f"origin index k must be 0 to {len(result.origins) - 1}; got {k}")
+    if past < 1:
+        raise ValueError(f"past must be at least 1; got {past}")
+    if history is not None and len(history) < result.origins[k]:
+        raise ValueError(f"history has {len(history)} rows; the origin needs "
+                         f"{result.origins[k]}")
+    past_x, future_x, fmt = _origin_x(result, k, history, past)
+    plt = _pyplot()
+    fig, axes = _grid(plt, len(result.names), cols=3, width=3.8, height=2.9)
+    band = f"central {100 * result.coverage:g}% interval"
+    for j, (ax, name) in enumerate(zip(axes, result.names, strict=True)):
+        if history is not None:
+            before = history.iloc[result.origins[k] - len(past_x):result.origins[k]]
+            ax.plot(past_x, before[name].to_numpy(dtype=np.float64), color="black", lw=1.1,
+                    label="data before the origin")
+        ax.fill_between(future_x, result.lower["model"][k, :, j],
+                        result.upper["model"][k, :, j], color=_BLUE, alpha=0.25, lw=0,
+                        label=band)
+        ax.plot(future_x, result.median["model"][k, :, j], color=_BLUE, lw=1.6,
+                label="median forecast")
+        ax.plot(future_x, result.actual[k, :, j], ls="none", marker="o", ms=3.5,
+                color="black", label="what happened")
+        ax.axvline(past_x[-1] if len(past_x) else 0, color="#c0392b", ls="--", lw=1,
+                   label="forecast origin")
+        _origin_ticks(ax, past_x, future_x, fmt)
+        ax.set_title(name)
+        ax.set_ylabel(f"{name} ({(units or {}).get(name, 'units')})")
+    _legend(fig, axes)
     return _save(fig, plt, path)

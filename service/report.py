@@ -13,7 +13,13 @@ import pandas as pd
 
 from priors.backtest import BacktestResult
 
+from .plots import backtest_fan_png
+
 __all__ = ["backtest_report"]
+
+
+def _uri(png: bytes) -> str:
+    return "data:image/png;base64," + base64.b64encode(png).decode()
 
 
 def _png(fig: Any) -> str:
@@ -22,14 +28,15 @@ def _png(fig: Any) -> str:
     buf = io.BytesIO()
     fig.savefig(buf, format="png", dpi=110, bbox_inches="tight")
     plt.close(fig)
-    return "data:image/png;base64," + base64.b64encode(buf.getvalue()).decode()
+    return _uri(buf.getvalue())
 
 
-def _figures(result: BacktestResult, dates: pd.DatetimeIndex | None) -> list[tuple[str, str]]:
+def _figures(result: BacktestResult, data: pd.DataFrame | None) -> list[tuple[str, str]]:
     import matplotlib
 
     matplotlib.use("Agg")
     import matplotlib.pyplot as plt
+    from matplotlib.ticker import MaxNLocator
 
     out: list[tuple[str, str]] = []
     scores = result.scores()
@@ -42,6 +49,7 @@ def _figures(result: BacktestResult, dates: pd.DatetimeIndex | None) -> list[tup
     ax.axhline(result.coverage, color="grey", linestyle="--", label="nominal")
     ax.set(xlabel="steps ahead", ylabel="share of outcomes inside the interval",
            title=f"Coverage of the central {100 * result.coverage:g}% interval")
+    ax.xaxis.set_major_locator(MaxNLocator(integer=True))
     ax.legend(fontsize=8)
     out.append(("Coverage by horizon", _png(fig)))
 
@@ -54,6 +62,7 @@ def _figures(result: BacktestResult, dates: pd.DatetimeIndex | None) -> list[tup
         ax.axhline(1.0, color="grey", linestyle="--")
         ax.set(xlabel="steps ahead", ylabel=f"CRPS / CRPS of {base}",
                title="Relative CRPS by horizon (below 1: better than the benchmark)")
+        ax.xaxis.set_major_locator(MaxNLocator(integer=True))
         ax.legend(fontsize=8)
         out.append(("Relative CRPS by horizon", _png(fig)))
 
@@ -68,24 +77,14 @@ def _figures(result: BacktestResult, dates: pd.DatetimeIndex | None) -> list[tup
         out.append(("PIT histogram", _png(fig)))
 
     last = len(result.origins) - 1
+    dated = data is not None and isinstance(data.index, pd.DatetimeIndex)
     for k in sorted({0, last // 2, last}):
-        fig, axes = plt.subplots(1, len(result.names), figsize=(3.2 * len(result.names), 3),
-                                 squeeze=False)
-        for j, name in enumerate(result.names):
-            ax = axes[0, j]
-            steps = np.arange(1, result.horizon + 1)
-            ax.fill_between(steps, result.lower["model"][k, :, j], result.upper["model"][k, :, j],
-                            alpha=0.3, label=f"{100 * result.coverage:g}% band")
-            ax.plot(steps, result.median["model"][k, :, j], label="median")
-            ax.plot(steps, result.actual[k, :, j], "k.", label="outcome")
-            ax.set(title=name, xlabel="steps ahead")
-            if j == 0:
-                ax.set_ylabel("units")
-                ax.legend(fontsize=7)
         last_row = result.origins[k] - 1
-        when = dates[last_row].date().isoformat() if dates is not None else f"row {last_row}"
-        fig.suptitle(f"Forecast from the data up to {when}", y=1.06)
-        out.append((f"Fan chart: forecast from the data up to {when}", _png(fig)))
+        when = data.index[last_row].date().isoformat() if dated else f"row {last_row}"
+        buf = io.BytesIO()
+        backtest_fan_png(buf, result, k, history=data)
+        caption = f"Fan chart: forecast from the data up to {when}"
+        out.append((caption, _uri(buf.getvalue())))
     return out
 
 
@@ -93,9 +92,91 @@ def _table(frame: pd.DataFrame) -> str:
     return frame.to_html(float_format=lambda v: f"{v:.4g}", border=0, classes="scores")
 
 
+def _section(heading: str, explanation: str, *tables: str) -> list[str]:
+    """A heading, a paragraph saying what the numbers mean, and the tables (HTML)."""
+    return [f"<h2>{html.escape(heading)}</h2>", f"<p>{html.escape(explanation)}</p>", *tables]
+
+
+def _by_horizon(frame: pd.DataFrame, value: str) -> pd.DataFrame:
+    """Models as rows, horizons as columns (mean over whatever else varies)."""
+    return frame.pivot_table(index="model", columns="horizon", values=value, aggfunc="mean")
+
+
+def _pinball_section(result: BacktestResult, scores: pd.DataFrame) -> list[str]:
+    levels = ", ".join(f"{100 * q:g}%" for q in result.quantiles)
+    return _section(
+        "Pinball loss by model and horizon (mean over series)",
+        f"The pinball (quantile) loss scores the forecast quantiles at {levels}: a miss "
+        "costs its size, weighted by the side it falls on (an outcome above the 95% "
+        "quantile costs 0.95 per unit, one below it only 0.05). The numbers average over "
+        "those levels, the origins and the series, in the series' own units, so large "
+        "series weigh more. Lower is better; compare models within a column.",
+        _table(_by_horizon(scores, "pinball")))
+
+
+def _log_score_section(result: BacktestResult) -> list[str]:
+    heading = "Log score of all series jointly, by model and horizon (mean over origins)"
+    explanation = ("The log score is the log of the probability density the forecast gave "
+                   "to what actually happened, all series together. Higher (less negative) "
+                   "is better: the forecast put more weight near the outcome. A difference "
+                   "of 1 between two models means the better one gave the outcomes about "
+                   "2.7 times the density (e^1), on average. Only the draw-based models "
+                   "have one.")
+    logs = result.log_scores()
+    if not len(logs):
+        return _section(heading, explanation,
+                        "<p>Not available for these settings (exogenous regressors, "
+                        "time-varying volatility or ragged data).</p>")
+    return _section(heading, explanation, _table(_by_horizon(logs, "log_score")))
+
+
+def _energy_section(result: BacktestResult) -> list[str]:
+    return _section(
+        "Energy score of all series jointly, by model and horizon (mean over origins)",
+        "The energy score is the CRPS for several series at once: how far the forecast's "
+        "joint draws lie from what happened, minus half their spread among themselves. "
+        "Each series is first divided by the typical size of its one-period changes, so "
+        "no series dominates. Lower is better.",
+        _table(_by_horizon(result.energy_scores(), "energy")))
+
+
+def _dm_cell(statistic: float, p_value: float) -> str:
+    return f"{statistic:+.2f} (p={p_value:.3f}){' *' if p_value < 0.05 else ''}"
+
+
+def _dm_section(result: BacktestResult) -> list[str]:
+    heading = "Diebold-Mariano tests: the model against each benchmark (CRPS)"
+    explanation = ("Is the model's CRPS different from a benchmark's by more than chance? "
+                   "For each series and horizon the test compares the two forecasts' CRPS "
+                   "origin by origin (with the Harvey-Leybourne-Newbold correction for "
+                   "short samples). A negative statistic means the model's CRPS was lower "
+                   "(better); a p-value below 0.05 (marked *) means the difference is "
+                   "unlikely to be luck. With few origins the test rarely finds a clear "
+                   "difference either way.")
+    dm = result.dm_tests()
+    if not len(dm):
+        return _section(heading, explanation,
+                        "<p>Not tested: each series and horizon needs at least 3 scored "
+                        "origins.</p>")
+    significant = dm["p_value"] < 0.05
+    summary = pd.DataFrame({
+        "model significantly better": (significant & (dm["statistic"] < 0)),
+        "model significantly worse": (significant & (dm["statistic"] > 0)),
+        "tested (series x horizons)": True,
+    }).groupby(dm["benchmark"]).sum()
+    cells = dm.assign(cell=[_dm_cell(s, p) for s, p in zip(dm["statistic"], dm["p_value"],
+                                                           strict=True)])
+    detail = cells.pivot(index=["benchmark", "series"], columns="horizon", values="cell")
+    return _section(heading, explanation, _table(summary),
+                    "<p>Each cell: statistic (p-value), by horizon.</p>",
+                    _table(detail.fillna("-")))
+
+
 def backtest_report(result: BacktestResult, *, title: str, settings: dict[str, Any],
-                    dates: pd.DatetimeIndex | None = None) -> str:
-    """The HTML page."""
+                    data: pd.DataFrame | None = None) -> str:
+    """The HTML page. ``data``: the backtested series (as given to
+    :func:`priors.backtest.rolling_origin`), for the history and the dates of the fan
+    charts (None: no history, periods counted from the origin)."""
     scores = result.scores()
     by_h = scores.groupby(["model", "horizon"])[["rmse", "mae", "crps", "coverage"]].mean()
     parts = [
@@ -120,7 +201,9 @@ def backtest_report(result: BacktestResult, *, title: str, settings: dict[str, A
         rel = result.relative(base, "crps").groupby(level="series").mean()
         parts += [f"<h2>CRPS relative to {base}, by series (mean over horizons)</h2>",
                   _table(rel)]
-    for caption, uri in _figures(result, dates):
+    parts += [*_dm_section(result), *_pinball_section(result, scores),
+              *_log_score_section(result), *_energy_section(result)]
+    for caption, uri in _figures(result, data):
         parts += [f"<h2>{html.escape(caption)}</h2>", f"<img alt='{html.escape(caption)}' "
                   f"src='{uri}'>"]
     parts.append("</body></html>")

@@ -381,10 +381,18 @@ class ForecastPublic(BaseModel):
     lags: int
     hyperparameters: dict[str, float | None]
     log_marginal_likelihood: float | None
+    log_marginal_likelihood_note: str | None = Field(
+        None, description="why log_marginal_likelihood is null (flat prior, Gibbs sampler)")
     seed: int
     draws: int
     horizon: int
     rejected_explosive_share: float | None
+    convergence: dict[str, object] | None = Field(
+        None, description="sampled models: worst R-hat, smallest bulk and tail ESS, ok, "
+        "messages and thresholds of the chains (null for exact samplers)")
+    warnings: list[str] = Field(
+        default_factory=list, description="plain-words warnings, e.g. chains that have not "
+        "converged: do not trust the numbers then")
     cumulative: bool
     lead_time_totals: dict[str, LeadTimeTotal] | None = Field(
         None, description="with lead_time: mean, median and quantiles of each series' "
@@ -423,12 +431,17 @@ class ModelPublic(BaseModel):
     lags: int
     hyperparameters: dict[str, float | None]
     log_marginal_likelihood: float | None
+    log_marginal_likelihood_note: str | None = Field(
+        None, description="why log_marginal_likelihood is null (flat prior, Gibbs sampler)")
     coefficients: list[Coefficient]
     sigma: dict[str, object]
     diagnostics: dict[str, object] | None = Field(
         description="Gibbs convergence (independent prior, two or more chains): "
         "worst_r_hat, min_ess_bulk, min_ess_tail, ok, messages (what failed and what to "
         "do) and thresholds; null for exact samplers")
+    warnings: list[str] = Field(
+        default_factory=list, description="plain-words warnings, e.g. chains that have not "
+        "converged (see diagnostics): do not trust the model's numbers then")
 
 
 class ModelSummary(BaseModel):

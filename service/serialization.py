@@ -15,6 +15,7 @@ import dataclasses
 import hashlib
 import io
 import math
+import re
 import zlib
 from collections.abc import Sequence
 from typing import Any
@@ -31,6 +32,7 @@ from priors import (
     NIWPosterior,
     TimeIndexError,
 )
+from priors.calendar import calendar_from_index
 from priors.forecast import check_quantiles, draw_quantiles
 from priors.gibbs import GibbsDraws, GibbsSettings
 
@@ -45,6 +47,8 @@ __all__ = [
     "forecast_to_dict",
     "frame_from_csv",
     "hyper_from_dict",
+    "convergence_summary",
+    "convergence_warnings",
     "hyper_to_dict",
     "posterior_from_blob",
     "posterior_to_blob",
@@ -53,14 +57,23 @@ __all__ = [
 ]
 
 _DATE_HINT = "write dates like 2016-01-01 in the first column"
+_DAYFIRST_HINT = ("give the dayfirst option (--dayfirst on the command line, dayfirst=true "
+                  "with a CSV body in the HTTP API)")
+#: a date that starts with day and month (or month and day) as numbers: 31/01/2024
+_DAY_MONTH = re.compile(r"\s*(\d{1,2})[/.-](\d{1,2})[/.-]\d")
 
 
-def frame_from_csv(text: str) -> pd.DataFrame:
+def frame_from_csv(text: str, *, dayfirst: bool = False) -> pd.DataFrame:
     """Series from CSV text: a header row, dates in the first column, one column per series.
 
     Returns a DataFrame indexed by the dates; :meth:`priors.FanfoldVAR.fit` checks the rest
     (numbers, gaps, missing values...). Raises :class:`priors.DataError` (unreadable CSV,
     no series column) or :class:`priors.TimeIndexError` (first column not dates).
+
+    Dates such as 01/02/2024 are read month first (2 January) unless ``dayfirst`` (then
+    1 February), or unless the first date only makes sense day first (31/01/2024); the
+    first date sets the format of all. Dates that start with the year (2024-02-01) are
+    read year, month, day either way.
     """
     try:
         frame = pd.read_csv(io.StringIO(text))
@@ -74,21 +87,77 @@ def frame_from_csv(text: str) -> pd.DataFrame:
         frame.columns = header  # keep duplicate names, which pandas renames "x.1"
     name = str(frame.columns[0])
     series = frame.iloc[:, 1:]
-    series.index = pd.DatetimeIndex(_parse_dates(frame.iloc[:, 0], name), name=name)
+    series.index = pd.DatetimeIndex(_parse_dates(frame.iloc[:, 0], name, dayfirst=dayfirst),
+                                    name=name)
     return series
 
 
-def _date_format(column: pd.Series) -> str:
+def _day_month(text: object) -> tuple[int, int] | None:
+    """The first two numbers of a date such as 31/01/2024 (None for 2024-01-31, Jan 2024)."""
+    match = _DAY_MONTH.match(text) if isinstance(text, str) else None
+    return None if match is None else (int(match[1]), int(match[2]))
+
+
+def _date_format(column: pd.Series, name: str, dayfirst: bool) -> str:
     """The format of the first date, as pandas would guess it when parsing the column
     (every date then must follow it), or "mixed" (each date parsed on its own) when it
     cannot tell. Guessing here, not in ``pd.to_datetime``, avoids its "could not infer
-    format" warning without a process-wide warning filter on a request path."""
+    format" warning without a process-wide warning filter on a request path.
+
+    Day or month first: as ``dayfirst`` says, unless the first date allows only the
+    other (31/01/2024 is day first; with ``dayfirst``, 01/31/2024 is an error), and never
+    for dates starting with the year (``dayfirst`` would read 2024-01-02 as 1 February).
+    Telling pandas the order that fits also avoids its warning when it has to swap.
+    """
     first = column.iloc[0]
-    found = guess_datetime_format(first) if isinstance(first, str) else None
-    return found or "mixed"
+    if not isinstance(first, str):
+        return "mixed"
+    parts = _day_month(first)
+    if parts is not None and dayfirst and parts[1] > 12 >= parts[0]:
+        raise TimeIndexError(f"the first date in column {name!r}, {first!r}, cannot be day "
+                             f"first (there is no month {parts[1]}); leave out the dayfirst "
+                             "option for dates written month first", "dayfirst")
+    day_first = parts is not None and (parts[0] > 12 or (dayfirst and parts[1] <= 12))
+    return guess_datetime_format(first, dayfirst=day_first) or "mixed"
 
 
-def _parse_dates(column: pd.Series, name: str) -> pd.Series:
+def _dayfirst_hint(column: pd.Series, fmt: str) -> str:
+    """Advice when month-first dates failed and some date only reads day first."""
+    if fmt == "mixed" or fmt.find("%m") > fmt.find("%d"):
+        return ""
+    for text in column:
+        parts = _day_month(text)
+        if parts is not None and parts[0] > 12:
+            return (f"; the dates were read month first but {text!r} cannot be: if the day "
+                    f"comes first, {_DAYFIRST_HINT}")
+    return ""
+
+
+def _check_month_first(column: pd.Series, dates: pd.Series, fmt: str) -> None:
+    """Dates such as 01/02/2024 read month first by default: when they make no regular
+    calendar but would day first, say so (raise) instead of leaving the fit to report
+    uneven dates. Checked only then, so the common case costs one calendar check."""
+    try:
+        calendar_from_index(pd.DatetimeIndex(dates))
+    except TimeIndexError as exc:
+        day_fmt = fmt.replace("%m", "%MONTH").replace("%d", "%m").replace("%MONTH", "%d")
+        swapped = pd.to_datetime(column, format=day_fmt, errors="coerce")
+        if swapped.isna().any():
+            return
+        try:
+            calendar_from_index(pd.DatetimeIndex(swapped))
+        except TimeIndexError:
+            return  # not a day-first problem: the fit reports it
+        i = int(np.flatnonzero((dates != swapped).to_numpy())[0])
+        text, reason = column.iloc[i], " ".join(str(exc).split(";")[0].split())
+        raise TimeIndexError(
+            f"the dates were read month first ({text!r} as {dates.iloc[i].date()}), and "
+            f"then {reason}; read day first ({text!r} as {swapped.iloc[i].date()}) they are "
+            f"regular: {_DAYFIRST_HINT}", "dayfirst"
+        ) from exc
+
+
+def _parse_dates(column: pd.Series, name: str, *, dayfirst: bool = False) -> pd.Series:
     if pd.api.types.is_numeric_dtype(column) or pd.api.types.is_bool_dtype(column):
         raise TimeIndexError(f"the first column {name!r} must hold dates but holds numbers "
                              f"(e.g. {column.iloc[0]}); {_DATE_HINT}")
@@ -96,13 +165,23 @@ def _parse_dates(column: pd.Series, name: str) -> pd.Series:
     if missing.size:
         raise TimeIndexError(f"the first column {name!r} has no date in data row "
                              f"{missing[0] + 1}")
+    fmt = _date_format(column, name, dayfirst)
     try:
-        return pd.to_datetime(column, format=_date_format(column))
+        if fmt == "mixed":
+            return pd.to_datetime(column, format=fmt, dayfirst=dayfirst)
+        dates = pd.to_datetime(column, format=fmt)
+        if (not dayfirst and _day_month(column.iloc[0]) is not None
+                and 0 <= fmt.find("%m") < fmt.find("%d")):  # e.g. 01/02/2024, not 2024-01-02
+            _check_month_first(column, dates, fmt)
+        return dates
+    except TimeIndexError:
+        raise
     except (ValueError, TypeError, OverflowError) as exc:
         reason = (str(exc).splitlines() or [type(exc).__name__])[0]
         reason = reason.split(". You might want to try")[0].rstrip(":. ")
+        hint = _dayfirst_hint(column, fmt)
         raise TimeIndexError(f"cannot read the first column {name!r} as dates ({reason}); "
-                             f"{_DATE_HINT}") from exc
+                             f"{_DATE_HINT}{hint}", "dayfirst" if hint else None) from exc
 
 
 def _num(value: Any) -> float | None:
@@ -133,8 +212,35 @@ def configuration_to_dict(model: FanfoldVAR) -> dict[str, Any] | None:
     return config.to_dict(model.series_.names)
 
 
+def convergence_summary(model: FanfoldVAR) -> dict[str, Any] | None:
+    """R-hat and ESS summary of a sampled model's chains (None for exact samplers and a
+    single chain); computed once per model (seconds for large ones)."""
+    if model.sampler_ is None:
+        return None
+    report = model.convergence()
+    return None if report is None else report.summary()
+
+
+def convergence_warnings(summary: dict[str, Any] | None) -> list[str]:
+    """Plain warnings when the chains fail the thresholds (empty when they pass)."""
+    if not summary or summary.get("ok", True):
+        return []
+    head = (f"the sampler's chains have not converged (worst R-hat "
+            f"{_fmt(summary.get('worst_r_hat'))}, smallest bulk ESS "
+            f"{_fmt(summary.get('min_ess_bulk'))}, tail ESS {_fmt(summary.get('min_ess_tail'))}; "
+            f"thresholds R-hat <= {summary['thresholds']['rhat_max']}, ESS >= "
+            f"{summary['thresholds']['ess_min']:g}): do not trust these numbers; run longer "
+            "chains (keep, burn) or more of them")
+    return [head, *summary.get("messages", [])]
+
+
+def _fmt(value: Any) -> str:
+    return "n/a" if value is None else f"{value:.3g}"
+
+
 def forecast_to_dict(
-    model: FanfoldVAR, forecast: Forecast, *, quantiles: Sequence[float], seed: int, draws: int
+    model: FanfoldVAR, forecast: Forecast, *, quantiles: Sequence[float], seed: int, draws: int,
+    convergence: dict[str, Any] | None = None,
 ) -> dict[str, Any]:
     """The one-shot forecast answer shared by the CLI (``--json``) and the HTTP API.
 
@@ -144,7 +250,13 @@ def forecast_to_dict(
                               "quantiles": {"0.05": [...], ...}}, ...},
          "lags": int, "hyperparameters": {...}, "log_marginal_likelihood": float | None,
          "seed": int, "draws": int, "horizon": int,
-         "rejected_explosive_share": float | None}
+         "rejected_explosive_share": float | None,
+         "convergence": {...} | None, "warnings": [str, ...]}
+
+    ``convergence`` is the sampler's R-hat/ESS summary (give it for sampled models, see
+    :func:`convergence_summary`); ``warnings`` are the model's advice about its data
+    (``model.warnings_``: short history, negative demand) and, in words, chains that fail
+    the convergence thresholds.
 
     ``dates`` are ISO dates (or "1".."h" for data without dates); each list has one value
     per step. ``hyperparameters`` are those of ``model.hyperparameters()`` except lags.
@@ -176,10 +288,13 @@ def forecast_to_dict(
         "lags": int(model.lags_),
         "hyperparameters": _hyperparameters(model),
         "log_marginal_likelihood": _num(model.log_ml_),
+        "log_marginal_likelihood_note": model.log_ml_note,
         "seed": int(seed),
         "draws": int(draws),
         "horizon": int(forecast.horizon),
         "rejected_explosive_share": _num(forecast.rejected_share),
+        "convergence": convergence,
+        "warnings": [*getattr(model, "warnings_", []), *convergence_warnings(convergence)],
     }
 
 
@@ -215,14 +330,16 @@ def summary_to_dict(
          "coefficients": [{"equation", "regressor", "mean", "sd", "lower", "upper"}, ...],
          "sigma": {"names": [...], "mean": [[...], ...]},
          "span": {"start": str, "end": str, "observations": int},
-         "spectral_radius": {"draws", "median", "q0.05", "q0.95", "share_explosive"}}
+         "spectral_radius": {"draws", "median", "q0.05", "q0.95", "share_explosive"},
+         "outlier_scales": [{"start", "periods", "median", "q0.05", "q0.95"}, ...]}
 
     ``lower``/``upper`` bound the central ``level`` credible interval; ``lag_search`` is
     empty unless the lag order was chosen by ``lags="auto"``; ``span`` is the estimation
     sample (the data minus presample rows, and the row lost to differencing if any).
     ``spectral_radius`` summarises the companion matrix's spectral radius over
     ``stability_draws`` posterior draws (values >= 1 are explosive); it is present only
-    when ``rng`` is given.
+    when ``rng`` is given. ``outlier_scales`` is present for models with known-date
+    outlier periods (independent prior).
     """
     coefs = model.coefficients(level)
     sigma = model.sigma_mean()
@@ -231,6 +348,7 @@ def summary_to_dict(
         "configuration": configuration_to_dict(model),
         "hyperparameters": _hyperparameters(model),
         "log_marginal_likelihood": _num(model.log_ml_),
+        "log_marginal_likelihood_note": model.log_ml_note,
         "lag_search": [
             {"lags": int(c.lags), "score": _num(c.score), "tightness": _num(c.tightness),
              "criterion": str(c.criterion)}
@@ -247,7 +365,23 @@ def summary_to_dict(
     }
     if rng is not None:
         out["spectral_radius"] = _stability(model, rng, stability_draws)
+    scales = _outlier_scales(model)
+    if scales:
+        out["outlier_scales"] = scales
     return out
+
+
+def _outlier_scales(model: FanfoldVAR) -> list[dict[str, Any]]:
+    """Per known-date outlier period: its first period, length and the posterior median
+    and 90% interval of its shock scale (1 = an ordinary period)."""
+    draws = None if model.sampler_ is None else model.sampler_.scales
+    if draws is None or not model.outliers:
+        return []
+    flat = np.asarray(draws, dtype=np.float64).reshape(-1, draws.shape[-1])  # (S, K)
+    q = np.quantile(flat, [0.05, 0.5, 0.95], axis=0)
+    return [{"start": str(start), "periods": int(periods), "median": _num(q[1, j]),
+             "q0.05": _num(q[0, j]), "q0.95": _num(q[2, j])}
+            for j, (start, periods) in enumerate(model.outliers)]
 
 
 # ---------------------------------------------------------------------- stored models

@@ -53,13 +53,12 @@ def _hyper_line(hyper: dict[str, float | None]) -> str:
     )
 
 
-def _log_ml_line(log_ml: float | None, hyper: dict[str, float | None]) -> str:
+def _log_ml_line(payload: dict[str, Any]) -> str:
+    log_ml = payload["log_marginal_likelihood"]
     if log_ml is not None:
         shown = f"{log_ml:.2f}"
-    elif all(v is None for v in hyper.values()):
-        shown = "n/a (flat prior)"
     else:
-        shown = "n/a (no closed form with the independent prior)"
+        shown = f"n/a ({payload.get('log_marginal_likelihood_note') or 'not available'})"
     return f"log marginal likelihood: {shown}"
 
 
@@ -94,7 +93,8 @@ def format_forecast(payload: dict[str, Any]) -> str:
         f"(rerun with --seed {payload['seed']} to reproduce)",
         *_configuration_lines(payload, reasons=False),
         _hyper_line(payload["hyperparameters"]),
-        _log_ml_line(payload["log_marginal_likelihood"], payload["hyperparameters"]),
+        _log_ml_line(payload),
+        *(_convergence_lines(payload["convergence"]) if payload.get("convergence") else []),
     ]
     if payload.get("cumulative"):
         out.append("values are running totals from the first forecast step")
@@ -103,7 +103,8 @@ def format_forecast(payload: dict[str, Any]) -> str:
         out.append(f"explosive parameter draws rejected: {100 * share:.1f}%")
     for name, fc in forecasts.items():
         columns = {"mean": fc["mean"], "median": fc["median"]}
-        columns.update({f"q{k}": v for k, v in fc["quantiles"].items()})
+        # the median is the 0.5 quantile: one column, not two with the same numbers
+        columns.update({f"q{k}": v for k, v in fc["quantiles"].items() if k != "0.5"})
         dec = decimals_for(v for col in columns.values() for v in col)
         rows = [
             [date, *(_fixed(col[h], dec) for col in columns.values())]
@@ -116,6 +117,7 @@ def format_forecast(payload: dict[str, Any]) -> str:
         keys = list(first["quantiles"])
         dec = decimals_for(v for t in totals.values()
                            for v in [t["mean"], *t["quantiles"].values()])
+        keys = [k for k in keys if k != "0.5"]  # shown as the median
         rows = [[name, _fixed(t["mean"], dec), _fixed(t["median"], dec),
                  *(_fixed(t["quantiles"][k], dec) for k in keys)] for name, t in totals.items()]
         out += ["", "total over the lead time (summed path by path):",
@@ -151,7 +153,7 @@ def format_fit(payload: dict[str, Any], *, prior: str, level: float, summary: bo
         f"({span['observations']} observations)",
         *_configuration_lines(payload, reasons=summary),
         _hyper_line(payload["hyperparameters"]),
-        _log_ml_line(payload["log_marginal_likelihood"], payload["hyperparameters"]),
+        _log_ml_line(payload),
     ]
     diagnostics = payload.get("diagnostics")
     if not summary:
@@ -180,18 +182,30 @@ def format_fit(payload: dict[str, Any], *, prior: str, level: float, summary: bo
     out += ["", "error covariance Sigma (posterior mean):", render_table(["", *names], rows)]
     if "spectral_radius" in payload:
         r = payload["spectral_radius"]
-        out += ["", f"spectral radius of the companion matrix ({r['draws']} draws): median "
+        seed = f", seed {payload['seed']}" if payload.get("seed") is not None else ""
+        out += ["", f"spectral radius of the companion matrix ({r['draws']} draws{seed}): median "
                 f"{_g(r['median'])}, 90% interval {_g(r['q0.05'])} to {_g(r['q0.95'])}, "
                 f"share explosive (>= 1) {_g(r['share_explosive'])}"]
+    if payload.get("outlier_scales"):
+        rows = [[o["start"], str(o["periods"]), _g(o["median"]), _g(o["q0.05"]), _g(o["q0.95"])]
+                for o in payload["outlier_scales"]]
+        out += ["", "outlier periods: shock scale (1 = an ordinary period; posterior median "
+                    "and 90% interval)",
+                render_table(["first period", "periods", "median", "q0.05", "q0.95"], rows)]
     return "\n".join(out)
 
 
 def format_backtest(scores: Any, coverage: float, log_scores: Any = None,
-                    dm_tests: Any = None) -> str:
+                    dm_tests: Any = None, *, energy_scores: Any = None,
+                    calibration: Sequence[dict[str, Any]] | None = None,
+                    origins: int | None = None, seed: int | None = None) -> str:
     """Scores averaged over series per model and horizon, then relative to the OLS VAR
-    (or the random walk) per series, then the joint log scores per horizon."""
+    (or the random walk) per series, the Diebold-Mariano tests, the joint log scores and
+    energy scores per horizon, and the PIT calibration tests (``calibration``: the
+    records of ``BacktestResult.pit_tests()``, empty when not tested; ``origins``: how
+    many origins were scored, for the note saying why)."""
     out = [f"Fanfold backtest: scores averaged over series (coverage of the central "
-           f"{100 * coverage:g}% interval)"]
+           f"{100 * coverage:g}% interval)" + _seed_note(seed)]
     cols = ["rmse", "mae", "crps", "pinball", "coverage"]
     by_h = scores.groupby(["model", "horizon"])[cols].mean()
     rows = [[m, str(h), *(_g(v) for v in vals)] for (m, h), vals in
@@ -220,13 +234,60 @@ def format_backtest(scores: Any, coverage: float, log_scores: Any = None,
         rows = [[str(h), *(_g(v) for v in wide.loc[h])] for h in wide.index]
         out += ["", "log predictive density of all series jointly, mean over origins "
                 "(higher is better):", render_table(["h", *wide.columns], rows)]
+    if energy_scores is not None and len(energy_scores):
+        wide = energy_scores.pivot(index="horizon", columns="model", values="energy")
+        rows = [[str(h), *(_g(v) for v in wide.loc[h])] for h in wide.index]
+        out += ["", "energy score of all series jointly (each divided by the s.d. of its "
+                "one-step changes), mean over origins (lower is better):",
+                render_table(["h", *wide.columns], rows)]
+    if calibration is not None:
+        out += ["", *_calibration_lines(calibration, origins, int(scores["horizon"].max()))]
     return "\n".join(out)
 
 
-def format_ranking(table: Any) -> str:
+#: fewer scored origins than this at a horizon and its PITs are not tested (as in
+#: ``priors.backtest.BacktestResult.pit_tests``)
+_PIT_MIN_ORIGINS = 10
+
+
+def _calibration_lines(records: Sequence[dict[str, Any]], origins: int | None,
+                       horizon: int) -> list[str]:
+    """PIT calibration per model and horizon: how many series' tests reject at 5%,
+    which, and the smallest p-value; or why nothing was tested."""
+    title = ("PIT calibration (HAC test of the PITs' first two moments; a p-value below "
+             "0.05 flags miscalibrated bands):")
+    if not records:
+        got = "" if origins is None else f"; got {origins}"
+        return [title, f"  not tested: needs at least {_PIT_MIN_ORIGINS} scored origins "
+                f"per horizon{got} (raise --origins)"]
+    groups: dict[tuple[str, int], list[dict[str, Any]]] = {}
+    for r in records:
+        groups.setdefault((str(r["model"]), int(r["horizon"])), []).append(r)
+    rows = []
+    for (model, h), group in groups.items():
+        flagged = [str(r["series"]) for r in group if r["p_value"] < 0.05]
+        rows.append([model, str(h), str(len(flagged)), str(len(group)),
+                     _g(min(r["p_value"] for r in group), 2), ", ".join(flagged) or _MISSING])
+    out = [title, render_table(["model", "h", "flagged", "of", "min p", "flagged series"],
+                               rows)]
+    untested = sorted(set(range(1, horizon + 1)) - {h for _, h in groups})
+    if untested:
+        out.append(f"  horizons {untested[0]}-{untested[-1]} not tested (fewer than "
+                   f"{_PIT_MIN_ORIGINS} scored origins)" if len(untested) > 1 else
+                   f"  horizon {untested[0]} not tested (fewer than {_PIT_MIN_ORIGINS} "
+                   "scored origins)")
+    return out
+
+
+def _seed_note(seed: int | None) -> str:
+    return "" if seed is None else f", seed {seed} (rerun with --seed {seed} to reproduce)"
+
+
+def format_ranking(table: Any, seed: int | None = None) -> str:
     """Candidate settings ranked by CRPS relative to the random walk."""
     rows = [[str(r.candidate), _g(r.relative_crps), _g(r.relative_rmse), _g(r.coverage)]
             for r in table.itertuples()]
-    return ("Fanfold backtest: settings ranked by CRPS relative to the random walk (lower "
-            "is better)\n\n" + render_table(["candidate", "rel. crps", "rel. rmse",
-                                               "coverage"], rows))
+    head = ("Fanfold backtest: settings ranked by CRPS relative to the random walk (lower "
+            f"is better){_seed_note(seed)}")
+    return head + "\n\n" + render_table(["candidate", "rel. crps", "rel. rmse", "coverage"],
+                                        rows)

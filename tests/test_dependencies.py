@@ -43,7 +43,8 @@ def test_module_level_imports_are_core_dependencies():
     dists = packages_distributions()
     core = _core_requirements()
     missing = {}
-    for path in [*sorted((ROOT / "priors").rglob("*.py")), *sorted((ROOT / "service").rglob("*.py"))]:
+    modules = [*sorted((ROOT / "priors").rglob("*.py")), *sorted((ROOT / "service").rglob("*.py"))]
+    for path in modules:
         if "migrations" in path.parts:
             continue
         for name in _top_level_imports(path) - stdlib - OURS:

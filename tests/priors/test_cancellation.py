@@ -83,7 +83,8 @@ def test_a_scenario_with_ranges_stops_within_a_sweep_of_the_cancel():
     timer = _cancel_after(token, 0.3)
     start = time.perf_counter()
     with cancel_scope(token), pytest.raises(WorkCancelled):
-        model.scenario(12, conds, rng=np.random.default_rng(0), draws=2000, sweeps=1000)  # ~1 min uncancelled
+        # about a minute uncancelled
+        model.scenario(12, conds, rng=np.random.default_rng(0), draws=2000, sweeps=1000)
     timer.join()
     assert time.perf_counter() - start < 3.0
 

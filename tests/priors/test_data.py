@@ -14,6 +14,8 @@ from priors.data import (
     future_exogenous_rows,
     growth_decades,
     load_series,
+    negative_values_message,
+    split_ragged_edge,
 )
 from priors.errors import (
     ConstantSeriesError,
@@ -21,6 +23,7 @@ from priors.errors import (
     ExogenousError,
     ExplosiveDataError,
     MissingValuesError,
+    NegativeValuesWarning,
     NonNumericError,
     SpecificationError,
     TooFewObservationsError,
@@ -39,11 +42,16 @@ def frame(rng) -> pd.DataFrame:
 # ---------------------------------------------------------------- missing values
 
 
-@pytest.mark.parametrize(("bad", "kind"), [(np.nan, "NaN"), (np.inf, "an infinite value"),
+MISSING = r"a missing value \(an empty cell, NaN or null\)"
+
+
+@pytest.mark.parametrize(("bad", "kind"), [(np.nan, MISSING), (np.inf, "an infinite value"),
                                            (-np.inf, "an infinite value")])
 def test_missing_or_infinite_value_is_located(frame, bad, kind):
+    # the fifth row of data is data row 5 (counted from 1, as a spreadsheet user would)
     frame.iloc[4, 1] = bad
-    match = rf"series 'brakes' has {kind} at 2020-05-01 \(row 4\).*fill them or cut the data"
+    match = (rf"series 'brakes' has {kind} at 2020-05-01 \(data row 5\).*fill them or cut "
+             "the data")
     with pytest.raises(MissingValuesError, match=match):
         load_series(frame)
 
@@ -51,15 +59,39 @@ def test_missing_or_infinite_value_is_located(frame, bad, kind):
 def test_missing_values_are_counted_in_plain_arrays(rng):
     y = rng.standard_normal((20, 2))
     y[[3, 7], 0] = np.nan
-    with pytest.raises(MissingValuesError, match=r"'y1' has NaN at row 3, .*\(2 such values"):
+    with pytest.raises(MissingValuesError,
+                       match=rf"'y1' has {MISSING} at data row 4, .*\(2 such values"):
         load_series(y)
 
 
 def test_missing_exogenous_value(frame, rng):
     x = rng.standard_normal((30, 1))
     x[10] = np.nan
-    with pytest.raises(MissingValuesError, match=r"exogenous regressor 'x1' has NaN at 2020-11"):
+    with pytest.raises(MissingValuesError, match=rf"exogenous regressor 'x1' has {MISSING} at "
+                                                 r"2020-11-01 \(data row 11\)"):
         load_series(frame, exog=x)
+
+
+def test_missing_exogenous_value_after_differencing_keeps_its_data_row(frame, rng):
+    # differencing drops the first row; the message still counts rows of the data as given
+    x = rng.standard_normal((30, 1))
+    x[10] = np.nan
+    with pytest.raises(MissingValuesError, match=r"at 2020-11-01 \(data row 11\)"):
+        load_series(frame, exog=x, transforms="diff")
+    with pytest.raises(MissingValuesError, match=r"at data row 11,"):
+        load_series(frame.to_numpy(), exog=x, transforms="diff")
+
+
+def test_empty_trailing_row_is_located_from_one():
+    data = np.ones((6, 2)) + np.arange(6)[:, None]
+    data[4, 1] = np.nan
+    data[5] = np.nan
+    with pytest.raises(MissingValuesError, match=r"^data row 6 has no value for any series"):
+        split_ragged_edge(data)
+    dated = pd.DataFrame(data, index=MONTHS[:6])
+    with pytest.raises(MissingValuesError,
+                       match=r"^2020-06-01 \(data row 6\) has no value for any series"):
+        split_ragged_edge(dated)
 
 
 # ---------------------------------------------------------------- too few rows
@@ -196,6 +228,23 @@ def test_non_numeric_column(column, dtype):
     data = pd.DataFrame({"tyres": [1.0, 2.0, 4.0], "code": column})
     with pytest.raises(NonNumericError, match=rf"series 'code' is not numeric \(dtype {dtype}"
                                               r".*give numbers only"):
+        load_series(data)
+
+
+@pytest.mark.parametrize("text", ["4 units", "n.a.", "-"])
+def test_non_numeric_cell_is_named_with_its_date_and_data_row(frame, text):
+    # as read from a CSV file: one text cell makes the whole column text
+    frame["brakes"] = frame["brakes"].round(1).astype(str)
+    frame.iloc[12, 1] = text
+    match = (rf"series 'brakes' is not numeric \(dtype \w+\); the first cell that is not a "
+             rf"number is '{text}' at 2021-01-01 \(data row 13\)")
+    with pytest.raises(NonNumericError, match=match):
+        load_series(frame)
+
+
+def test_non_numeric_cell_without_dates_is_named_by_data_row():
+    data = pd.DataFrame({"tyres": [1.0, 2.0, 4.0], "code": ["1", None, "x"]})
+    with pytest.raises(NonNumericError, match=r"'x' at data row 3;"):
         load_series(data)
 
 
@@ -391,3 +440,48 @@ def test_future_rows_with_exogenous_values(with_promo):
     named = pd.DataFrame({"other": [0.0, 0.0], "promo": [3.0, 4.0]})
     np.testing.assert_array_equal(
         future_exogenous_rows(with_promo, Deterministics(), 2, named), [[1.0, 3.0], [1.0, 4.0]])
+
+
+# ---------------------------------------------------------------- negative demand
+
+
+def _counts(rng, negative_rows=(), negative=-40.0) -> pd.DataFrame:
+    """Two whole-number demand series, 30 months, with negative values in "brakes"."""
+    values = np.round(100.0 + 10.0 * rng.standard_normal((30, 2)))
+    values[list(negative_rows), 1] = negative
+    return pd.DataFrame(values, index=MONTHS, columns=["tyres", "brakes"])
+
+
+def test_a_few_negative_counts_are_named_with_date_and_data_row(rng):
+    series = load_series(_counts(rng, negative_rows=(7, 20)))
+    message = negative_values_message(series)
+    assert message is not None
+    assert message.startswith("series 'brakes' has 2 negative value(s), the first -40 at "
+                              "2020-08-01 (data row 8), though 93% of its values are >= 0")
+    assert "returns booked as negative sales" in message
+
+
+def test_negative_counts_after_differencing_keep_their_date(rng):
+    series = load_series(_counts(rng, negative_rows=(7,)), transforms="diff")
+    assert "at 2020-08-01 (data row 8)" in negative_values_message(series)
+    first = load_series(_counts(rng, negative_rows=(0,)), transforms="diff")
+    assert "the first -40 at data row 1," in negative_values_message(first)
+
+
+@pytest.mark.parametrize("case", ["no negatives", "fractional", "often negative",
+                                  "median not positive"])
+def test_negative_values_that_need_not_be_errors_pass(rng, case):
+    frame = _counts(rng, negative_rows=() if case == "no negatives" else (7,))
+    if case == "fractional":  # changes, balances...: negative values are ordinary
+        frame["brakes"] += 0.5
+    elif case == "often negative":  # 4 of 30 below zero: more than 10%
+        frame.iloc[[1, 2, 3, 4], 1] = -3.0
+    elif case == "median not positive":  # mostly zero, e.g. intermittent
+        frame.iloc[:20, 1] = 0.0
+    assert negative_values_message(load_series(frame)) is None
+
+
+def test_fit_warns_once_about_negative_counts(rng):
+    with pytest.warns(NegativeValuesWarning, match="series 'brakes' has 1 negative") as caught:
+        FanfoldVAR(lags=1, tightness=0.2, transforms="auto").fit(_counts(rng, (7,)))
+    assert sum(isinstance(w.message, NegativeValuesWarning) for w in caught) == 1

@@ -145,7 +145,7 @@ def test_to_frame_has_one_row_per_series_and_step(y, h):
     table = fc.to_frame((0.1, 0.5, 0.9))
     n = y.shape[1]
     assert list(table.columns) == ["series", "date", "step", "mean", "median",
-                                   "q0.1", "q0.5", "q0.9"]
+                                   "q0.1", "q0.9"]  # 0.5 is the median column
     assert len(table) == n * h
     assert not table.duplicated(["series", "step"]).any()
     assert set(table["step"]) == set(range(1, h + 1))

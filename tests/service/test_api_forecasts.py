@@ -20,9 +20,9 @@ def test_json_forecast_layout_and_values(client, demo_body):
     assert r.status_code == 200, r.text
     out = r.json()
     assert set(out) == {"forecasts", "configuration", "lags", "hyperparameters",
-                        "log_marginal_likelihood",
+                        "log_marginal_likelihood", "log_marginal_likelihood_note",
                         "seed", "draws", "horizon", "rejected_explosive_share", "cumulative",
-                        "lead_time_totals"}
+                        "lead_time_totals", "convergence", "warnings"}
     assert (out["lags"], out["seed"], out["draws"], out["horizon"]) == (2, 11, 300, 4)
     # lags were given; the rest was chosen by the automatic configuration, with reasons
     config = out["configuration"]
@@ -249,3 +249,68 @@ def test_small_one_shots_run_inline_and_large_ones_keep_the_timeout(settings, de
     with TestClient(create_app(inline)) as c:
         r = c.post("/v1/forecasts", json=demo_body)
     assert r.status_code == 200
+
+
+def test_fifty_series_are_served_on_the_default_limits(client):
+    """A wholesaler has hundreds of SKUs; the server refused more than 20 series per model
+    while the engine fits 50 in well under a second (README, limits and their cost)."""
+    rng = np.random.default_rng(8)  # invented series: sizes only
+    values = 100 + np.cumsum(rng.normal(size=(110, 50)), axis=0)  # enough rows for 50 x 1 lag
+    body = {"series": {f"sku{i:03d}": values[:, i].round(2).tolist() for i in range(50)},
+            "start": "2021-01-01", "frequency": "MS", "horizon": 3, "draws": 200, "seed": 1,
+            "lags": 1, "transforms": "none", "seasonal": False}
+    answer = client.post("/v1/forecasts", json=body)
+    assert answer.status_code == 200, answer.text
+    assert len(answer.json()["forecasts"]) == 50
+    too_many = {**body, "series": {f"sku{i:03d}": values[:, i % 50].round(2).tolist()
+                                   for i in range(101)}}
+    refused = client.post("/v1/forecasts", json=too_many)
+    assert refused.status_code == 422 and refused.json()["errors"][0]["field"] == "series"
+
+
+def test_csv_dayfirst_query_parameter_reads_day_first_dates(client):
+    header, *rows = DEMO_CSV.read_text().splitlines()  # rows like 2016-01-01,1256,...
+    day_first = "\n".join([header] + [f"{r[8:10]}/{r[5:7]}/{r[:4]}{r[10:]}" for r in rows])
+    query = "horizon=2&draws=100&seed=5&lags=1"
+    r = client.post(f"/v1/forecasts?{query}", content=day_first,
+                    headers={"content-type": "text/csv"})
+    assert r.status_code == 422 and r.json()["errors"][0]["field"] == "dayfirst"
+    assert "dayfirst=true" in r.json()["detail"]
+    r = client.post(f"/v1/forecasts?{query}&dayfirst=true", content=day_first,
+                    headers={"content-type": "text/csv"})
+    assert r.status_code == 200, r.text
+    iso = client.post(f"/v1/forecasts?{query}", content=DEMO_CSV.read_bytes(),
+                      headers={"content-type": "text/csv"})
+    assert r.json() == iso.json()  # dayfirst reads the file; it is no model setting
+    r = client.post(f"/v1/forecasts?{query}&dayfirst=maybe", content=day_first,
+                    headers={"content-type": "text/csv"})
+    assert r.status_code == 422 and r.json()["errors"][0]["field"] == "dayfirst"
+
+
+def test_a_json_null_inside_a_series_is_called_a_missing_value(client, demo_body):
+    demo_body["series"]["tyres"][10] = None  # the 11th value: 2016-11-01
+    r = client.post("/v1/forecasts", json=demo_body)
+    assert r.status_code == 422
+    assert ("series 'tyres' has a missing value (an empty cell, NaN or null) at 2016-11-01 "
+            "(data row 11)") in r.json()["detail"]
+
+
+def test_advice_about_the_data_comes_back_in_the_answer(client):
+    """A short history for the lag order was only a Python warning on the server (stderr,
+    or a 500 where warnings are errors); it is part of the answer now."""
+    rng = np.random.default_rng(9)  # invented series: sizes only
+    values = 100 + np.cumsum(rng.normal(size=(30, 6)), axis=0)
+    body = {"series": {f"sku{i}": values[:, i].round(2).tolist() for i in range(6)},
+            "start": "2023-01-01", "frequency": "MS", "horizon": 2, "draws": 100, "seed": 1,
+            "lags": 3, "transforms": "none", "seasonal": False}
+    answer = client.post("/v1/forecasts", json=body)
+    assert answer.status_code == 200, answer.text
+    assert any(w.startswith("short history for 3 lag(s)") for w in answer.json()["warnings"])
+    stored = client.post("/v1/models", json={k: v for k, v in body.items()
+                                             if k not in ("horizon", "draws")})
+    assert stored.status_code == 201, stored.text
+    assert any("short history" in w for w in stored.json()["warnings"])
+    again = client.get(f"/v1/models/{stored.json()['id']}").json()  # restored: same advice
+    assert again["warnings"] == stored.json()["warnings"]
+    fc = client.post(f"/v1/models/{stored.json()['id']}/forecasts", json={"horizon": 2})
+    assert any("short history" in w for w in fc.json()["warnings"])

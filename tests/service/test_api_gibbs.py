@@ -332,6 +332,48 @@ def test_planning_answers_come_from_the_stored_draws(client, body):
     assert r.status_code == 200, r.text
 
 
+def test_answers_from_unconverged_chains_carry_the_diagnostics_and_a_warning(client, demo):
+    part = demo.iloc[:72][["tyres", "inner_tubes"]]
+    body = {"series": {c: part[c].astype(float).tolist() for c in part},
+            "start": "2016-01-01", "frequency": "MS", "lags": 1, "prior": "independent",
+            "chains": 2, "burn": 0, "keep": 20, "seed": 5}
+    one_shot = client.post("/v1/forecasts", json={**body, "horizon": 2, "draws": 50})
+    assert one_shot.status_code == 200, one_shot.text
+    answer = one_shot.json()
+    assert answer["convergence"]["ok"] is False
+    assert answer["convergence"]["worst_r_hat"] is not None
+    assert answer["warnings"][0].startswith("the sampler's chains have not converged")
+    stored = client.post("/v1/models", json=body)
+    assert stored.status_code == 201, stored.text
+    assert stored.json()["warnings"] and stored.json()["diagnostics"]["ok"] is False
+    fc = client.post(f"/v1/models/{stored.json()['id']}/forecasts",
+                     json={"horizon": 2, "draws": 50, "seed": 1}).json()
+    assert fc["convergence"] == stored.json()["diagnostics"]  # the stored summary, not redone
+    assert fc["warnings"]
+    exact = client.post("/v1/forecasts", json={**{k: v for k, v in body.items()
+                                                  if k not in ("prior", "chains", "burn",
+                                                               "keep")},
+                                               "horizon": 2, "draws": 50}).json()
+    assert exact["convergence"] is None and exact["warnings"] == []
+
+
+def test_stochastic_volatility_on_its_defaults_runs_as_a_job(tmp_path, demo):
+    """The CLI fits it in seconds; the server refused it (422, work over the limit) because
+    its cost model counted every sweep as a QR at 20 k rows of the largest lag order."""
+    from fastapi.testclient import TestClient
+
+    from service.app import create_app
+    from service.config import Settings
+
+    settings = Settings(database_url=f"sqlite:///{tmp_path / 'sv.db'}", job_workers=0)
+    body = {"series": {c: demo[c].astype(float).tolist() for c in demo},
+            "start": "2016-01-01", "frequency": "MS", "volatility": "common"}
+    with TestClient(create_app(settings)) as client:
+        answer = client.post("/v1/models", json=body)
+        assert answer.status_code == 202, answer.text  # a job, like other long fits
+        assert answer.json()["kind"] == "fit_model"
+
+
 def test_stochastic_volatility_and_outlier_models_are_stored_and_forecast(client, demo):
     part = demo.iloc[:72][["tyres", "inner_tubes"]]
     body = {"series": {c: part[c].astype(float).tolist() for c in part},
@@ -351,6 +393,8 @@ def test_stochastic_volatility_and_outlier_models_are_stored_and_forecast(client
     assert bad.status_code == 422 and "independent" in bad.text
     bad = client.post("/v1/models", json={**body, "prior": "flat", "volatility": "common"})
     assert bad.status_code == 422 and "minnesota" in bad.text
+    assert sv.json()["log_marginal_likelihood"] is None
+    assert "stochastic volatility" in sv.json()["log_marginal_likelihood_note"]
     upd = client.post(f"/v1/models/{sv.json()['id']}/observations",
                       json={"series": {c: demo[c].iloc[72:75].astype(float).tolist()
                                        for c in part}, "start": "2022-01-01",

@@ -33,8 +33,8 @@ def _forecast_json(run, *extra: object) -> dict:
 def test_forecast_json_layout(run) -> None:
     out = _forecast_json(run, "--seed", 1)
     assert set(out) == {"forecasts", "configuration", "lags", "hyperparameters",
-                        "log_marginal_likelihood",
-                        "seed", "draws", "horizon",
+                        "log_marginal_likelihood", "log_marginal_likelihood_note",
+                        "seed", "draws", "horizon", "convergence", "warnings",
                         "rejected_explosive_share", "cumulative", "lead_time_totals"}
     assert (out["lags"], out["seed"], out["draws"], out["horizon"]) == (2, 1, 200, 3)
     assert set(out["hyperparameters"]) == {"tightness", "cross", "decay", "det_scale",
@@ -76,7 +76,8 @@ def test_forecast_text_table(run) -> None:
     for name in NAMES:
         assert f"\n{name}\n" in out
     header = next(line for line in out.splitlines() if line.strip().startswith("date"))
-    assert header.split() == ["date", "mean", "median", "q0.05", "q0.5", "q0.95"]
+    # the 0.5 quantile is the median: one column (both were printed, same numbers)
+    assert header.split() == ["date", "mean", "median", "q0.05", "q0.95"]
     assert out.count("2026-02-01") == len(NAMES)
 
 
@@ -86,11 +87,17 @@ def test_forecast_out_writes_tidy_csv(run, tmp_path: Path) -> None:
                          "--quantiles", "0.1,0.9", "--out", path)
     assert code == 0 and "wrote 20 rows" in err
     table = pd.read_csv(path)
-    assert list(table.columns) == ["series", "date", "step", "mean", "median", "q0.1", "q0.9"]
+    assert list(table.columns) == ["series", "date", "step", "values", "mean", "median", "q0.1",
+                                   "q0.9"]
+    assert set(table["values"]) == {"per period"}
     assert len(table) == len(NAMES) * 4
     assert table["series"].unique().tolist() == NAMES
     assert table["step"].tolist() == [1, 2, 3, 4] * len(NAMES)
     assert (table["q0.1"] <= table["median"]).all() and (table["median"] <= table["q0.9"]).all()
+    totals = tmp_path / "totals.csv"  # running totals say so in the file itself
+    assert run("forecast", DEMO, "--horizon", 4, *FAST, "--seed", 3, "--cumulative",
+               "--out", totals)[0] == 0
+    assert set(pd.read_csv(totals)["values"]) == {"running total from step 1"}
     _, js, _ = run("forecast", DEMO, "--horizon", 4, *FAST, "--seed", 3,
                    "--quantiles", "0.1,0.9", "--json")
     np.testing.assert_allclose(table["mean"][:4], json.loads(js)["forecasts"]["tyres"]["mean"])
@@ -118,7 +125,7 @@ def test_fit_json_layout_with_lag_search(run) -> None:
     assert code == 0, err
     fit = json.loads(out)
     assert set(fit) == {"lags", "configuration", "hyperparameters", "log_marginal_likelihood",
-                        "lag_search",
+                        "log_marginal_likelihood_note", "lag_search", "seed",
                         "coefficients", "sigma", "span", "spectral_radius", "diagnostics"}
     assert fit["diagnostics"] is None  # exact sampler: nothing to diagnose
     assert [c["lags"] for c in fit["lag_search"]] == [1, 2, 3]
@@ -204,9 +211,11 @@ def _dates_only(f: pd.DataFrame) -> pd.DataFrame:
 
 
 @pytest.mark.parametrize(("edit", "match"), [
-    (_nan_inside, "'chains' has NaN"),
+    (_nan_inside, "'chains' has a missing value (an empty cell, NaN or null) at 2018-07-01 "
+                  "(data row 31)"),
     (_duplicate_date, "appears more than once"),
-    (_text_column, "'brake_pads' is not numeric"),
+    (_text_column, "'brake_pads' is not numeric (dtype str); the first cell that is not a "
+                   "number is '900 units' at 2016-01-01 (data row 1)"),
     (_no_dates, "as dates"),
     (_numbers_as_dates, "must hold dates"),
     (_dates_only, "at least one series column"),
@@ -393,6 +402,60 @@ def test_backtest_report_is_a_self_contained_page(run, tmp_path) -> None:
     assert "http" not in page  # nothing to fetch
 
 
+def test_backtest_text_shows_energy_score_and_why_pit_is_not_tested(run) -> None:
+    code, out, err = run("backtest", DEMO, "--origins", 3, "--horizon", 2, "--lags", 1,
+                         "--draws", 100)
+    assert code == 0, err
+    energy = out[out.index("energy score of all series jointly"):].splitlines()
+    assert "lower is better" in energy[0]
+    assert energy[1].split() == ["h", "model", "ols_var", "random_walk"]
+    assert [row.split()[0] for row in energy[2:4]] == ["1", "2"]
+    assert all(float(v) > 0 for row in energy[2:4] for v in row.split()[1:])
+    assert "PIT calibration" in out
+    assert "not tested: needs at least 10 scored origins per horizon; got 3" in out
+
+
+def test_backtest_text_shows_the_pit_calibration_tests(run) -> None:
+    code, out, err = run("backtest", DEMO, "--origins", 11, "--horizon", 2, "--lags", 1,
+                         "--draws", 100, "--seed", 3)
+    assert code == 0, err
+    code, js, err = run("backtest", DEMO, "--origins", 11, "--horizon", 2, "--lags", 1,
+                        "--draws", 100, "--seed", 3, "--json")
+    assert code == 0, err
+    tests = json.loads(js)["calibration"]
+    pit = out[out.index("PIT calibration"):].splitlines()
+    assert pit[1].split()[:5] == ["model", "h", "flagged", "of", "min"]
+    rows = {(r.split()[0], int(r.split()[1])): r.split()[2:] for r in pit[2:6]}
+    assert set(rows) == {(m, h) for m in ("model", "ols_var") for h in (1, 2)}
+    for (model, h), (flagged, of, min_p, *_) in rows.items():
+        ps = [t["p_value"] for t in tests if (t["model"], t["horizon"]) == (model, h)]
+        assert int(of) == len(ps) == len(NAMES)
+        assert int(flagged) == sum(p < 0.05 for p in ps)
+        assert float(min_p) == pytest.approx(min(ps), rel=0.05)
+    assert "energy score of all series jointly" in out
+
+
+def test_backtest_report_explains_dm_tests_pinball_and_log_scores(run, tmp_path) -> None:
+    report = tmp_path / "report.html"
+    code, _, err = run("backtest", DEMO, "--origins", 4, "--horizon", 2, "--lags", 1,
+                       "--draws", 100, "--report", report)
+    assert code == 0, err
+    page = report.read_text()
+    sections = {}
+    for chunk in page.split("<h2>")[1:]:
+        heading, _, body = chunk.partition("</h2>")
+        sections[heading] = body
+    dm = next(b for h, b in sections.items() if h.startswith("Diebold-Mariano"))
+    assert "negative statistic means the model" in dm and "p-value below 0.05" in dm
+    assert "<table" in dm and "random_walk" in dm and "(p=" in dm
+    pinball = next(b for h, b in sections.items() if h.startswith("Pinball loss"))
+    assert "Lower is better" in pinball and "<table" in pinball
+    log = next(b for h, b in sections.items() if h.startswith("Log score"))
+    assert "Higher (less negative) is better" in log and "<table" in log
+    energy = next(b for h, b in sections.items() if h.startswith("Energy score"))
+    assert "Lower is better" in energy and "<table" in energy
+
+
 def test_backtest_with_exponential_smoothing_benchmark(run) -> None:
     code, out, err = run("backtest", DEMO, "--origins", 3, "--horizon", 2, "--lags", 1,
                          "--draws", 100, "--period", 12, "--ets", "--json")
@@ -483,15 +546,49 @@ def test_gibbs_progress_is_drawn_on_a_terminal(run, monkeypatch) -> None:
     assert err.endswith("] 300/300 chain sweeps\n")  # 2 chains x (50 + 100) sweeps
 
 
+def test_a_forecast_from_unconverged_chains_says_so(run) -> None:
+    """It printed forecasts with no word while `fit --summary` said NOT converged."""
+    code, out, err = run("forecast", DEMO, "--horizon", "2", "--prior", "independent",
+                         "--lags", "1", "--keep", "20", "--burn", "0", "--chains", "2",
+                         "--seed", "5")
+    assert code == 0, err
+    line = next(x for x in out.splitlines() if x.startswith("convergence:"))
+    assert "worst R-hat" in line and "min ESS bulk" in line and line.endswith("NOT converged")
+    assert "do not trust this fit: Bulk ESS below 400" in out
+    assert "warning: the sampler's chains have not converged" in err
+    code, out, err = run("forecast", DEMO, "--horizon", "2", "--prior", "independent",
+                         "--lags", "1", "--keep", "20", "--burn", "0", "--chains", "2",
+                         "--seed", "5", "--json")
+    payload = json.loads(out)
+    assert payload["convergence"]["ok"] is False and payload["warnings"]
+    code, out, _ = run("forecast", DEMO, "--horizon", "2", "--lags", "1")
+    assert "convergence:" not in out  # exact sampler: nothing to say
+
+
 def test_fit_with_common_volatility_and_outlier_periods(run):
     code, out, err = run("fit", DEMO, "--lags", "1", "--volatility", "common", "--chains", "2",
                          "--burn", "20", "--keep", "40", "--seed", "1", "--json")
     assert code == 0, err
     assert json.loads(out)["diagnostics"] is not None
+    assert "stochastic volatility" in json.loads(out)["log_marginal_likelihood_note"]
+    code, out, err = run("forecast", DEMO, "--horizon", "2", "--lags", "1", "--volatility",
+                         "common", "--chains", "2", "--burn", "20", "--keep", "40", "--seed",
+                         "1")
+    assert code == 0, err  # the label named the independent prior
+    assert ("log marginal likelihood: n/a (no closed form with stochastic volatility"
+            in out)
     code, out, err = run("fit", DEMO, "--lags", "1", "--prior", "independent", "--outlier",
                          "2020-04-01:2", "--chains", "2", "--burn", "20", "--keep", "40",
                          "--seed", "1", "--json")
     assert code == 0, err
+    assert json.loads(out)["outlier_scales"][0]["start"] == "2020-04-01"
+    code, out, err = run("fit", DEMO, "--lags", "1", "--prior", "independent", "--outlier",
+                         "2020-04-01:2", "--chains", "2", "--burn", "20", "--keep", "40",
+                         "--seed", "1", "--summary")
+    assert code == 0, err  # the estimated scales were never shown
+    assert "outlier periods: shock scale" in out
+    row = next(x for x in out.splitlines() if x.strip().startswith("2020-04-01"))
+    assert float(row.split()[2]) > 0  # the median scale
     code, _, err = run("fit", DEMO, "--outlier", "April:2")
     assert code == 2 and "DATE:PERIODS" in err
 
@@ -506,3 +603,82 @@ def test_backtest_with_the_gibbs_sampler(run):
     scores = json.loads(out)["scores"]
     assert {r["model"] for r in scores} >= {"model", "ols_var"}
     assert all(r["crps"] >= 0 for r in scores if r["crps"] is not None)
+
+
+# ---------------------------------------------------------------------- input handling
+def _one_cell(row: int, column: str, value: object):
+    def edit(f: pd.DataFrame) -> pd.DataFrame:
+        f[column] = f[column].astype(object)
+        f.loc[row, column] = value
+        return f
+
+    return edit
+
+
+def test_a_text_cell_is_named_with_its_date_and_data_row(run, tmp_path: Path) -> None:
+    path = _write(tmp_path, "text.csv", _one_cell(29, "brake_pads", "4 units"))
+    code, out, err = run("forecast", path, "--horizon", 2, *FAST)
+    assert (code, out) == (1, "")
+    assert ("series 'brake_pads' is not numeric (dtype str); the first cell that is not a "
+            "number is '4 units' at 2018-06-01 (data row 30)") in err
+
+
+def _day_first(f: pd.DataFrame) -> pd.DataFrame:
+    f["date"] = pd.to_datetime(f["date"]).dt.strftime("%d/%m/%Y")  # 01/02/2016 = 1 February
+    return f
+
+
+def test_dayfirst_reads_day_first_dates(run, tmp_path: Path) -> None:
+    path = _write(tmp_path, "dayfirst.csv", _day_first)
+    code, _, err = run("forecast", path, "--horizon", 2, *FAST)
+    assert code == 1 and "--dayfirst" in err and "'01/02/2016' as 2016-01-02" in err
+    code, out, err = run("forecast", path, "--horizon", 2, *FAST, "--seed", 3, "--dayfirst",
+                         "--json")
+    assert code == 0, err
+    assert out == run("forecast", DEMO, "--horizon", 2, *FAST, "--seed", 3, "--json")[1]
+
+
+@pytest.mark.parametrize("command", [
+    ["forecast", "--horizon", 2], ["fit"], ["backtest"], ["scenario", "--set", "tyres@1=5"],
+    ["shocks"], ["reorder", "--lead-time", 2, "--stock", "tyres=5"],
+])
+def test_every_command_reading_a_data_file_takes_dayfirst(command) -> None:
+    from service.cli import build_parser
+
+    name, *rest = command
+    args = build_parser().parse_args([name, "data.csv", *map(str, rest), "--dayfirst"])
+    assert args.dayfirst is True
+    assert build_parser().parse_args([name, "data.csv", *map(str, rest)]).dayfirst is False
+
+
+def test_incomplete_last_period_is_said_on_stderr(run, tmp_path: Path) -> None:
+    path = _write(tmp_path, "ragged.csv", _one_cell(119, "tyres", np.nan))
+    code, out, err = run("forecast", path, "--horizon", 3, *FAST, "--json")
+    assert code == 0, err
+    assert err == ("fanfold: note: the last period (2025-12-01) is incomplete: tyres is not "
+                   "known yet; forecasting it plus 3 periods ahead\n")
+    assert json.loads(out)["forecasts"]["tyres"]["dates"] == [
+        "2025-12-01", "2026-01-01", "2026-02-01", "2026-03-01"]
+
+    def two(f: pd.DataFrame) -> pd.DataFrame:
+        f.loc[118:, "tyres"] = np.nan
+        f.loc[119, "chains"] = np.nan
+        return f
+
+    code, _, err = run("forecast", _write(tmp_path, "two.csv", two), "--horizon", 1, *FAST)
+    assert code == 0
+    assert err.startswith("fanfold: note: the last 2 periods (2025-11-01 to 2025-12-01) are "
+                          "incomplete: tyres and chains are not known yet; forecasting them "
+                          "plus 1 period ahead\n")
+    help_text = " ".join(run("forecast", "--help")[1].split())
+    assert "When the last periods are incomplete" in help_text
+
+
+def test_forecast_warns_about_negative_demand_on_stderr(run, tmp_path: Path) -> None:
+    path = _write(tmp_path, "negative.csv", _one_cell(40, "chains", -35))
+    code, out, err = run("forecast", path, "--horizon", 2, *FAST, "--seed", 1)
+    assert code == 0 and out
+    assert err == ("fanfold: warning: series 'chains' has 1 negative value(s), the first -35 "
+                   "at 2019-05-01 (data row 41), though 99% of its values are >= 0; in demand "
+                   "data a negative value is usually an error (e.g. returns booked as negative "
+                   "sales): check the data. The model uses the values as given\n")

@@ -148,7 +148,10 @@ def test_shocks_json_is_the_api_layout(run) -> None:
     out = _json(run, *SHOCKS)
     ShocksPublic.model_validate({"model_id": "cli", "version": 1, **out})
     assert set(out) == set(ShocksPublic.model_fields) - {"model_id", "version"}
-    assert out["steps"] == list(range(7)) and out["seed"] == 0
+    assert out["steps"] == list(range(7)) and isinstance(out["seed"], int)
+    # one seed rule for every command: fresh unless given, and given back in the output
+    again = _json(run, *SHOCKS, "--seed", out["seed"])
+    assert again["responses"] == out["responses"]
     assert list(out["responses"]) == NAMES and out["units"]["tyres"] == "units"
     pw = out["responses"]["tyres"]["chains"]
     assert set(pw["bands"]) == {"68", "90"}
@@ -171,7 +174,7 @@ def test_shocks_chosen_shocks_and_shares_json(run) -> None:
 
 
 def test_shocks_text(run) -> None:
-    code, out, err = run(*SHOCKS, "--shock", "tyres", "--shares")
+    code, out, err = run(*SHOCKS, "--shock", "tyres", "--shares", "--seed", 0)
     assert code == 0 and err == ""
     assert out.startswith("Fanfold shocks: responses to a one-standard-deviation shock "
                           "(recursive), 200 draws, seed 0")
@@ -290,6 +293,72 @@ def test_reorder_needs_a_lead_time(run) -> None:
     assert code == 2 and "--lead-time" in err
 
 
+def _positions(tmp_path: Path, text: str) -> Path:
+    path = tmp_path / "positions.csv"
+    path.write_text(text)
+    return path
+
+
+def test_reorder_stock_file_matches_stock_flags_and_rounds_to_lots(run, tmp_path) -> None:
+    path = _positions(tmp_path, "item,on_hand,on_order,backorders,lot_size\n"
+                                "tyres,2100,900,,500\n\n"
+                                "tyres+chains,3000,0,100,\n")
+    from_file = _json(run, *REORDER, "--stock", "chains=1500", "--stock-file", path)
+    flags = _json(run, *REORDER, "--stock", "chains=1500", "--stock", "tyres=2100,900",
+                  "--stock", "tyres+chains=3000,0,100", "--order-quantity", "tyres=500")
+    assert from_file == flags
+    chains, tyres, kit = from_file["items"]
+    assert (chains["name"], tyres["name"], kit["name"]) == ("chains", "tyres", "tyres+chains")
+    assert kit["series"] == ["tyres", "chains"] and kit["inventory_position"] == 2900.0
+    assert tyres["suggested_order"] > 0 and tyres["suggested_order"] % 500 == 0
+
+
+def test_reorder_stock_file_lot_sizes_serve_a_fill_rate(run, tmp_path) -> None:
+    path = _positions(tmp_path, "item,on_hand,on_order,lot_size\ntyres,100,0,500\n")
+    out = _json(run, *REORDER, "--stock-file", path, "--fill-rate", "0.98")
+    assert out["items"][0]["target"] == "fill_rate"
+    assert out["items"][0]["suggested_order"] % 500 == 0
+
+
+@pytest.mark.parametrize(("text", "message"), [
+    ("item,on_hand\ntyres,5\n", "no 'on_order' column; expected a CSV file with a header "
+                                 "row and columns item, on_hand, on_order and optionally "
+                                 "backorders, lot_size"),
+    ("item,on_hand,on_order,price\ntyres,5,0,3\n", "column 'price' is not a known column"),
+    ("item,on_hand,on_order\ntyres,-5,0\n", "data row 1 (tyres): on_hand is -5; it must be "
+                                            ">= 0"),
+    ("item,on_hand,on_order\nchains,1,0\ntyres,five,0\n",
+     "data row 2 (tyres): on_hand 'five' is not a number"),
+    ("item,on_hand,on_order\ntyres,,0\n", "data row 1 (tyres): on_hand is empty"),
+    ("item,on_hand,on_order,lot_size\ntyres,5,0,0\n",
+     "data row 1 (tyres): lot_size is 0; it must be > 0"),
+    ("item,on_hand,on_order\ntyres,5,0\ntyres,6,0\n",
+     "data row 2 (tyres): the item is also on data row 1"),
+    ("item,on_hand,on_order\ntyres,5\n", "data row 1 has 2 cells for 3 columns"),
+    ("item,on_hand,on_order\n", "no items below the header"),
+    ("", "the file is empty"),
+])
+def test_reorder_stock_file_errors_exit_1_before_fitting(run, tmp_path, text, message) -> None:
+    code, out, err = run(*REORDER, "--stock-file", _positions(tmp_path, text))
+    assert (code, out) == (1, "") and _one_line_error(err)
+    assert f"stock file '{tmp_path / 'positions.csv'}': {message}" in err
+
+
+def test_reorder_stock_file_unknown_series_and_clashes(run, tmp_path) -> None:
+    path = _positions(tmp_path, "item,on_hand,on_order\ntyres,5,0\ntyres+pedals,5,0\n")
+    code, _, err = run(*REORDER, "--stock-file", path)
+    assert code == 1 and _one_line_error(err)
+    assert ("data row 2 (tyres+pedals): unknown series 'pedals'; series are tyres, "
+            "inner_tubes, brake_pads, chains, cassettes") in err
+    code, _, err = run(*REORDER, "--stock-file", path, "--stock", "tyres=1")
+    assert code == 2 and "item 'tyres' is in --stock and in the stock file" in err
+    lots = _positions(tmp_path, "item,on_hand,on_order,lot_size\ntyres,5,0,10\n")
+    code, _, err = run(*REORDER, "--stock-file", lots, "--order-quantity", "tyres=20")
+    assert code == 2 and "the stock file gives its lot_size (data row 1 (tyres))" in err
+    code, _, err = run(*REORDER, "--stock-file", tmp_path / "nope.csv")
+    assert code == 1 and "stock file" in err and "not found" in err
+
+
 # ---------------------------------------------------------------------- --plot
 def _png(path: Path) -> bool:
     return path.read_bytes()[:8] == PNG and path.stat().st_size > 10_000
@@ -326,10 +395,13 @@ def test_help_lists_the_planning_commands(run) -> None:
     ("scenario", ["default: 12", "default: 2000", "default: 25", "default: 0.05,0.5,0.95",
                   "default: a fresh random seed", "default: no file", "default: auto"]),
     ("shocks", ["default: 24", "default: recursive", "default: sd", "default: 1000",
-                "default: 68,90", "default: 0", "default: all", "default: the data's column"]),
+                "default: 68,90", "default: a fresh random seed", "default: all",
+                "default: the data's column"]),
     ("reorder", ["default: 0.95 unless --fill-rate", "default: 4000", "default: 0",
                  "default: 1", "default: 0.05,0.5,0.95", "default: a fresh random seed"]),
-    ("forecast", ["default: no file"]),
+    ("forecast", ["default: no file", "default: a fresh random seed"]),
+    ("fit", ["default: a fresh random seed"]),
+    ("backtest", ["default: a fresh random seed"]),
 ])
 def test_planning_help_states_defaults(run, command: str, defaults: list[str]) -> None:
     code, out, _ = run(command, "--help")

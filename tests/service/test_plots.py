@@ -9,7 +9,14 @@ import pandas as pd
 import pytest
 
 from priors import FanfoldVAR
-from service.plots import fan_chart_png, period_name, responses_png, scenario_png
+from priors.backtest import rolling_origin
+from service.plots import (
+    backtest_fan_png,
+    fan_chart_png,
+    period_name,
+    responses_png,
+    scenario_png,
+)
 
 DEMO = Path(__file__).resolve().parents[2] / "examples" / "bike_parts_demand.csv"
 NAMES = ["tyres", "inner_tubes", "brake_pads", "chains", "cassettes"]
@@ -24,6 +31,14 @@ def data() -> pd.DataFrame:
 @pytest.fixture(scope="module")
 def model(data: pd.DataFrame) -> FanfoldVAR:
     return FanfoldVAR(lags=2, transforms={"tyres": "log"}).fit(data)
+
+
+@pytest.fixture(scope="module")
+def backtest(data: pd.DataFrame):
+    """3 origins, 3 steps: the last origin's forecast runs 2 months past the data."""
+    return rolling_origin(data, params={"lags": 1, "tightness": 0.2, "sum_coef": None,
+                                        "initial": None, "seasonal": False},
+                          origins=3, horizon=3, draws=50, rng=np.random.default_rng(6))
 
 
 def _is_png(path: Path) -> bool:
@@ -117,3 +132,56 @@ def test_unwritable_path_raises_and_closes(model, tmp_path: Path) -> None:
                                             ("other", "periods")])
 def test_period_name(kind: str, name: str) -> None:
     assert period_name(kind) == name
+
+
+# ---------------------------------------------------------------------- backtest fan charts
+def _tick_labels(ax) -> list[str]:
+    return [t.get_text() for t in ax.get_xticklabels() if t.get_text()]
+
+
+def _line(ax, label: str):
+    return next(line for line in ax.get_lines() if line.get_label() == label)
+
+
+def test_backtest_fan_chart_has_dates_after_the_origin(backtest, data, tmp_path) -> None:
+    k = len(backtest.origins) - 1
+    origin = data.index[backtest.origins[k] - 1]  # the last month the model saw
+    path = tmp_path / "origin.png"
+    fig = backtest_fan_png(str(path), backtest, k, history=data)
+    assert _is_png(path) and _no_open_figures()
+    assert len(fig.axes) == len(NAMES)
+    following = pd.date_range(origin, periods=4, freq="MS")[1:]  # 2 past the data's end
+    for ax, name in zip(fig.axes, NAMES, strict=True):
+        labels = _tick_labels(ax)
+        assert len(labels) >= 3
+        ticks = pd.to_datetime(labels, format="%Y-%m")  # raises unless every one is a date
+        assert origin in ticks and ticks.max() <= following[-1]
+        assert not any("." in label for label in labels)
+        assert list(pd.to_datetime(_line(ax, "median forecast").get_xdata())) == list(following)
+        assert list(pd.to_datetime(_line(ax, "forecast origin").get_xdata())) == [origin] * 2
+        assert ax.get_ylabel() == f"{name} (units)"
+        assert "step" not in ax.get_xlabel()
+    assert set(_legend_labels(fig)) == {"data before the origin", "central 90% interval",
+                                        "median forecast", "what happened", "forecast origin"}
+
+
+def test_backtest_fan_chart_without_dates_has_whole_periods(backtest, data, tmp_path) -> None:
+    plain = data.reset_index(drop=True)
+    fig = backtest_fan_png(str(tmp_path / "plain.png"), backtest, 0, history=plain,
+                           units={"tyres": "tyres sold"})
+    for ax in fig.axes:
+        labels = [s.replace("\u2212", "-") for s in _tick_labels(ax)]
+        assert labels and all(float(s) == int(s) for s in labels)  # no 2.5, 7.5, ...
+        assert ax.get_xlabel() == "periods after the forecast origin"
+        assert list(_line(ax, "forecast origin").get_xdata()) == [0, 0]
+        assert list(_line(ax, "median forecast").get_xdata()) == [1, 2, 3]
+    assert fig.axes[0].get_ylabel() == "tyres (tyres sold)"
+    assert fig.axes[1].get_ylabel() == "inner_tubes (units)"
+
+
+def test_backtest_fan_chart_refuses_a_missing_origin(backtest, data, tmp_path) -> None:
+    with pytest.raises(ValueError, match="origin index k must be 0 to 2; got 3"):
+        backtest_fan_png(str(tmp_path / "x.png"), backtest, 3, history=data)
+    with pytest.raises(ValueError, match="history has 10 rows"):
+        backtest_fan_png(str(tmp_path / "x.png"), backtest, 0, history=data.iloc[:10])
+    assert _no_open_figures()

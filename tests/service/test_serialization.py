@@ -57,8 +57,10 @@ def test_forecast_dict_layout(model: FanfoldVAR) -> None:
     out = forecast_to_dict(model, fc, quantiles=QUANTILES, seed=7, draws=200)
 
     assert list(out) == ["forecasts", "configuration", "lags", "hyperparameters",
-                         "log_marginal_likelihood", "seed", "draws", "horizon",
-                         "rejected_explosive_share"]
+                         "log_marginal_likelihood", "log_marginal_likelihood_note", "seed",
+                         "draws", "horizon", "rejected_explosive_share", "convergence",
+                         "warnings"]
+    assert out["convergence"] is None and out["warnings"] == []  # exact sampler
     assert list(out["forecasts"]) == list(model.series_.names)
     assert (out["lags"], out["seed"], out["draws"], out["horizon"]) == (2, 7, 200, 4)
     assert "lags" not in out["hyperparameters"]
@@ -94,8 +96,8 @@ def test_summary_dict_layout(model: FanfoldVAR) -> None:
     out = summary_to_dict(model, 0.8)
     n, k = 5, 1 + 5 * 2
     assert list(out) == ["lags", "configuration", "hyperparameters",
-                         "log_marginal_likelihood", "lag_search", "coefficients", "sigma",
-                         "span"]
+                         "log_marginal_likelihood", "log_marginal_likelihood_note",
+                         "lag_search", "coefficients", "sigma", "span"]
     assert out["lag_search"] == []
     assert len(out["coefficients"]) == n * k
     first = out["coefficients"][0]
@@ -170,3 +172,58 @@ def test_frame_from_csv_keeps_duplicate_names() -> None:
 def test_frame_from_csv_errors(text: str, error: type, match: str) -> None:
     with pytest.raises(error, match=match):
         frame_from_csv(text)
+
+
+def _csv(dates: list[str]) -> str:
+    return "date,tyres\n" + "".join(f"{d},{100 + i % 5}\n" for i, d in enumerate(dates))
+
+
+DAY_FIRST = [f"01/{m:02d}/2024" for m in range(1, 13)]  # 1 January .. 1 December
+
+
+def test_frame_from_csv_reads_day_first_dates_when_asked() -> None:
+    frame = frame_from_csv(_csv(DAY_FIRST), dayfirst=True)
+    assert list(frame.index) == list(pd.date_range("2024-01-01", periods=12, freq="MS"))
+    iso = frame_from_csv(_csv([f"2024-{m:02d}-01" for m in range(1, 13)]), dayfirst=True)
+    assert list(iso.index) == list(frame.index)  # year first: dayfirst changes nothing
+
+
+def test_frame_from_csv_reads_a_date_that_is_only_day_first_without_warning() -> None:
+    # pandas would guess the format with a "Parsing dates in %d/%m/%Y format" warning
+    # (an error under this suite's filterwarnings); the first date decides the order
+    dates = ["31/01/2024", "29/02/2024", "31/03/2024"]
+    for dayfirst in (False, True):
+        frame = frame_from_csv(_csv(dates), dayfirst=dayfirst)
+        assert frame.index[1] == pd.Timestamp("2024-02-29")
+
+
+def test_ambiguous_day_first_dates_read_month_first_suggest_dayfirst() -> None:
+    # two years of 01/02/2024 ... read month first are 2 January ...: daily, then a jump
+    dates = DAY_FIRST + [d.replace("2024", "2025") for d in DAY_FIRST]
+    with pytest.raises(TimeIndexError, match=r"read month first \('01/02/2024' as 2024-01-02\)"
+                                             r".*not evenly spaced.*read day first "
+                                             r"\('01/02/2024' as 2024-02-01\).*--dayfirst") as e:
+        frame_from_csv(_csv(dates))
+    assert e.value.argument == "dayfirst"
+    # one year of them is a regular daily calendar (1-12 January) too: month first stays
+    assert frame_from_csv(_csv(DAY_FIRST)).index[-1] == pd.Timestamp("2024-01-12")
+
+
+def test_a_later_date_that_is_only_day_first_suggests_dayfirst() -> None:
+    dates = ["07/01/2024", "14/01/2024", "21/01/2024"]  # weekly, day first
+    with pytest.raises(TimeIndexError, match=r"'14/01/2024' cannot be: if the day comes first, "
+                                             r"give the dayfirst option \(--dayfirst") as e:
+        frame_from_csv(_csv(dates))
+    assert e.value.argument == "dayfirst"
+    assert frame_from_csv(_csv(dates), dayfirst=True).index[1] == pd.Timestamp("2024-01-14")
+
+
+def test_dayfirst_refuses_a_first_date_that_cannot_be_day_first() -> None:
+    with pytest.raises(TimeIndexError, match=r"'01/31/2024', cannot be day first \(there is no "
+                                             r"month 31\)"):
+        frame_from_csv(_csv(["01/31/2024", "02/29/2024", "03/31/2024"]), dayfirst=True)
+
+
+def test_month_first_dates_are_not_second_guessed() -> None:
+    frame = frame_from_csv(_csv([f"{m:02d}/01/2024" for m in range(1, 13)]))
+    assert frame.index[1] == pd.Timestamp("2024-02-01")

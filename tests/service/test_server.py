@@ -181,8 +181,11 @@ def test_serve_demo_stores_a_model_and_prints_requests(monkeypatch, capsys):
 
     monkeypatch.setattr(uvicorn, "run", lambda *a, **k: None)
     assert main(["serve", "--demo", "--port", "8125"]) == 0
-    out = capsys.readouterr().out
+    out, err = capsys.readouterr()
     assert "demo model" in out and "/fan-chart?horizon=12" in out
+    # says where the data go (it wrote fanfold.db into the working directory silently)
+    database = Settings().database_url.removeprefix("sqlite:///")
+    assert f"stored in the SQLite file {database}" in err
     model_id = out.split("demo model ")[1].split(":")[0]
     with TestClient(create_app(Settings())) as c:  # same database (FANFOLD_DATABASE_URL)
         assert c.get(f"/v1/models/{model_id}").json()["name"] == "bicycle-parts demo"

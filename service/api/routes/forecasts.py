@@ -41,15 +41,27 @@ _BODY = {
                 "example": _CSV_EXAMPLE,
                 "description": "dates in the first column, one column per series; the "
                                "settings of ForecastCreate (all but series, start, "
-                               "frequency, dates) as query parameters",
+                               "frequency, dates) as query parameters, and dayfirst=true "
+                               "to read dates such as 01/02/2024 as 1 February",
             },
         },
     }
 }
 
 
-def _query_settings(request: Request) -> ForecastSettings:
+_TRUE, _FALSE = ("true", "1", "yes", "on"), ("false", "0", "no", "off")
+
+
+def _query_settings(request: Request) -> tuple[ForecastSettings, bool]:
+    """The settings of a CSV body from the query string, and ``dayfirst`` (how to read
+    its dates: not a model setting)."""
     raw: dict[str, Any] = dict(request.query_params)
+    dayfirst_text = str(raw.pop("dayfirst", "false")).lower()
+    if dayfirst_text not in _TRUE + _FALSE:
+        raise RequestValidationError([{
+            "type": "bool_parsing", "loc": ("query", "dayfirst"),
+            "msg": "Input should be a valid boolean, unable to interpret input",
+            "input": dayfirst_text}])
     if "quantiles" in raw:
         raw["quantiles"] = [q for q in raw["quantiles"].split(",") if q.strip()]
     for key in ("sum_coef", "initial", "season_scale"):
@@ -58,12 +70,12 @@ def _query_settings(request: Request) -> ForecastSettings:
     for key in ("hyperprior", "seasonal", "trend", "constant", "cumulative", "counts",
                 "reject_explosive"):  # query strings: true/false, 1/0, yes/no
         value = str(raw.get(key, "")).lower()
-        if value in ("true", "1", "yes", "on"):
+        if value in _TRUE:
             raw[key] = True
-        elif value in ("false", "0", "no", "off"):
+        elif value in _FALSE:
             raw[key] = False
     try:
-        return ForecastSettings.model_validate(raw)
+        return ForecastSettings.model_validate(raw), dayfirst_text in _TRUE
     except ValidationError as exc:
         raise RequestValidationError([{**e, "loc": ("query", *e["loc"])}
                                       for e in exc.errors()]) from None
@@ -83,7 +95,8 @@ async def _spec_and_data(request: Request) -> tuple[ForecastSettings, Any]:
         return spec, lambda: frame_from_spec(spec)
     if ctype in ("text/csv", "application/csv"):
         text = body.decode("utf-8-sig", "replace")  # a byte-order mark is ignored here too
-        return _query_settings(request), lambda: frame_from_csv(text)
+        spec, dayfirst = _query_settings(request)
+        return spec, lambda: frame_from_csv(text, dayfirst=dayfirst)
     raise _Unsupported(ctype)
 
 

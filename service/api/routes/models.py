@@ -36,7 +36,7 @@ from ...schemas import (
     ModelsPublic,
     ObservationsCreate,
 )
-from ...serialization import data_from_dict, summary_to_dict
+from ...serialization import convergence_warnings, data_from_dict, summary_to_dict
 from ...store import (
     BadCursor,
     delete_model,
@@ -76,8 +76,10 @@ def _public(row: StoredModel, model: FanfoldVAR | None = None) -> dict[str, Any]
         "span": summary["span"], "lags": row.lags,
         "hyperparameters": summary["hyperparameters"],
         "log_marginal_likelihood": summary["log_marginal_likelihood"],
+        "log_marginal_likelihood_note": summary["log_marginal_likelihood_note"],
         "coefficients": summary["coefficients"], "sigma": summary["sigma"],
         "diagnostics": row.diagnostics,
+        "warnings": [*model.warnings_, *convergence_warnings(row.diagnostics)],
     }
 
 
@@ -165,7 +167,7 @@ def _large(spec: ModelCreate, frame: Any, settings: Any) -> bool:
     T, n = frame.shape
     p = spec.lags if isinstance(spec.lags, int) else (spec.max_lags or 13)
     return (n * (n * p + 1) > settings.sync_max_coefficients
-            or gibbs_work(spec, n)[0] > settings.sync_max_gibbs_work
+            or gibbs_work(spec, n, T)[0] > settings.sync_max_gibbs_work
             or fit_seconds(spec, n, T) * settings.cost_scale > settings.request_timeout_s / 2)
 
 
@@ -207,8 +209,8 @@ async def forecast_stored(model_id: uuid.UUID, body: ModelForecastCreate, sessio
                           settings: SettingsDep, tenant: TenantDep,
                           admission: AdmissionDep) -> JSONResponse:
     row = row_or_404(session, tenant, model_id)
-    payload = await timed(settings, lambda: forecast_answer(load_fitted(row), body, settings,
-                                                            admission=admission))
+    payload = await timed(settings, lambda: forecast_answer(
+        load_fitted(row), body, settings, admission=admission, convergence=row.diagnostics))
     return JSONResponse(payload)
 
 

@@ -1,0 +1,1 @@
+"""Files the service serves itself (no public web address at run time)."""

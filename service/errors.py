@@ -8,6 +8,7 @@ input) ``errors: [{field, message}]``. Engine exceptions (:mod:`priors.errors`) 
 
 from __future__ import annotations
 
+import re
 from collections.abc import Sequence
 from http import HTTPStatus
 from typing import Any
@@ -81,8 +82,14 @@ def problem(
     return JSONResponse(body, status_code=status, media_type=PROBLEM_JSON, headers=headers)
 
 
+#: the names pydantic gives the branches of a union in an error's location ("lags.int",
+#: "lags.literal['auto']"): not part of the field the caller wrote
+_UNION_BRANCH = re.compile(r"^(int|float|str|bool|none|[a-z-]+\[.*\])$")
+
+
 def _field(loc: Sequence[Any]) -> str:
     parts = [str(p) for p in loc if p not in ("body", "query")]
+    parts = [p for i, p in enumerate(parts) if i == 0 or not _UNION_BRANCH.match(p)]
     return ".".join(parts) or "body"
 
 

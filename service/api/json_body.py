@@ -9,6 +9,8 @@
   offset as the field on some routes), as the OpenAPI document says.
 - A key that appears twice in one object is a 422 naming the key (JSON parsers keep the
   last one silently, so ``{"horizon": 3, "horizon": 30}`` meant 30 without a word).
+- An Accept header that admits no JSON answer is a 406 (RFC 9110 sec. 15.5.7) on every
+  route that answers JSON (``/metrics`` answers Prometheus text and is left alone).
 
 :class:`JSONBodyRoute` applies this to FastAPI routes with a body model; the one-shot
 forecast route, which also reads CSV, calls :func:`read_json` itself.
@@ -22,14 +24,38 @@ from collections.abc import Callable, Coroutine
 from typing import Any
 
 from fastapi import Request, Response
+from fastapi.responses import JSONResponse
 from fastapi.routing import APIRoute
 from starlette.exceptions import HTTPException
 
 from ..errors import InvalidField
 
-__all__ = ["BOM", "JSONBodyRoute", "is_json_media_type", "read_json"]
+__all__ = ["BOM", "JSONBodyRoute", "accepts_json", "is_json_media_type", "read_json"]
 
 BOM = b"\xef\xbb\xbf"
+
+
+def accepts_json(accept: str | None) -> bool:
+    """Whether an Accept header admits a JSON answer (absent: anything goes). The
+    answers are application/json, or application/problem+json for errors."""
+    if not accept or not accept.strip():
+        return True
+    for part in accept.split(","):
+        media, *params = [p.strip() for p in part.split(";")]
+        q = 1.0
+        for param in params:
+            name, _, value = param.partition("=")
+            if name.strip().lower() == "q":
+                try:
+                    q = float(value)
+                except ValueError:
+                    q = 0.0
+        media = media.lower()
+        if q > 0 and (media in ("*/*", "application/*", "application/json",
+                                "application/problem+json")
+                      or (media.startswith("application/") and media.endswith("+json"))):
+            return True
+    return False
 
 
 def is_json_media_type(content_type: str | None) -> bool:
@@ -88,6 +114,13 @@ BODY_RESPONSES: dict[int | str, dict[str, Any]] = {
 }
 
 
+def _negotiate(request: Request) -> None:
+    if not accepts_json(request.headers.get("accept")):
+        raise HTTPException(406, "this resource answers application/json (errors: "
+                                 "application/problem+json); the Accept header admits "
+                                 "neither")
+
+
 class JSONBodyRoute(APIRoute):
     """A route whose JSON body (if it has a body model) is read by :func:`read_json`
     before FastAPI validates it; its OpenAPI entry lists the 400 and 415 answers."""
@@ -96,13 +129,31 @@ class JSONBodyRoute(APIRoute):
         super().__init__(path, endpoint, **kwargs)
         if self.body_field is not None:
             self.responses = {**BODY_RESPONSES, **self.responses}
+        if self._answers_json():
+            self.responses = {406: {"description": "the Accept header admits no JSON answer",
+                                    "content": {"application/problem+json": {}}},
+                              **self.responses}
+
+    def _answers_json(self) -> bool:
+        cls = self.response_class
+        return cls is not Response and not (isinstance(cls, type)
+                                            and not issubclass(cls, JSONResponse))
 
     def get_route_handler(self) -> Callable[[Request], Coroutine[Any, Any, Response]]:
         handler = super().get_route_handler()
+        answers_json = self._answers_json()
+
+        async def negotiated(request: Request) -> Response:
+            if answers_json:
+                _negotiate(request)
+            return await handler(request)
+
         if self.body_field is None:
-            return handler
+            return negotiated
 
         async def checked(request: Request) -> Response:
+            if answers_json:
+                _negotiate(request)
             ctype = request.headers.get("content-type")
             if not is_json_media_type(ctype):
                 raise unsupported_media_type(ctype or "")

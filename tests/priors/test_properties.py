@@ -151,3 +151,32 @@ def test_to_frame_has_one_row_per_series_and_step(y, h):
     assert set(table["step"]) == set(range(1, h + 1))
     first = table[(table["series"] == "y1") & (table["step"] == 1)].iloc[0]
     assert first["mean"] == fc.mean()[0, 0] and first["median"] == fc.median()[0, 0]
+
+
+# ---------------------------------------------------------------- arbitrary inputs
+
+raw_data = arrays(
+    np.float64,
+    st.tuples(st.integers(1, 40), st.integers(1, 4)),
+    elements=st.one_of(st.floats(-1e6, 1e6, allow_subnormal=False),
+                       st.integers(-5, 50).map(float)),
+)
+
+
+@settings(max_examples=80, deadline=None)
+@given(y=raw_data, lags=st.sampled_from([1, 2, "auto"]), h=st.integers(1, 4))
+def test_arbitrary_finite_data_fit_or_raise_a_documented_error(y, lags, h):
+    """Any finite (T, n) array: the default model either fits and forecasts finite
+    numbers, or raises one of the documented exceptions (priors.errors), never anything
+    else (a LinAlgError, an IndexError, a numpy warning turned error...)."""
+    from priors.errors import PriorsError
+
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", ConvergenceWarning)  # tuning at a bound: advice
+        try:
+            model = FanfoldVAR(lags=lags).fit(y, warn=False)
+            paths = model.forecast(h, rng=np.random.default_rng(0), draws=50).paths
+        except PriorsError:
+            return
+    assert paths.shape == (50, h, y.shape[1])
+    assert np.isfinite(paths).all()

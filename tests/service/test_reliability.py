@@ -72,6 +72,37 @@ def test_live_server_conforms_to_its_openapi_document(keyed_server):
     assert len(tested) == 19, tested
 
 
+def test_sigterm_under_load_finishes_what_is_in_flight(tmp_path, demo):
+    """SIGTERM (what an orchestrator sends): the requests already being answered finish
+    with their answers, and the process exits within the drain time (20 s)."""
+    import signal
+    from concurrent.futures import ThreadPoolExecutor
+
+    port = _free_port()
+    base = f"http://127.0.0.1:{port}"
+    env = {"FANFOLD_DATABASE_URL": f"sqlite:///{tmp_path / 'drain.db'}",
+           "FANFOLD_RATE_LIMIT_PER_MINUTE": "0"}
+    proc = _start(port, tmp_path / "drain.log", env)
+    body = {**_body(demo, 0), "horizon": 24, "draws": 4000, "seed": 1}
+    body.pop("name")
+    try:
+        with ThreadPoolExecutor(max_workers=6) as pool:
+            calls = [pool.submit(httpx.post, f"{base}/v1/forecasts", json=body, timeout=60)
+                     for _ in range(6)]
+            time.sleep(0.3)  # the requests are in flight
+            proc.send_signal(signal.SIGTERM)
+            started = time.monotonic()
+            answers = [c.result() for c in calls]
+        code = proc.wait(timeout=25)
+        assert time.monotonic() - started < 20.5
+    finally:
+        if proc.poll() is None:
+            proc.kill()
+    assert [a.status_code for a in answers] == [200] * 6  # none cut off
+    assert len({a.content for a in answers}) == 1  # whole answers (same seed, same bytes)
+    assert code in (0, -signal.SIGTERM)
+
+
 def _body(demo, seed: int) -> dict:
     part = demo.iloc[:60][["tyres", "inner_tubes", "brake_pads"]]
     return {"series": {c: part[c].astype(float).tolist() for c in part},

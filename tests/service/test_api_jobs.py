@@ -119,12 +119,14 @@ def test_heartbeat_keeps_a_long_fit_leased(tmp_path, model_body, monkeypatch):
     real = jobs.fit_model
 
     def slow_fit(*args, **kwargs):
-        time.sleep(1.0)  # several leases long
+        time.sleep(3.0)  # several leases long
         return real(*args, **kwargs)
 
     monkeypatch.setattr(jobs, "fit_model", slow_fit)
     settings = Settings(database_url=f"sqlite:///{tmp_path / 'j.db'}", job_workers=1,
-                        job_lease_s=0.3, job_recovery_interval_s=0.1)
+                        job_lease_s=1.0, job_recovery_interval_s=0.1)
+    # a lease of 1 s renewed every third of it: wide enough margins for a loaded machine
+    # (at 0.3 s a busy CI run once missed a beat)
     with TestClient(create_app(settings)) as c:
         location = c.post("/v1/models", json=model_body, headers=ASYNC).headers["location"]
         job = wait_for_job(c, location)

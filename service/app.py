@@ -18,7 +18,7 @@ from starlette.exceptions import HTTPException
 
 from priors import warm_up_kernels
 
-from .api.routes import backtests, forecasts, health, jobs, models, planning
+from .api.routes import backtests, batches, forecasts, health, jobs, models, planning
 from .auth import authenticate
 from .config import Settings, get_settings
 from .db import make_engine, make_session_factory
@@ -95,11 +95,13 @@ def create_app(settings: Settings | None = None) -> FastAPI:
     app.include_router(planning.router, dependencies=protected)
     app.include_router(jobs.router, dependencies=protected)
     app.include_router(backtests.router, dependencies=protected)
+    app.include_router(batches.router, dependencies=protected)
     if settings.docs_enabled:
         _add_docs(app, protected)
     # added last = outermost: ids first, then limits, then metrics around the routes
     app.add_middleware(MetricsMiddleware, metrics=app.state.metrics)
-    app.add_middleware(BodyLimitMiddleware, max_bytes=settings.max_body_bytes)
+    app.add_middleware(BodyLimitMiddleware, max_bytes=settings.max_body_bytes,
+                       path_limits={"/v1/batches": settings.max_batch_body_bytes})
     if settings.cors_origins:
         app.add_middleware(CORSMiddleware, allow_origins=settings.cors_origins,
                            allow_methods=["GET", "POST", "DELETE"],

@@ -434,6 +434,10 @@ def build_parser() -> argparse.ArgumentParser:
 
     add_planning_commands(sub, data_help=data_help, **common)
 
+    from .cli_batch import add_batch_command  # imports this module: not at the top
+
+    add_batch_command(sub, parents=[_model_options()], formatter_class=_HelpFormatter)
+
     keys = sub.add_parser("keys", help="manage API keys", formatter_class=_HelpFormatter,
                           description="Create API keys. The server stores only their hashes.")
     keys_sub = keys.add_subparsers(dest="keys_command", metavar="ACTION", required=True)

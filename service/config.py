@@ -8,7 +8,7 @@ from __future__ import annotations
 
 from functools import lru_cache
 
-from pydantic import Field
+from pydantic import Field, model_validator
 from pydantic_settings import BaseSettings, SettingsConfigDict
 
 from .auth import ApiKey
@@ -75,6 +75,31 @@ class Settings(BaseSettings):
     docs_enabled: bool = True
     cors_origins: list[str] = []
     blas_threads: int = Field(1, ge=0)  # 0 = the libraries' default
+
+    # batch forecasts on dask.distributed (service/batch): the scheduler's address
+    # (tls://host:8786); empty = an in-process LocalCluster for each batch
+    dask_address: str = ""
+    # mutual TLS with the scheduler: CA, client certificate and key files (all or none)
+    dask_tls_ca_file: str = ""
+    dask_tls_cert_file: str = ""
+    dask_tls_key_file: str = ""
+    dask_workers: int = Field(0, ge=0)  # LocalCluster worker processes; 0 = one per core
+    dask_processes: bool = True  # LocalCluster: processes; false = threads of the server
+    batch_chunk_size: int = Field(0, ge=0)  # groups per task; 0 = about 4 tasks per worker
+    batch_retries: int = Field(2, ge=0, le=10)  # re-runs of a task that raised
+    max_batch_groups: int = Field(10_000, ge=1)
+    max_batch_body_bytes: int = Field(16_777_216, ge=1024)  # POST /v1/batches only
+
+    @model_validator(mode="after")
+    def _tls_files_together(self) -> Settings:
+        files = {"dask_tls_ca_file": self.dask_tls_ca_file,
+                 "dask_tls_cert_file": self.dask_tls_cert_file,
+                 "dask_tls_key_file": self.dask_tls_key_file}
+        missing = [k for k, v in files.items() if not v]
+        if 0 < len(missing) < 3:
+            raise ValueError(f"Dask TLS needs all three files; {', '.join(missing)} "
+                             "not set")
+        return self
 
 
 @lru_cache(maxsize=1)

@@ -11,7 +11,8 @@ way. A worker finishing late cannot overwrite a job that was re-queued meanwhile
 final UPDATE requires the attempt number it claimed.
 
 Kinds: "fit_model" (fit and store), "update_model" (append observations to a stored
-model with the independent prior: its Gibbs chains run again) and "backtest". Gibbs fits
+model with the independent prior: its Gibbs chains run again), "backtest" and "batch"
+(one model per group on dask.distributed, :mod:`service.batch`; progress by groups). Gibbs fits
 report progress (0.1 to 0.9 by sweeps done, written at most every
 ``PROGRESS_INTERVAL_S``) and stop at the next report once the job is cancelled or
 superseded.
@@ -275,6 +276,8 @@ class JobRunner:
                 with cancel_scope(limit):
                     if job.kind == "backtest":
                         self._backtest(s, job, mine)
+                    elif job.kind == "batch":
+                        self._batch(s, job, mine)
                     elif job.kind == "update_model":
                         self._update_model(s, job, mine)
                     else:
@@ -430,4 +433,21 @@ class JobRunner:
                    "calibration": calibration}
         s.execute(update(Job).where(*mine).values(status="succeeded", progress=1.0,
                                                   result=payload, updated_at=_now()))
+        s.commit()
+
+    def _batch(self, s: Session, job: Job, mine: tuple[Any, ...]) -> None:
+        """Forecast every group of a long table on Dask; progress by groups done."""
+        from .batch import job as batch_job
+
+        try:
+            result = batch_job.run(job.payload, self.settings, progress=self._progress(mine))
+        except (OSError, TimeoutError) as exc:  # the scheduler cannot be reached
+            where = self.settings.dask_address or "a local cluster"
+            raise _Problem(503, "Batch cluster unavailable",
+                           f"cannot run the batch on {where}: {exc}") from exc
+        s.refresh(job)
+        if job.cancel_requested:
+            raise _Cancelled
+        s.execute(update(Job).where(*mine).values(status="succeeded", progress=1.0,
+                                                  result=result, updated_at=_now()))
         s.commit()

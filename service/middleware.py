@@ -83,25 +83,29 @@ class BodyLimitMiddleware:
     """Refuse request bodies over ``max_bytes`` with a 413 problem response.
 
     Checks Content-Length first, then counts the bytes actually received (a client can
-    omit or understate the header).
+    omit or understate the header). ``path_limits`` gives some paths their own limit
+    (a batch's long table is larger than one model's data).
     """
 
-    def __init__(self, app: ASGIApp, max_bytes: int) -> None:
+    def __init__(self, app: ASGIApp, max_bytes: int,
+                 path_limits: dict[str, int] | None = None) -> None:
         self.app = app
         self.max_bytes = max_bytes
+        self.path_limits = path_limits or {}
 
-    async def _reject(self, send: Send) -> None:
+    async def _reject(self, send: Send, limit: int) -> None:
         await _send_problem(send, 413, "Content Too Large",
-                            f"the request body is larger than the limit of {self.max_bytes} "
+                            f"the request body is larger than the limit of {limit} "
                             "bytes; send fewer observations or series")
 
     async def __call__(self, scope: Scope, receive: Receive, send: Send) -> None:
         if scope["type"] != "http":
             await self.app(scope, receive, send)
             return
+        limit = self.path_limits.get(scope.get("path", ""), self.max_bytes)
         length = dict(scope.get("headers", [])).get(b"content-length")
-        if length is not None and length.isdigit() and int(length) > self.max_bytes:
-            await self._reject(send)
+        if length is not None and length.isdigit() and int(length) > limit:
+            await self._reject(send, limit)
             return
         received = 0
         started = False
@@ -111,7 +115,7 @@ class BodyLimitMiddleware:
             message = await receive()
             if message["type"] == "http.request":
                 received += len(message.get("body", b""))
-                if received > self.max_bytes:
+                if received > limit:
                     raise _TooLarge
             return message
 
@@ -125,7 +129,7 @@ class BodyLimitMiddleware:
             await self.app(scope, counting_receive, tracking_send)
         except _TooLarge:
             if not started:
-                await self._reject(send)
+                await self._reject(send, limit)
 
 
 def header(scope: dict[str, Any], name: bytes) -> str | None:

@@ -26,11 +26,18 @@ def job_public(job: Job) -> dict[str, Any]:
     return JobPublic(
         id=job.id, kind=job.kind, status=job.status, progress=job.progress,  # type: ignore[arg-type]
         attempts=job.attempts, created_at=job.created_at, updated_at=job.updated_at,
-        result=(f"/v1/models/{job.result_model_id}" if job.result_model_id
-                else f"/v1/backtests/{job.id}" if job.kind == "backtest"
-                and job.status == "succeeded" else None),
+        result=_result_link(job),
         problem=job.error,
     ).model_dump(mode="json")
+
+
+def _result_link(job: Job) -> str | None:
+    if job.result_model_id:
+        return f"/v1/models/{job.result_model_id}"
+    if job.status != "succeeded":
+        return None
+    return {"backtest": f"/v1/backtests/{job.id}",
+            "batch": f"/v1/batches/{job.id}/results"}.get(job.kind)
 
 
 def _job_or_404(session: Any, tenant: str, job_id: uuid.UUID) -> Job:

@@ -1,0 +1,85 @@
+"""``/v1/batches``: one model per group of a long table, as a job on dask.distributed."""
+
+from __future__ import annotations
+
+import io
+import uuid
+from typing import Literal
+
+import pandas as pd
+from fastapi import APIRouter, Request, Response
+from starlette.exceptions import HTTPException
+
+from ...batch.job import prepare
+from ...batch.schemas import BatchCreate
+from ...batch.table import TableError
+from ...errors import PROBLEM_JSON, InvalidField
+from ...jobs import get_job, submit_job
+from ...responses import JSONResponse
+from ...schemas import JobPublic
+from ..deps import SessionDep, SettingsDep, TenantDep
+from ..json_body import JSONBodyRoute
+from .jobs import job_public
+
+router = APIRouter(prefix="/v1/batches", tags=["batches"], route_class=JSONBodyRoute)
+
+
+@router.post("", status_code=202, response_model=JobPublic,
+             responses={422: {"description": "invalid table or a limit exceeded",
+                              "content": {PROBLEM_JSON: {}}}},
+             summary="Forecast every group of a long table (a job; poll Location)",
+             description="Fits one model per group (rows sharing the `group_by` labels) "
+                         "and forecasts it, on the server's Dask cluster. The job's "
+                         "progress counts groups; a group that cannot be forecast gets its "
+                         "error in the results and the batch goes on. Results: "
+                         "/v1/batches/{id}/results once the job has succeeded.")
+def create_batch(body: BatchCreate, request: Request, session: SessionDep,
+                 settings: SettingsDep, tenant: TenantDep) -> JSONResponse:
+    try:
+        prepare(body, settings)
+    except TableError as exc:
+        field = "group_by" if exc.column == "group_by" else f"table.{exc.column}"
+        raise InvalidField(field, str(exc)) from None
+    job = submit_job(session=session, tenant=tenant, kind="batch", spec=body,
+                     max_attempts=settings.job_max_attempts)
+    request.app.state.jobs.wake()
+    return JSONResponse(job_public(job), status_code=202,
+                        headers={"Location": f"/v1/jobs/{job.id}", "Retry-After": "1"})
+
+
+@router.get("/{job_id}/results", response_class=Response,
+            summary="Results of a finished batch: forecasts and per-group status",
+            description="JSON (default): the summary, `groups` (one status record per "
+                        "input group: status ok or failed, error_type, error, series, "
+                        "periods, lags) and `forecasts` (one record per group, series and "
+                        "date: mean and q<level>). `format=csv` gives one table as CSV, "
+                        "`table=forecasts` (default) or `table=groups`.",
+            responses={200: {"description": "the results",
+                             "content": {"application/json": {}, "text/csv": {}}},
+                       404: {"description": "no such batch for this caller",
+                             "content": {PROBLEM_JSON: {}}},
+                       409: {"description": "not finished yet; poll /v1/jobs/{id}",
+                             "content": {PROBLEM_JSON: {}}}})
+def read_batch_results(job_id: uuid.UUID, session: SessionDep, tenant: TenantDep,
+                       format: Literal["json", "csv"] = "json",
+                       table: Literal["forecasts", "groups"] = "forecasts") -> Response:
+    job = get_job(session=session, tenant=tenant, job_id=str(job_id))
+    if job is None or job.kind != "batch":
+        raise HTTPException(404, f"batch {job_id} not found")
+    if job.status != "succeeded" or job.result is None:
+        raise HTTPException(409, f"batch {job_id} is {job.status}; poll /v1/jobs/{job_id}")
+    result = job.result
+    status, forecasts = pd.DataFrame(result["status"]), pd.DataFrame(result["forecasts"])
+    if format == "csv":
+        buffer = io.StringIO()
+        (forecasts if table == "forecasts" else status).to_csv(buffer, index=False)
+        return Response(buffer.getvalue(), media_type="text/csv; charset=utf-8",
+                        headers={"Cache-Control": "private, max-age=86400"})
+    summary = {k: v for k, v in result.items() if k not in ("status", "forecasts")}
+    return JSONResponse({"id": job.id, **summary, "groups_status": _records(status),
+                         "forecasts": _records(forecasts)},
+                        headers={"Cache-Control": "private, max-age=86400"})
+
+
+def _records(frame: pd.DataFrame) -> list[dict[str, object]]:
+    return frame.astype(object).where(frame.notna(), None).to_dict(orient="records")

@@ -91,12 +91,14 @@ def _chunk_failure(chunk: Sequence[GroupArrays], exc: BaseException) -> list[Gro
 
 def run_batch(client: Client, groups: Sequence[GroupArrays], spec: ForecastSpec, *,
               chunk_size: int = 0, retries: int = 2, progress: Progress | None = None,
+              timeout_s: float | None = None,
               chunk_function: ChunkFunction = forecast_chunk) -> list[GroupForecast]:
     """Forecast every group on the cluster; the outcomes in the order of ``groups``.
 
     ``chunk_size`` groups per task (0 = :func:`chunk_size_for`); ``progress(done,
     total)`` counts groups as their tasks finish, and may raise to stop the batch (the
-    remaining tasks are cancelled). ``chunk_function`` is the task (a test seam).
+    remaining tasks are cancelled); past ``timeout_s`` seconds (None: no limit) the
+    batch stops with :class:`TimeoutError`. ``chunk_function`` is the task (a test seam).
     """
     if not groups:
         return []
@@ -110,7 +112,7 @@ def run_batch(client: Client, groups: Sequence[GroupArrays], spec: ForecastSpec,
     outcomes: dict[int, list[GroupForecast]] = {}
     done = 0
     try:
-        for future in as_completed(futures, loop=client.loop):
+        for future in as_completed(futures, loop=client.loop, timeout=timeout_s):
             i = futures[future]
             chunk = chunks[i]
             if future.status == "finished":

@@ -6,11 +6,11 @@ from typing import Annotated
 
 from pydantic import ConfigDict, Field, field_validator
 
-from ..schemas import ModelSettings, QuantileLevels, Seed
+from ..schemas import ModelSettings, Number, QuantileLevels, Seed
 
 __all__ = ["BatchCreate"]
 
-Cell = Annotated[float | str | None, Field(allow_inf_nan=False)]
+Cell = Number | str | None
 _EXAMPLE_TABLE = {
     "date": ["2024-01-01", "2024-02-01", "2024-01-01", "2024-02-01"],
     "warehouse": ["leeds", "leeds", "leeds", "leeds"],

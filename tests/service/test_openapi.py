@@ -67,6 +67,7 @@ def test_only_documented_routes_exist(client):
                      "/v1/models/{model_id}", "/v1/models/{model_id}/forecasts",
                      "/v1/models/{model_id}/fan-chart", "/v1/models/{model_id}/observations",
                      "/v1/jobs/{job_id}", "/v1/backtests", "/v1/backtests/{job_id}",
+                     "/v1/batches", "/v1/batches/{job_id}/results",
                      "/v1/models/{model_id}/scenarios",
                      "/v1/models/{model_id}/impulse-responses",
                      "/v1/models/{model_id}/variance-decomposition",

@@ -6,12 +6,14 @@ in-process ``LocalCluster`` (worker processes, one thread each, one per core) fo
 duration of the batch. :func:`run_batch` sends the groups in chunks (many groups per
 task: a task costs the scheduler about a millisecond), each task with ``retries`` for
 errors it raises; a task whose workers kept dying (``KilledWorker``, after the
-scheduler's ``allowed-failures``) and any other task error become failures of the
-groups in its chunk, with the reason. Every input group comes back exactly once.
+scheduler's ``allowed-failures``) is sent again one group per task, so that only the
+group that kills its worker is lost; a task that still fails becomes failures of its
+groups, with the reason. Every input group comes back exactly once.
 """
 
 from __future__ import annotations
 
+import asyncio
 import contextlib
 import math
 import os
@@ -96,48 +98,65 @@ def run_batch(client: Client, groups: Sequence[GroupArrays], spec: ForecastSpec,
     """Forecast every group on the cluster; the outcomes in the order of ``groups``.
 
     ``chunk_size`` groups per task (0 = :func:`chunk_size_for`); ``progress(done,
-    total)`` counts groups as their tasks finish, and may raise to stop the batch (the
-    remaining tasks are cancelled); past ``timeout_s`` seconds (None: no limit) the
+    total)`` counts groups as their outcomes arrive, and may raise to stop the batch
+    (the remaining tasks are cancelled); past ``timeout_s`` seconds (None: no limit) the
     batch stops with :class:`TimeoutError`. ``chunk_function`` is the task (a test seam).
+
+    A chunk whose workers kept dying is sent again one group per task, once, so that
+    only the group that kills its worker is lost, not its neighbours in the chunk.
     """
     if not groups:
         return []
+    if len({g.key for g in groups}) < len(groups):
+        raise ValueError("every group needs its own key")
     workers = len(client.scheduler_info().get("workers", {})) or 1
     size = chunk_size or chunk_size_for(len(groups), workers)
-    chunks = [list(groups[i:i + size]) for i in range(0, len(groups), size)]
     token = uuid.uuid4().hex
-    futures = {client.submit(chunk_function, chunk, spec, key=f"fanfold-batch-{token}-{i}",
-                             retries=retries, pure=False): i
-               for i, chunk in enumerate(chunks)}
-    outcomes: dict[int, list[GroupForecast]] = {}
-    done = 0
+
+    def submit(chunk: list[GroupArrays], name: str) -> Any:
+        return client.submit(chunk_function, chunk, spec, key=f"fanfold-batch-{token}-{name}",
+                             retries=retries, pure=False)
+
+    owner = {submit(list(groups[i:i + size]), str(i // size)): list(groups[i:i + size])
+             for i in range(0, len(groups), size)}
+    outcomes: dict[tuple[str, ...], GroupForecast] = {}
+    stream = as_completed(list(owner), loop=client.loop, timeout=timeout_s)
     try:
-        for future in as_completed(futures, loop=client.loop, timeout=timeout_s):
-            i = futures[future]
-            chunk = chunks[i]
-            if future.status == "finished":
-                got = future.result()
-                outcomes[i] = _matched(chunk, got)
+        for future in stream:
+            chunk = owner.pop(future)
+            # waits if the result was lost with a worker meanwhile and is recomputed
+            exc = _error_of(future, timeout_s)
+            if exc is None:
+                got = _matched(chunk, future.result(timeout=timeout_s))
             else:
-                outcomes[i] = _chunk_failure(chunk, _error_of(future))
+                if isinstance(exc, KilledWorker) and len(chunk) > 1:
+                    for j, group in enumerate(chunk):  # find the group that kills
+                        single = submit([group], f"{future.key.rsplit('-', 1)[-1]}.{j}")
+                        owner[single] = [group]
+                        stream.add(single)
+                    future.release()
+                    continue
+                got = _chunk_failure(chunk, exc)
             future.release()
-            done += len(chunk)
+            outcomes.update((g.key, g) for g in got)
             if progress is not None:
-                progress(done, len(groups))
+                progress(len(outcomes), len(groups))
             checkpoint()  # a job past its time limit stops here
     finally:
-        pending = [f for f in futures if f.status == "pending"]
-        if pending:
-            client.cancel(pending)
-    return [g for i in range(len(chunks)) for g in outcomes[i]]
+        if owner:
+            client.cancel(list(owner))
+    return [outcomes.get(g.key) or failed(g, "MissingResult", "no outcome arrived")
+            for g in groups]
 
 
-def _error_of(future: Any) -> BaseException:
+def _error_of(future: Any, timeout_s: float | None) -> BaseException | None:
+    """The task's error once it is done, or None when it succeeded."""
     try:
-        exc = future.exception()
-    except BaseException as cancelled:  # a cancelled future raises instead
-        return cancelled
-    return exc if exc is not None else RuntimeError(f"task ended {future.status}")
+        return future.exception(timeout=timeout_s)
+    except TimeoutError:
+        raise
+    except (Exception, asyncio.CancelledError) as raised:  # a cancelled future raises
+        return raised
 
 
 def _matched(chunk: Sequence[GroupArrays], got: Sequence[GroupForecast]

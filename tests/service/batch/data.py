@@ -72,3 +72,11 @@ def dying_chunk(chunk: Sequence[GroupArrays], spec: ForecastSpec, *, victim: tup
         else:
             os._exit(1)
     return forecast_chunk(chunk, spec)
+
+
+def raising_chunk(chunk: Sequence[GroupArrays], spec: ForecastSpec, *,
+                  victim: tuple[str, ...]) -> list[GroupForecast]:
+    """A task that raises (on every attempt) when its chunk holds ``victim``."""
+    if any(g.key == victim for g in chunk):
+        raise OSError("the shared scratch disk is full")
+    return forecast_chunk(chunk, spec)

@@ -2,12 +2,14 @@
 
 from __future__ import annotations
 
+import hashlib
 import io
 import uuid
-from typing import Literal
+from typing import Annotated, Any, Literal
 
 import pandas as pd
-from fastapi import APIRouter, Request, Response
+from fastapi import APIRouter, Header, Request, Response
+from sqlalchemy.exc import IntegrityError
 from starlette.exceptions import HTTPException
 
 from ...batch.job import prepare
@@ -17,6 +19,7 @@ from ...errors import PROBLEM_JSON, InvalidField
 from ...jobs import get_job, submit_job
 from ...responses import JSONResponse
 from ...schemas import JobPublic
+from ...store import find_idempotent, remember_idempotent
 from ..deps import SessionDep, SettingsDep, TenantDep
 from ..json_body import JSONBodyRoute
 from .jobs import job_public
@@ -32,19 +35,54 @@ router = APIRouter(prefix="/v1/batches", tags=["batches"], route_class=JSONBodyR
                          "and forecasts it, on the server's Dask cluster. The job's "
                          "progress counts groups; a group that cannot be forecast gets its "
                          "error in the results and the batch goes on. Results: "
-                         "/v1/batches/{id}/results once the job has succeeded.")
+                         "/v1/batches/{id}/results once the job has succeeded. With an "
+                         "Idempotency-Key header a retry gets the first answer (and starts "
+                         "no second batch); the same key with another body is a 422.")
 def create_batch(body: BatchCreate, request: Request, session: SessionDep,
-                 settings: SettingsDep, tenant: TenantDep) -> JSONResponse:
+                 settings: SettingsDep, tenant: TenantDep,
+                 idempotency_key: Annotated[str | None, Header(max_length=255)] = None,
+                 ) -> JSONResponse:
+    digest = hashlib.sha256(body.model_dump_json().encode()).hexdigest()
+    if idempotency_key:
+        record = find_idempotent(session=session, tenant=tenant, key=idempotency_key)
+        if record is not None:
+            return _replay(record, digest)
     try:
         prepare(body, settings)
     except TableError as exc:
         field = "group_by" if exc.column == "group_by" else f"table.{exc.column}"
         raise InvalidField(field, str(exc)) from None
     job = submit_job(session=session, tenant=tenant, kind="batch", spec=body,
-                     max_attempts=settings.job_max_attempts)
+                     max_attempts=settings.job_max_attempts, commit=False)
+    out, location = job_public(job), f"/v1/jobs/{job.id}"
+    if idempotency_key:
+        remember_idempotent(session=session, tenant=tenant, key=idempotency_key,
+                            method_path=_WHAT, body_sha256=digest, status_code=202,
+                            location=location, response=out)
+    try:
+        session.commit()
+    except IntegrityError:  # the same key won a race: answer as the winner did
+        session.rollback()
+        record = find_idempotent(session=session, tenant=tenant, key=idempotency_key or "")
+        if record is None:
+            raise
+        return _replay(record, digest)
     request.app.state.jobs.wake()
-    return JSONResponse(job_public(job), status_code=202,
-                        headers={"Location": f"/v1/jobs/{job.id}", "Retry-After": "1"})
+    return JSONResponse(out, status_code=202,
+                        headers={"Location": location, "Retry-After": "1"})
+
+
+_WHAT = "POST /v1/batches"
+
+
+def _replay(record: Any, digest: str) -> JSONResponse:
+    """The first answer to this Idempotency-Key, or a 422 for another request."""
+    if record.body_sha256 != digest or record.method_path != _WHAT:
+        raise HTTPException(422, "this Idempotency-Key was used with a different request; "
+                                 "use a new key for a new request")
+    return JSONResponse(record.response, status_code=record.status_code,
+                        headers={"Location": record.location or "",
+                                 "Idempotent-Replayed": "true"})
 
 
 @router.get("/{job_id}/results", response_class=Response,

@@ -89,3 +89,17 @@ def test_results_of_an_unfinished_batch_are_a_409(client, tmp_path):
         job = idle.get(r.headers["location"]).json()
         assert job["status"] == "queued"
         assert idle.get(f"/v1/batches/{job['id']}/results").status_code == 409
+
+
+def test_an_idempotency_key_starts_one_batch(tmp_path):
+    settings = Settings(database_url=f"sqlite:///{tmp_path / 'idem.db'}", job_workers=0)
+    body = _body(long_table(1))
+    with TestClient(create_app(settings)) as idle:
+        first = idle.post("/v1/batches", json=body, headers={"Idempotency-Key": "nightly-1"})
+        again = idle.post("/v1/batches", json=body, headers={"Idempotency-Key": "nightly-1"})
+        assert first.status_code == again.status_code == 202
+        assert again.json()["id"] == first.json()["id"]
+        assert again.headers["idempotent-replayed"] == "true"
+        other = idle.post("/v1/batches", json={**body, "horizon": 4},
+                          headers={"Idempotency-Key": "nightly-1"})
+        assert other.status_code == 422

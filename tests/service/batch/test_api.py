@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+import time
+
 import numpy as np
 import pytest
 from distributed import LocalCluster
@@ -103,3 +105,22 @@ def test_an_idempotency_key_starts_one_batch(tmp_path):
         other = idle.post("/v1/batches", json={**body, "horizon": 4},
                           headers={"Idempotency-Key": "nightly-1"})
         assert other.status_code == 422
+
+
+def test_a_running_batch_shows_progress_and_can_be_cancelled(client):
+    # the automatic configuration (lags fixed): about 0.2 s per group, two groups per task
+    body = {**_body(long_table(40)), "lags": 2, "tightness": "auto", "sum_coef": "auto",
+            "initial": "auto", "seasonal": "auto", "transforms": "auto",
+            "season_scale": "auto"}
+    r = client.post("/v1/batches", json=body)
+    location = r.headers["location"]
+    deadline = time.monotonic() + 60
+    job = client.get(location).json()
+    while not (job["status"] == "running" and 0.1 < job["progress"] < 0.9):
+        assert job["status"] in ("queued", "running") and time.monotonic() < deadline, job
+        time.sleep(0.05)
+        job = client.get(location).json()
+    assert client.delete(location).status_code == 202
+    job = wait_for_job(client, location, timeout=60)
+    assert job["status"] == "cancelled" and job["progress"] < 0.9, job
+    assert client.get(f"/v1/batches/{job['id']}/results").status_code == 409

@@ -12,7 +12,8 @@ export function showTable(table, source) {
   const fileWide = table.problems.filter((p) => p.where === "file").map((p) => p.message);
   const lead = ok ? "" : `${source} cannot be used yet. Fix these in the file and load it again; nothing was sent to the server.`;
   const elsewhere = table.problems.length - fileWide.length;
-  const note = elsewhere ? [`${elsewhere} problem(s) are marked below, next to their column or row.`] : [];
+  const note = elsewhere === 1 ? ["1 problem is marked below, next to its column or row."]
+    : elsewhere ? [`${elsewhere} problems are marked below, next to their column or row.`] : [];
   showProblems($("data-problems"), ok ? [] : fileWide.concat(note), lead);
   $("data-summary").hidden = table.names.length === 0;
   const known = table.dates.filter(Boolean);

@@ -128,6 +128,8 @@ async function fit(event) {
       renderFit(model, shown.answer);
       panels(["settings-panel", "forecast-panel", "scenario-panel", "reorder-panel"]);
       renderCharts();
+      $("forecast-title").focus();
+      $("forecast-panel").scrollIntoView({ block: "start" });
       status(`Forecast ready: ${output.horizon} periods for ${Object.keys(shown.answer.forecasts).length} series (seed ${shown.answer.seed}).`);
     } finally {
       progress.hidden = true;
@@ -166,7 +168,7 @@ async function reorder(event) {
     const result = $("reorder-result");
     result.replaceChildren(...reorderFacts(answer).flatMap(([k, v]) => [el("dt", { text: k }), el("dd", { text: v })]));
     result.hidden = false;
-    $("reorder-note").textContent = `Demand over periods ${answer.window.first ?? 1} to ${answer.window.last ?? item.leadTime} ` +
+    $("reorder-note").textContent = `Demand from ${answer.window.first} to ${answer.window.last} ` +
       `from ${answer.draws} simulated paths (seed ${answer.seed}). Review before committing purchases.`;
     status("Reorder advice ready.");
   });

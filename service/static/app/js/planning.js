@@ -43,6 +43,8 @@ export async function runScenario(modelId, output, conditions) {
   return { path, payload, answer: (await postJson(path, payload)).body };
 }
 
+const share = (p) => (p > 0.995 ? "more than 99%" : p < 0.005 ? "less than 1%" : `${Math.round(100 * p)}%`);
+
 /** How plausible each condition was before it was imposed, in plain words. */
 export function describePlan(answer) {
   const lines = [];
@@ -51,10 +53,10 @@ export function describePlan(answer) {
     if (p == null) continue;
     if (c.kind === "value") {
       const tail = p < 0.05 || p > 0.95;
-      lines.push(`${c.series} on ${c.date}: the plain forecast put ${Math.round(100 * p)}% of its outcomes below this value` +
+      lines.push(`${c.series} on ${c.date}: the plain forecast put ${share(p)} of its outcomes below this value` +
         (tail ? " — far from what the data suggest." : "."));
     } else {
-      lines.push(`${c.series} on ${c.date}: the plain forecast met this range with probability ${Math.round(100 * p)}%.`);
+      lines.push(`${c.series} on ${c.date}: the plain forecast met this range with probability ${share(p)}.`);
     }
   }
   return lines;

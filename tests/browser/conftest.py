@@ -9,6 +9,7 @@ Screenshots go to ``tests/artifacts/browser/`` (git-ignored).
 from __future__ import annotations
 
 import os
+import re
 import shutil
 import socket
 import subprocess
@@ -54,14 +55,12 @@ def chromium_path() -> str:
     return path
 
 
-@pytest.fixture(scope="session")
-def server(tmp_path_factory: pytest.TempPathFactory) -> Iterator[str]:
+def _serve(folder: Path, extra_env: dict[str, str] | None = None) -> Iterator[str]:
     """``fanfold serve`` on a free loopback port with a fresh SQLite file; its URL."""
-    folder = tmp_path_factory.mktemp("server")
     port = _free_port()
     env = {k: v for k, v in os.environ.items() if not k.startswith("FANFOLD_")}
     env.update(FANFOLD_DATABASE_URL=f"sqlite:///{folder / 'fanfold.db'}",
-               FANFOLD_BLAS_THREADS="1")
+               FANFOLD_BLAS_THREADS="1", **(extra_env or {}))
     log = (folder / "server.log").open("wb")
     proc = subprocess.Popen([sys.executable, "-m", "service", "serve", "--port", str(port)],
                             env=env, stdout=log, stderr=subprocess.STDOUT)
@@ -90,6 +89,24 @@ def server(tmp_path_factory: pytest.TempPathFactory) -> Iterator[str]:
 
 
 @pytest.fixture(scope="session")
+def server(tmp_path_factory: pytest.TempPathFactory) -> Iterator[str]:
+    """A keyless server, as on a planner's own machine (loopback)."""
+    yield from _serve(tmp_path_factory.mktemp("server"))
+
+
+@pytest.fixture(scope="session")
+def keyed_server(tmp_path_factory: pytest.TempPathFactory) -> Iterator[tuple[str, str]]:
+    """A server that needs an API key and runs every sampled fit as a job: (url, key)."""
+    from service.auth import new_key
+
+    key, entry = new_key("planner", "acme")
+    env = {"FANFOLD_API_KEYS": f"[{entry.model_dump_json()}]",
+           "FANFOLD_SYNC_MAX_GIBBS_WORK": "1000"}
+    for url in _serve(tmp_path_factory.mktemp("keyed"), env):
+        yield url, key
+
+
+@pytest.fixture(scope="session")
 def browser(chromium_path: str) -> Iterator[object]:
     from playwright.sync_api import sync_playwright
 
@@ -104,13 +121,28 @@ def browser(chromium_path: str) -> Iterator[object]:
 
 @pytest.fixture
 def page(browser: object, server: str) -> Iterator[object]:
-    """A fresh page at 1280x800 on the server; fails the test on any console error
-    (a script error, a Content-Security-Policy violation)."""
+    """A fresh page at 1280x800 on the keyless server."""
+    yield from _page(browser, server)
+
+
+@pytest.fixture
+def keyed_page(browser: object, keyed_server: tuple[str, str]) -> Iterator[object]:
+    """A fresh page at 1280x800 on the server that needs a key."""
+    yield from _page(browser, keyed_server[0])
+
+
+def _page(browser: object, url: str) -> Iterator[object]:
+    """A fresh page at 1280x800; fails the test on any console error (a script error, a
+    Content-Security-Policy violation)."""
     context = browser.new_context(viewport={"width": 1280, "height": 800},  # type: ignore[attr-defined]
-                                  accept_downloads=True, base_url=server)
+                                  accept_downloads=True, base_url=url)
     page = context.new_page()
     errors: list[str] = []
-    page.on("console", lambda m: errors.append(m.text) if m.type == "error" else None)
+    # answers the page explains (401 without a key, 422 for data the server refuses) are
+    # logged by the browser too; anything else is a fault
+    expected = re.compile(r"Failed to load resource: .* status of (401|422)")
+    page.on("console", lambda m: errors.append(m.text)
+            if m.type == "error" and not expected.match(m.text) else None)
     page.on("pageerror", lambda e: errors.append(str(e)))
     page.set_default_timeout(30_000)
     try:

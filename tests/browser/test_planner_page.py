@@ -159,3 +159,43 @@ def test_a_bad_file_is_explained_and_nothing_is_stored(page, server, artifacts, 
     assert page.locator("#data-problems").is_visible()
     page.screenshot(path=artifacts / f"6-bad-{name}.png", full_page=False)
     assert httpx.get(f"{server}/v1/models?limit=100", timeout=10).json()["data"] == stored
+
+
+def test_a_file_the_server_refuses_is_explained_and_nothing_is_stored(page, server, tmp_path):
+    """The page's checks pass but the model cannot be fitted (a series that never
+    changes): the server's problem is shown in words next to the button."""
+    rows = "".join(f"2020-{m:02d}-01,{10 + m % 3},5\n" for m in range(1, 13))
+    path = tmp_path / "constant.csv"
+    path.write_text("date,tyres,chains\n" + rows)
+    stored = httpx.get(f"{server}/v1/models?limit=100", timeout=10).json()["data"]
+    page.goto("/")
+    page.get_by_label("CSV file").set_input_files(str(path))
+    page.get_by_role("button", name="Fit and forecast").click()
+    problems = page.locator("#fit-problems")
+    problems.wait_for()
+    assert "chains" in problems.inner_text()
+    assert page.locator("#forecast-panel").is_hidden()
+    assert httpx.get(f"{server}/v1/models?limit=100", timeout=10).json()["data"] == stored
+
+
+def test_with_an_api_key_and_a_background_fit(keyed_page, keyed_server, artifacts):
+    page, (url, key) = keyed_page, keyed_server
+    page.goto("/")
+    page.get_by_role("button", name="Use the bicycle-parts demo data").click()
+    page.get_by_role("button", name="Fit and forecast").click()
+    page.locator("#fit-problems").get_by_text("needs an API key").wait_for()
+    page.get_by_text("API key", exact=True).click()
+    page.get_by_label("API key").fill(key)
+    page.get_by_label("API key").press("Tab")
+    page.get_by_label("Periods to forecast").fill("3")
+    page.get_by_text("More prior settings").click()
+    page.get_by_label("Prior").select_option("independent")
+    page.get_by_label("Simulated paths").fill("500")
+    page.get_by_role("button", name="Fit and forecast").click()
+    page.locator("#fan-charts canvas").nth(4).wait_for(timeout=90_000)
+    assert "fitted as a background job" in page.locator("#status").inner_text()
+    assert key not in page.url
+    assert page.evaluate("sessionStorage.getItem('fanfold.apiKey')") == key
+    page.screenshot(path=artifacts / "7-keyed-background-fit.png", full_page=False)
+    models = httpx.get(f"{url}/v1/models", headers={"X-API-Key": key}, timeout=10).json()
+    assert len(models["data"]) == 1

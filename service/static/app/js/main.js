@@ -116,8 +116,10 @@ async function fit(event) {
     progress.removeAttribute("value");
     text.textContent = "Fitting the model…";
     status("Fitting the model…");
+    let background = false;
     try {
       const model = await fitModel(spec, (share) => {
+        background = true;
         progress.value = share;
         text.textContent = `Fitting in the background: ${Math.round(100 * share)}%`;
       });
@@ -130,7 +132,8 @@ async function fit(event) {
       renderCharts();
       $("forecast-title").focus();
       $("forecast-panel").scrollIntoView({ block: "start" });
-      status(`Forecast ready: ${output.horizon} periods for ${Object.keys(shown.answer.forecasts).length} series (seed ${shown.answer.seed}).`);
+      status(`Forecast ready: ${output.horizon} periods for ${Object.keys(shown.answer.forecasts).length} series ` +
+        `(seed ${shown.answer.seed}${background ? "; fitted as a background job" : ""}).`);
     } finally {
       progress.hidden = true;
       text.textContent = "";

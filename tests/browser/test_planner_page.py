@@ -6,7 +6,10 @@ from __future__ import annotations
 
 import csv
 import io
+import json
 import re
+import shutil
+import subprocess
 from pathlib import Path
 
 import httpx
@@ -17,7 +20,7 @@ from .conftest import DEMO_CSV
 NAMES = ["tyres", "inner_tubes", "brake_pads", "chains", "cassettes"]
 
 
-def _fit_demo(page, *, horizon: int = 6, seed: int = 123) -> None:
+def _fit_demo(page, *, horizon: int = 6, seed: int = 123, shot: Path | None = None) -> None:
     page.goto("/")
     page.get_by_label("CSV file").set_input_files(str(DEMO_CSV))
     page.get_by_role("button", name="Fit and forecast").wait_for()
@@ -25,6 +28,8 @@ def _fit_demo(page, *, horizon: int = 6, seed: int = 123) -> None:
     page.get_by_text("More prior settings").click()
     page.get_by_label("Random seed").fill(str(seed))
     page.get_by_label("Simulated paths").fill("1000")
+    if shot is not None:
+        page.screenshot(path=shot, full_page=False)
     page.get_by_role("button", name="Fit and forecast").click()
     page.locator("#fan-charts canvas").nth(len(NAMES) - 1).wait_for()
 
@@ -39,8 +44,8 @@ def _model_id(page) -> str:
 
 
 def test_demo_fit_plan_reorder_and_download(page, server, artifacts: Path):
-    _fit_demo(page)
-    page.screenshot(path=artifacts / "1-data-and-settings.png", full_page=False)
+    _fit_demo(page, shot=artifacts / "1-data-and-settings.png")
+    page.screenshot(path=artifacts / "2-forecast-top-1280.png", full_page=False)
     # a fan chart per series, with the series' name and a description for screen readers
     cards = page.locator("#fan-charts figure")
     assert cards.count() == len(NAMES)
@@ -49,8 +54,7 @@ def test_demo_fit_plan_reorder_and_download(page, server, artifacts: Path):
     assert label.startswith("Fan chart of tyres") and "95% band" in label
     assert "sound" in page.locator("#fit-note").inner_text() or page.locator(
         "#fit-note").inner_text()
-    page.locator("#forecast-panel").scroll_into_view_if_needed()
-    page.screenshot(path=artifacts / "2-forecast-1280.png", full_page=True)
+    page.screenshot(path=artifacts / "2-whole-page-1280.png", full_page=True)
 
     # the quantile table: one row per forecast month, median inside the 5-95% range
     page.get_by_label("Quantiles of").select_option("inner_tubes")
@@ -104,9 +108,16 @@ def test_demo_fit_plan_reorder_and_download(page, server, artifacts: Path):
     page.locator("#reorder-panel").scroll_into_view_if_needed()
     page.screenshot(path=artifacts / "4-reorder-1280.png", full_page=False)
 
-    # the curl command repeats the request shown
+    # the curl command repeats the request shown: its answer has the table's numbers
     curl = page.locator("#curl-text").input_value()
     assert curl.startswith("curl -sS -X POST") and f"/v1/models/{model_id}/scenarios" in curl
+    if shutil.which("curl"):
+        done = subprocess.run(["bash", "-c", curl], capture_output=True, text=True, timeout=60)
+        answer = json.loads(done.stdout)
+        medians = answer["forecasts"]["inner_tubes"]["median"]
+        shown = [float(row[6].replace(",", "")) for row in after]  # the median column
+        assert shown == [round(v, 1) for v in medians]
+        assert [c["lower"] for c in answer["conditions"]] == [1500.0] * 3
 
     # the chart as SVG from the server
     with page.expect_download() as info:

@@ -61,7 +61,7 @@ function baseOptions(yTitle, originIndex) {
       originLine: { index: originIndex },
       legend: {
         position: "bottom",
-        labels: { boxWidth: 18, usePointStyle: true, pointStyleWidth: 22,
+        labels: { boxWidth: 18, usePointStyle: true, pointStyleWidth: 20, padding: 8, font: { size: 11 },
           filter: (item) => !item.text.startsWith("_") },
       },
       tooltip: {

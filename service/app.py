@@ -18,7 +18,17 @@ from starlette.exceptions import HTTPException
 
 from priors import warm_up_kernels
 
-from .api.routes import backtests, batches, forecasts, health, jobs, models, planning
+from .api.routes import (
+    backtests,
+    batches,
+    chart_images,
+    forecasts,
+    health,
+    jobs,
+    models,
+    page,
+    planning,
+)
 from .auth import authenticate
 from .config import Settings, get_settings
 from .db import make_engine, make_session_factory
@@ -92,12 +102,15 @@ def create_app(settings: Settings | None = None) -> FastAPI:
     app.include_router(health.metrics_router, dependencies=protected)
     app.include_router(forecasts.router, dependencies=protected)
     app.include_router(models.router, dependencies=protected)
+    app.include_router(chart_images.router, dependencies=protected)
     app.include_router(planning.router, dependencies=protected)
     app.include_router(jobs.router, dependencies=protected)
     app.include_router(backtests.router, dependencies=protected)
     app.include_router(batches.router, dependencies=protected)
     if settings.docs_enabled:
         _add_docs(app, protected)
+    if settings.page_enabled:
+        app.include_router(page.router)  # static files; the page calls /v1 with the key
     # added last = outermost: ids first, then limits, then metrics around the routes
     app.add_middleware(MetricsMiddleware, metrics=app.state.metrics)
     app.add_middleware(BodyLimitMiddleware, max_bytes=settings.max_body_bytes,

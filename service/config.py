@@ -73,6 +73,7 @@ class Settings(BaseSettings):
     rate_limit_token_s: float = Field(0.25, ge=0)
     max_running_jobs_per_tenant: int = Field(4, ge=1)
     docs_enabled: bool = True
+    page_enabled: bool = True  # the planner's web page at / (static files, open)
     cors_origins: list[str] = []
     blas_threads: int = Field(1, ge=0)  # 0 = the libraries' default
 

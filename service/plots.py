@@ -22,12 +22,22 @@ from priors.calendar import calendar_from_index
 from priors.propagation import ShockResponses
 from priors.scenarios import Scenario
 
+from .charts import (
+    BAND_SHADES,
+    HISTORY_COLOUR,
+    MEDIAN_COLOUR,
+    ORIGIN_COLOUR,
+    FanPanel,
+    band_colours,
+    draw_fan,
+    fan_figure,
+)
+
 if TYPE_CHECKING:
     from priors.backtest import BacktestResult
 
 __all__ = ["backtest_fan_png", "fan_chart_png", "period_name", "responses_png", "scenario_png"]
 
-_BLUE = "#2f6db5"
 _PERIODS = {"monthly": "months", "quarterly": "quarters", "weekly": "weeks", "daily": "days"}
 
 
@@ -77,14 +87,6 @@ def _save(fig: Any, plt: Any, path: str | BinaryIO) -> Any:
     return fig
 
 
-def _dates_axis(ax: Any) -> None:
-    import matplotlib.dates as mdates
-
-    locator = mdates.AutoDateLocator(minticks=3, maxticks=7)
-    ax.xaxis.set_major_locator(locator)
-    ax.xaxis.set_major_formatter(mdates.ConciseDateFormatter(locator))
-
-
 def _x(forecast: Forecast) -> np.ndarray:
     """Forecast x values: dates, or steps 1..h for data without dates."""
     if forecast.dates is None:
@@ -98,41 +100,40 @@ def _history_x(history: pd.DataFrame) -> np.ndarray:
     return np.arange(-len(history) + 1, 1)  # plain rows: 0 is the last observation
 
 
+def _panel(x: np.ndarray, forecast: Forecast, j: int, bands: Sequence[float],
+           history: pd.DataFrame | None, name: str) -> FanPanel:
+    """Series ``j`` of ``forecast`` as a :class:`service.charts.FanPanel`."""
+    band = forecast.bands(bands)
+    shown = history is not None and name in history.columns and len(history)
+    return FanPanel(
+        name=name, x=x, median=forecast.median()[:, j],
+        bands={cov: (b[0, :, j], b[1, :, j]) for cov, b in band.items()},
+        history_x=_history_x(history) if shown and history is not None else None,
+        history=history[name].to_numpy(dtype=np.float64)
+        if shown and history is not None else None)
+
+
 def _fan(ax: Any, x: np.ndarray, forecast: Forecast, j: int, bands: Sequence[float],
          history: pd.DataFrame | None, name: str) -> None:
-    """History, nested bands (widest lightest) and the median of series ``j``."""
-    if history is not None and name in history.columns and len(history):
-        ax.plot(_history_x(history), history[name].to_numpy(dtype=np.float64),
-                color="black", lw=1.1, label="history")
-    band = forecast.bands(bands)
-    for i, cov in enumerate(sorted(band, reverse=True)):
-        lo, hi = band[cov][0, :, j], band[cov][1, :, j]
-        ax.fill_between(x, lo, hi, color=_BLUE, alpha=0.18 + 0.12 * i, lw=0,
-                        label=f"{cov:g}% band")
-    ax.plot(x, forecast.median()[:, j], color=_BLUE, lw=1.6, label="median")
-    ax.set_ylabel(f"{name} (units)")
-    if forecast.dates is not None:
-        _dates_axis(ax)
-    else:
-        ax.set_xlabel("step")
+    """History, the forecast origin, nested bands (widest lightest) and the median of
+    series ``j``, in the look of :mod:`service.charts`."""
+    draw_fan(ax, _panel(x, forecast, j, bands, history, name))
 
 
-def fan_chart_png(path: str, history: pd.DataFrame | None, forecast: Forecast, *,
+def fan_chart_png(path: str | BinaryIO, history: pd.DataFrame | None, forecast: Forecast, *,
                   bands: Sequence[float] = (50, 80, 95), title: str | None = None) -> Any:
-    """One panel per series: the recent history, nested central bands and the median.
+    """One panel per series: the recent history, the forecast origin, nested central
+    bands and the median (:func:`service.charts.fan_figure`, as the API's fan-chart.png).
 
     ``history`` (dates x series, the series' own units; e.g. the last 36 periods) may be
     None, e.g. for running totals that have no past counterpart.
     """
-    plt = _pyplot()
-    fig, axes = _grid(plt, len(forecast.names), cols=2, width=5.6, height=3.0)
     x = _x(forecast)
-    for j, (ax, name) in enumerate(zip(axes, forecast.names, strict=True)):
-        _fan(ax, x, forecast, j, bands, history, name)
-        ax.set_title(name)
-    _legend(fig, axes)
-    fig.suptitle(title or "Forecast: median and central bands")
-    return _save(fig, plt, path)
+    panels = [_panel(x, forecast, j, bands, history, name)
+              for j, name in enumerate(forecast.names)]
+    fig = fan_figure(panels, title=title or "Forecast: median and central bands")
+    fig.savefig(path, format="png", dpi=110)
+    return fig
 
 
 def scenario_png(path: str, history: pd.DataFrame | None, scenario: Scenario, *,
@@ -198,15 +199,16 @@ def responses_png(path: str, responses: ShockResponses, *, shocks: Sequence[str]
                              sharex=True, layout="constrained")
     steps = np.arange(responses.steps)
     med, band = responses.median(), responses.bands(coverages)
+    shades = band_colours(list(band))
     for c, shock in enumerate(chosen):
         j = names.index(shock)
         for r, resp in enumerate(names):
             ax = axes[r, c]
-            for i, cov in enumerate(sorted(band, reverse=True)):
+            for cov in sorted(band, reverse=True):
                 ax.fill_between(steps, band[cov][0, :, r, j], band[cov][1, :, r, j],
-                                color=_BLUE, alpha=0.18 + 0.14 * i, lw=0,
+                                color=shades[cov], lw=0,
                                 label=f"{cov:g}% band")
-            ax.plot(steps, med[:, r, j], color=_BLUE, lw=1.5, label="median")
+            ax.plot(steps, med[:, r, j], color=MEDIAN_COLOUR, lw=1.5, label="median")
             ax.axhline(0.0, color="grey", lw=0.8)
             ax.set_title(f"shock: {shock} -> {resp}", fontsize=8)
             ax.tick_params(labelsize=7)
@@ -289,16 +291,17 @@ def backtest_fan_png(path: str | BinaryIO, result: BacktestResult, k: int, *,
     for j, (ax, name) in enumerate(zip(axes, result.names, strict=True)):
         if history is not None:
             before = history.iloc[result.origins[k] - len(past_x):result.origins[k]]
-            ax.plot(past_x, before[name].to_numpy(dtype=np.float64), color="black", lw=1.1,
+            ax.plot(past_x, before[name].to_numpy(dtype=np.float64), color=HISTORY_COLOUR,
+                    lw=1.1,
                     label="data before the origin")
         ax.fill_between(future_x, result.lower["model"][k, :, j],
-                        result.upper["model"][k, :, j], color=_BLUE, alpha=0.25, lw=0,
+                        result.upper["model"][k, :, j], color=BAND_SHADES[1], lw=0,
                         label=band)
-        ax.plot(future_x, result.median["model"][k, :, j], color=_BLUE, lw=1.6,
+        ax.plot(future_x, result.median["model"][k, :, j], color=MEDIAN_COLOUR, lw=1.6,
                 label="median forecast")
         ax.plot(future_x, result.actual[k, :, j], ls="none", marker="o", ms=3.5,
                 color="black", label="what happened")
-        ax.axvline(past_x[-1] if len(past_x) else 0, color="#c0392b", ls="--", lw=1,
+        ax.axvline(past_x[-1] if len(past_x) else 0, color=ORIGIN_COLOUR, ls="--", lw=1,
                    label="forecast origin")
         _origin_ticks(ax, past_x, future_x, fmt)
         ax.set_title(name)

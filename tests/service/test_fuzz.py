@@ -54,4 +54,4 @@ def test_api_conforms_to_its_openapi_document(app):
 
         check()
         tested.append(operation.label)
-    assert len(tested) == 21, tested  # every operation, batches included
+    assert len(tested) == 23, tested  # every operation: batches and chart images included

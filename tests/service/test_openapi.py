@@ -66,6 +66,8 @@ def test_only_documented_routes_exist(client):
     assert paths == {"/livez", "/readyz", "/metrics", "/v1/forecasts", "/v1/models",
                      "/v1/models/{model_id}", "/v1/models/{model_id}/forecasts",
                      "/v1/models/{model_id}/fan-chart", "/v1/models/{model_id}/observations",
+                     "/v1/models/{model_id}/fan-chart.svg",
+                     "/v1/models/{model_id}/fan-chart.png",
                      "/v1/jobs/{job_id}", "/v1/backtests", "/v1/backtests/{job_id}",
                      "/v1/batches", "/v1/batches/{job_id}/results",
                      "/v1/models/{model_id}/scenarios",

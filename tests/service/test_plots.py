@@ -62,7 +62,8 @@ def test_fan_chart_one_panel_per_series(model, data, tmp_path: Path) -> None:
     assert _is_png(path) and _no_open_figures()
     assert len(fig.axes) == len(NAMES)
     assert [ax.get_ylabel() for ax in fig.axes] == [f"{nm} (units)" for nm in NAMES]
-    assert _legend_labels(fig) == ["history", "95% band", "80% band", "50% band", "median"]
+    assert _legend_labels(fig) == ["history", "forecast origin", "95% band", "80% band",
+                                   "50% band", "median"]
     assert fig.get_suptitle() == "demo"
 
 

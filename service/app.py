@@ -30,12 +30,12 @@ from .api.routes import (
     planning,
 )
 from .auth import authenticate
+from .compute.engine import limit_blas_threads
+from .compute.limits import SWEEP_COST
 from .config import Settings, get_settings
 from .db import make_engine, make_session_factory
-from .engine import limit_blas_threads
 from .errors import register_error_handlers
 from .jobs import JobRunner
-from .limits import SWEEP_COST
 from .logs import configure_logging
 from .metrics import Metrics, MetricsMiddleware
 from .middleware import BodyLimitMiddleware, RequestIdMiddleware

@@ -44,7 +44,7 @@ class Settings(BaseSettings):
     max_gibbs_work: float = Field(2e10, gt=0)
     max_stored_draws: int = Field(30_000_000, ge=1)
     request_timeout_s: float = Field(60.0, gt=0)
-    # estimated seconds (service.limits) x cost_scale: above 1 on a slower machine than
+    # estimated seconds (service.compute.limits) x cost_scale: above 1 on a slower machine than
     # the reference one (tests/benchmarks/run_cost_benchmark.py tells the ratio)
     cost_scale: float = Field(1.0, gt=0)
     # one-shot conjugate forecasts whose limits.inline_cost is at most this run on the

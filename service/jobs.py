@@ -36,8 +36,7 @@ from sqlalchemy.orm.exc import StaleDataError
 from priors import CancelToken, cancel_scope
 from priors.errors import PriorsError, WorkCancelled
 
-from .config import Settings
-from .engine import (
+from .compute.engine import (
     Progress,
     append_observations,
     fit_model,
@@ -45,8 +44,9 @@ from .engine import (
     model_params,
     stored_settings,
 )
+from .compute.limits import check_backtest_limits
+from .config import Settings
 from .errors import LimitExceeded
-from .limits import check_backtest_limits
 from .metrics import Metrics
 from .orm import Job
 from .schemas import BacktestCreate, ModelCreate, ObservationsCreate

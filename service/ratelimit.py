@@ -2,7 +2,7 @@
 
 RFC 6585 section 4. Each tenant may burst up to ``rate_limit_burst`` requests and then
 ``rate_limit_per_minute`` on average. A request whose estimated work is long takes more
-tokens (:class:`service.limits.Admission`). With several server processes the limit applies
+tokens (:class:`service.compute.limits.Admission`). With several server processes the limit applies
 per process (a shared store comes with the scale-out work).
 """
 
@@ -49,7 +49,7 @@ def _too_many(wait: float, what: str) -> HTTPException:
 
 
 def charge(limiter: RateLimiter, tenant: str, tokens: float) -> None:
-    """Take ``tokens`` more for an expensive request (see :mod:`service.limits`); 429 when
+    """Take ``tokens`` more for an expensive request (see :mod:`service.compute.limits`); 429 when
     the tenant has not got them."""
     wait = limiter.acquire(tenant, tokens=tokens)
     if wait > 0:

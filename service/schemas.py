@@ -2,7 +2,7 @@
 
 Inputs forbid unknown fields and non-finite numbers. The static bounds below are the
 defaults of :class:`service.config.Settings`; the configured values are enforced per
-request as well (:mod:`service.limits`).
+request as well (:mod:`service.compute.limits`).
 """
 
 from __future__ import annotations

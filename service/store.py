@@ -48,7 +48,7 @@ def save_model(*, session: Session, tenant: str, name: str | None, params: dict[
                frame: Any, model: FanfoldVAR, commit: bool = True) -> StoredModel:
     """Store a fitted model; visible only once committed (``commit=False`` leaves the
     commit to the caller, to write more in the same transaction). ``params`` are the
-    stored settings (:func:`service.engine.stored_settings`)."""
+    stored settings (:func:`service.compute.engine.stored_settings`)."""
     blob, meta = posterior_to_blob(model.posterior_)
     row = StoredModel(
         id=str(uuid.uuid4()), tenant_id=tenant, name=name, status="ready",

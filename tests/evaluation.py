@@ -7,7 +7,7 @@ steps; so are the benchmarks:
   (s.d. grows with the number of seasons ahead); non-seasonal sets skip it;
 - ``holt_winters``: per-series exponential smoothing with additive errors, additive damped
   trend and (with a period) additive seasonality: statsmodels' ETSModel (test-only
-  oracle), through :func:`service.ets.ets_forecast`;
+  oracle), through :func:`service.compute.ets.ets_forecast`;
 - ``ols_var``: the flat-prior VAR (OLS posterior with parameter uncertainty), lag order by
   the Schwarz criterion, with seasonal dummies on seasonal sets, in the data's units;
 - ``random_walk``: no change, Gaussian errors with variance h * var(first differences).
@@ -30,7 +30,7 @@ from threadpoolctl import threadpool_limits
 
 from priors import FanfoldVAR
 from priors.scores import crps_ensemble, crps_normal
-from service.ets import ets_forecast
+from service.compute.ets import ets_forecast
 
 from .corpus import CorpusSet
 

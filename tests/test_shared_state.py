@@ -25,7 +25,7 @@ FORBIDDEN = {
     ("np", "seterr"), ("np", "set_printoptions"), ("os", "putenv"),
 }
 #: one-thread entry points: the command line and its optional benchmark
-COMMAND_LINE = {"service/cli.py", "service/cli_planning.py", "service/ets.py"}
+COMMAND_LINE = {"service/cli/commands.py", "service/cli/planning.py", "service/compute/ets.py"}
 
 
 def _modules() -> list[Path]:
@@ -47,7 +47,7 @@ def _calls(source: str) -> list[str]:
 def test_the_scan_sees_the_modules():
     names = {str(p.relative_to(ROOT)) for p in _modules()}
     assert {"priors/calendar.py", "priors/autoconfig.py", "service/serialization.py",
-            "service/engine.py"} <= names
+            "service/compute/engine.py"} <= names
     assert not names & COMMAND_LINE
 
 

@@ -14,8 +14,8 @@ from typing import Annotated
 from fastapi import Depends, Request
 from sqlalchemy.orm import Session
 
+from ..compute.limits import Admission
 from ..config import Settings
-from ..limits import Admission
 from ..metrics import Metrics
 
 
@@ -43,7 +43,7 @@ async def get_tenant(request: Request) -> str:
 
 async def get_admission(request: Request) -> Admission:
     """Admission of this request's work: time estimate against the timeout, rate-limit
-    tokens by estimated seconds (:mod:`service.limits`)."""
+    tokens by estimated seconds (:mod:`service.compute.limits`)."""
     state = request.app.state
     return Admission(state.settings, state.rate_limiter, request.state.tenant)
 

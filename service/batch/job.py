@@ -14,10 +14,10 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
+from ..compute.engine import model_params
+from ..compute.limits import check_output_limits
 from ..config import Settings
-from ..engine import model_params
 from ..errors import LimitExceeded
-from ..limits import check_output_limits
 from .output import forecast_frame, status_frame
 from .runner import batch_client, dask_security, run_batch
 from .schemas import BatchCreate

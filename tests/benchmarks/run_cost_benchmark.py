@@ -4,7 +4,7 @@ Usage::
 
     python tests/benchmarks/run_cost_benchmark.py [--out tests/benchmarks/results/costs.md]
 
-:mod:`service.limits` estimates, before a request runs, how many seconds of one core its
+:mod:`service.compute.limits` estimates, before a request runs, how many seconds of one core its
 computation takes: admission refuses work that cannot finish within the request timeout
 and charges the rate limit by the estimate. This script runs each kind of work (one-shot
 fits, forecasts, scenarios with ranges, impulse responses, Gibbs fits) at several sizes
@@ -33,7 +33,7 @@ ROOT = Path(__file__).resolve().parents[2]
 sys.path.insert(0, str(ROOT))
 
 from priors import FanfoldVAR  # noqa: E402
-from service.limits import (  # noqa: E402
+from service.compute.limits import (  # noqa: E402
     Shape,
     fit_seconds,
     forecast_seconds,
@@ -114,7 +114,7 @@ def main() -> None:
     with threadpool_limits(limits=1, user_api="blas"), warnings.catch_warnings():
         warnings.simplefilter("ignore")
         table = rows()
-    lines = ["# Estimated against measured seconds (service.limits)", "",
+    lines = ["# Estimated against measured seconds (service.compute.limits)", "",
              "One BLAS thread; median of 3 runs (1 for scenarios and samplers). Ratio above 1: "
              "the estimate is on the safe side.", "",
              "| data | work | estimated s | measured s | estimated / measured |",

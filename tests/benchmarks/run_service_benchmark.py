@@ -27,7 +27,7 @@ the reference bytes), and again with one client (sequential). The timed requests
 work on a shared machine falls on both. Fanfold gets a temporary SQLite database.
 
 The engine's own compute time is measured in this process while no traffic flows:
-``service.engine.run_forecast(spec, frame_from_spec(spec))`` (the data frame, fit,
+``service.compute.engine.run_forecast(spec, frame_from_spec(spec))`` (the data frame, fit,
 forecast and the answer dict: what the server does after parsing the body, and the span
 its forecast histogram times) on the parsed request, 10 runs after each round of a run (between the
 HTTP chunks, so in the same minutes as the traffic: these machines change speed by up to
@@ -379,8 +379,8 @@ def measure_engine(body: bytes, repeats: int) -> dict[str, list[float]]:
     """In-process times (s) of the route's pieces; run_forecast is the engine."""
     import warnings
 
+    from service.compute.engine import frame_from_spec, run_forecast
     from service.config import Settings
-    from service.engine import frame_from_spec, run_forecast
     from service.responses import JSONResponse
     from service.schemas import ForecastCreate
 
@@ -401,8 +401,8 @@ def engine_probe(body: bytes, repeats: int) -> Callable[[], list[float]]:
     server's forecast histogram times (everything after the body is parsed)."""
     import warnings
 
+    from service.compute.engine import frame_from_spec, run_forecast
     from service.config import Settings
-    from service.engine import frame_from_spec, run_forecast
     from service.schemas import ForecastCreate
 
     settings = Settings(blas_threads=1)

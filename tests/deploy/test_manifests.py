@@ -28,7 +28,7 @@ from kubernetes_validate import utils as kubernetes_validate
 from pydantic import ValidationError
 
 from service.app import create_app
-from service.cli import build_parser
+from service.cli.commands import build_parser
 from service.config import Settings
 from service.db import make_engine
 from service.migrate import at_head
@@ -47,7 +47,7 @@ OTHER_VARIABLES = {
     "POSTGRES_USER", "POSTGRES_DB", "POSTGRES_PASSWORD",  # the postgres image
 }
 GRACEFUL_S = int(re.search(r"timeout_graceful_shutdown=(\d+)",
-                           (ROOT / "service" / "cli.py").read_text()).group(1))
+                           (ROOT / "service" / "cli" / "commands.py").read_text()).group(1))
 
 
 def _docs(path: Path) -> list[dict[str, Any]]:

@@ -10,7 +10,7 @@ import pytest
 from fastapi.testclient import TestClient
 
 from service.app import create_app
-from service.cli import main
+from service.cli.commands import main
 from service.config import Settings, get_settings
 
 DEMO_CSV = Path(__file__).resolve().parents[2] / "examples" / "bike_parts_demand.csv"

@@ -9,7 +9,7 @@ from fastapi.testclient import TestClient
 
 from service.app import create_app
 from service.auth import new_key
-from service.cli import main
+from service.cli.commands import main
 from service.config import Settings
 
 KEY_A, ENTRY_A = new_key("planner", "acme")

@@ -9,7 +9,7 @@ import pytest
 from fastapi.testclient import TestClient
 
 from service.app import create_app
-from service.cli import main
+from service.cli.commands import main
 from service.config import Settings
 
 from .conftest import DEMO_CSV

@@ -16,8 +16,8 @@ from sqlalchemy import update
 
 from priors import FanfoldVAR
 from service.app import create_app
+from service.compute.engine import forecast_answer, frame_from_spec, model_params
 from service.config import Settings
-from service.engine import forecast_answer, frame_from_spec, model_params
 from service.orm import StoredModel
 from service.schemas import ModelCreate, ModelForecastCreate
 from service.serialization import CorruptBlobError, draws_from_blob, draws_to_blob

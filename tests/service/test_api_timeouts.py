@@ -17,8 +17,8 @@ import pytest
 from fastapi.testclient import TestClient
 
 from service.app import create_app
+from service.compute.limits import Shape, shocks_seconds
 from service.config import Settings
-from service.limits import Shape, shocks_seconds
 from service.ratelimit import RateLimiter
 
 PROBLEM = "application/problem+json"

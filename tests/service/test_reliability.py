@@ -112,8 +112,8 @@ def _body(demo, seed: int) -> dict:
 
 
 def test_kill_9_at_random_moments_loses_nothing_acknowledged(tmp_path, demo):
+    from service.compute.engine import fit_model
     from service.config import Settings
-    from service.engine import fit_model
     from service.schemas import ModelCreate
 
     db = tmp_path / "crash.db"
@@ -180,7 +180,7 @@ def test_kill_9_at_random_moments_loses_nothing_acknowledged(tmp_path, demo):
 
 
 def _frame(demo):
-    from service.engine import frame_from_spec
+    from service.compute.engine import frame_from_spec
     from service.schemas import ModelCreate
 
     return frame_from_spec(ModelCreate.model_validate(_body(demo, 0)))

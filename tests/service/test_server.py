@@ -16,7 +16,7 @@ import pytest
 from fastapi.testclient import TestClient
 
 from service.app import create_app
-from service.cli import main
+from service.cli.commands import main
 from service.config import Settings
 
 EXAMPLES = Path(__file__).resolve().parents[2] / "examples"

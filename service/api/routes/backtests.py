@@ -11,10 +11,10 @@ from starlette.exceptions import HTTPException
 
 from priors.calendar import calendar_from_index
 
-from ...engine import frame_from_spec
+from ...compute.engine import frame_from_spec
+from ...compute.limits import check_backtest_limits
 from ...errors import PROBLEM_JSON
 from ...jobs import get_job, submit_job
-from ...limits import check_backtest_limits
 from ...responses import JSONResponse
 from ...schemas import BacktestCreate, JobPublic
 from ..deps import SessionDep, SettingsDep, TenantDep

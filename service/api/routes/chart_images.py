@@ -1,6 +1,6 @@
 """``GET /v1/models/{id}/fan-chart.svg`` and ``.png``: the fan chart as an image, for
 dashboards that only embed a picture (ETag, 304 when unchanged). Drawn by
-:mod:`service.charts`, the same look as ``fanfold forecast --plot``."""
+:mod:`service.output.charts`, the same look as ``fanfold forecast --plot``."""
 
 from __future__ import annotations
 
@@ -10,8 +10,8 @@ from typing import Annotated, Any, Literal
 from fastapi import APIRouter, Query, Request, Response
 from starlette.exceptions import HTTPException
 
-from ...charts import fan_figure, figure_bytes, media_type, panels_from_chart
-from ...engine import fan_chart
+from ...compute.engine import fan_chart
+from ...output.charts import fan_figure, figure_bytes, media_type, panels_from_chart
 from ...store import load_fitted
 from ..deps import AdmissionDep, SessionDep, SettingsDep, TenantDep
 from ._shared import (

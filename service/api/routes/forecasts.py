@@ -9,9 +9,9 @@ from fastapi import APIRouter, Request
 from fastapi.exceptions import RequestValidationError
 from pydantic import ValidationError
 
-from ...engine import frame_from_spec, run_forecast
+from ...compute.engine import frame_from_spec, run_forecast
+from ...compute.limits import Admission, inline_cost
 from ...errors import PROBLEM_JSON, problem
-from ...limits import Admission, inline_cost
 from ...responses import JSONResponse
 from ...schemas import ForecastCreate, ForecastPublic, ForecastSettings
 from ...serialization import frame_from_csv

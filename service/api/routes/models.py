@@ -13,17 +13,17 @@ from starlette.exceptions import HTTPException
 
 from priors import FanfoldVAR
 
-from ...engine import append_observations as append_to_model
-from ...engine import (
+from ...compute.engine import append_observations as append_to_model
+from ...compute.engine import (
     fan_chart,
     fit_model,
     forecast_answer,
     frame_from_spec,
     stored_settings,
 )
+from ...compute.limits import check_model_limits, fit_seconds, gibbs_work
 from ...errors import PROBLEM_JSON, problem
 from ...jobs import submit_job
-from ...limits import check_model_limits, fit_seconds, gibbs_work
 from ...orm import StoredModel
 from ...responses import JSONResponse
 from ...schemas import (

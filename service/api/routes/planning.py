@@ -1,6 +1,6 @@
 """Planning from a stored model: scenarios, shock propagation, variance shares and
 replenishment advice. The numerics are in :mod:`priors`; the answers in
-:mod:`service.planning`."""
+:mod:`service.compute.planning`."""
 
 from __future__ import annotations
 
@@ -10,6 +10,7 @@ from typing import Annotated, Any, Literal
 from fastapi import APIRouter, Query, Request, Response
 from starlette.exceptions import HTTPException
 
+from ...compute.planning import replenishment_answer, scenario_answer, shares_answer, shocks_answer
 from ...plan_schemas import (
     ReplenishmentCreate,
     ReplenishmentPublic,
@@ -18,7 +19,6 @@ from ...plan_schemas import (
     SharesPublic,
     ShocksPublic,
 )
-from ...planning import replenishment_answer, scenario_answer, shares_answer, shocks_answer
 from ...responses import JSONResponse
 from ...store import load_fitted
 from ..deps import AdmissionDep, SessionDep, SettingsDep, TenantDep

@@ -19,7 +19,7 @@ from distributed import Client, LocalCluster
 from service.batch.runner import run_batch
 from service.batch.table import Columns, split_groups
 from service.batch.worker import forecast_chunk
-from service.cli import _model_params, build_parser
+from service.cli.commands import _model_params, build_parser
 
 from .data import BAD_ERRORS, SPEC, dying_chunk, long_table, raising_chunk, with_bad_groups
 

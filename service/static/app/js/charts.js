@@ -1,5 +1,5 @@
 // Charts on the page, drawn with Chart.js (vendored: /app/vendor, see VENDORED.md).
-// The fan chart has the look of service/charts.py (the API's fan-chart.svg and the CLI's
+// The fan chart has the look of service/output/charts.py (the API's fan-chart.svg and the CLI's
 // --plot): history in near-black, the forecast origin dashed grey, nested bands in one
 // hue at three lightnesses (widest lightest), the median darkest. A test keeps these
 // colours equal to the Python ones.

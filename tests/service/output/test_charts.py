@@ -1,5 +1,5 @@
 """Fan charts as images: GET /v1/models/{id}/fan-chart.svg and .png, and the shared
-look of service/charts.py (the same colours as the planner page's charts.js)."""
+look of service/output/charts.py (the same colours as the planner page's charts.js)."""
 
 from __future__ import annotations
 
@@ -9,7 +9,7 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from service.charts import (
+from service.output.charts import (
     BAND_SHADES,
     HISTORY_COLOUR,
     MEDIAN_COLOUR,
@@ -19,7 +19,7 @@ from service.charts import (
     panels_from_chart,
 )
 
-CHARTS_JS = Path(__file__).resolve().parents[2] / "service" / "static" / "app" / "js" / "charts.js"
+CHARTS_JS = Path(__file__).resolve().parents[3] / "service" / "static" / "app" / "js" / "charts.js"
 
 
 @pytest.fixture

@@ -23,7 +23,9 @@ from priors.inventory import (
 )
 from priors.propagation import ShockResponses, VarianceShares
 
-from .config import Settings
+from ..config import Settings
+from ..plan_schemas import ReplenishmentCreate, ScenarioCreate
+from ..serialization import _nums, forecast_to_dict, quantile_key
 from .engine import lead_time_totals
 from .limits import (
     Admission,
@@ -33,8 +35,6 @@ from .limits import (
     scenario_seconds,
     shocks_seconds,
 )
-from .plan_schemas import ReplenishmentCreate, ScenarioCreate
-from .serialization import _nums, forecast_to_dict, quantile_key
 
 __all__ = [
     "replenishment_answer",

@@ -22,9 +22,9 @@ from typing import Any
 
 from priors.model import default_max_lags
 
-from .config import Settings
-from .errors import LimitExceeded
-from .schemas import BacktestCreate, ForecastSettings, ModelSettings
+from ..config import Settings
+from ..errors import LimitExceeded
+from ..schemas import BacktestCreate, ForecastSettings, ModelSettings
 
 __all__ = [
     "SWEEP_COST",
@@ -272,7 +272,7 @@ class Admission:
             return
         extra = min(math.floor(estimate / s.rate_limit_token_s), s.rate_limit_burst - 1)
         if extra >= 1:
-            from .ratelimit import charge
+            from ..ratelimit import charge
 
             charge(self.limiter, self.tenant, float(extra))
 

@@ -2,7 +2,7 @@
 forecasts of a backtest.
 
 matplotlib is imported inside the functions with the Agg backend (no display needed),
-as in :mod:`service.report`. Each function writes one PNG to ``path`` (a file name, or a
+as in :mod:`service.output.report`. Each function writes one PNG to ``path`` (a file name, or a
 binary file object such as ``io.BytesIO``) and returns the figure, already closed (its
 axes stay readable, e.g. for tests). Values are in the series' own units; ``OSError``
 from an unwritable path is left to the caller.
@@ -102,7 +102,7 @@ def _history_x(history: pd.DataFrame) -> np.ndarray:
 
 def _panel(x: np.ndarray, forecast: Forecast, j: int, bands: Sequence[float],
            history: pd.DataFrame | None, name: str) -> FanPanel:
-    """Series ``j`` of ``forecast`` as a :class:`service.charts.FanPanel`."""
+    """Series ``j`` of ``forecast`` as a :class:`service.output.charts.FanPanel`."""
     band = forecast.bands(bands)
     shown = history is not None and name in history.columns and len(history)
     return FanPanel(
@@ -116,14 +116,14 @@ def _panel(x: np.ndarray, forecast: Forecast, j: int, bands: Sequence[float],
 def _fan(ax: Any, x: np.ndarray, forecast: Forecast, j: int, bands: Sequence[float],
          history: pd.DataFrame | None, name: str) -> None:
     """History, the forecast origin, nested bands (widest lightest) and the median of
-    series ``j``, in the look of :mod:`service.charts`."""
+    series ``j``, in the look of :mod:`service.output.charts`."""
     draw_fan(ax, _panel(x, forecast, j, bands, history, name))
 
 
 def fan_chart_png(path: str | BinaryIO, history: pd.DataFrame | None, forecast: Forecast, *,
                   bands: Sequence[float] = (50, 80, 95), title: str | None = None) -> Any:
     """One panel per series: the recent history, the forecast origin, nested central
-    bands and the median (:func:`service.charts.fan_figure`, as the API's fan-chart.png).
+    bands and the median (:func:`service.output.charts.fan_figure`, as the API's fan-chart.png).
 
     ``history`` (dates x series, the series' own units; e.g. the last 36 periods) may be
     None, e.g. for running totals that have no past counterpart.

@@ -1,7 +1,7 @@
 """Command line: ``fanfold forecast DATA.csv --horizon 12`` and ``fanfold fit DATA.csv``.
 
 Parses the arguments, reads the CSV, calls :class:`priors.FanfoldVAR` and prints text
-(:mod:`service.tables`) or JSON (:mod:`service.serialization`). Every expected failure
+(:mod:`service.output.tables`) or JSON (:mod:`service.serialization`). Every expected failure
 is one line ``fanfold: error: <message>`` on stderr, with exit status 2 for a bad command
 line or model settings (:class:`priors.SpecificationError`) and 1 for a data file that
 cannot be read or used (any other :class:`priors.PriorsError`).
@@ -34,8 +34,9 @@ from priors import (
 )
 from priors.model import default_max_lags
 
-from .engine import blas_threads, simulate_forecast
-from .serialization import (
+from ..compute.engine import blas_threads, simulate_forecast
+from ..output.tables import format_backtest, format_fit, format_forecast, format_ranking
+from ..serialization import (
     convergence_summary,
     convergence_warnings,
     forecast_to_dict,
@@ -43,7 +44,6 @@ from .serialization import (
     quantile_key,
     summary_to_dict,
 )
-from .tables import format_backtest, format_fit, format_forecast, format_ranking
 
 __all__ = ["InputError", "UsageError", "build_parser", "main", "read_data"]
 
@@ -315,7 +315,7 @@ def _data_options() -> argparse.ArgumentParser:
 
 def build_parser() -> argparse.ArgumentParser:
     """The ``fanfold`` parser with its commands (the planning ones from
-    :mod:`service.cli_planning`)."""
+    :mod:`service.cli.planning`)."""
     parser = _Parser(prog="fanfold", formatter_class=_HelpFormatter,
                      description="Bayesian VAR forecasts of monthly (or other regular) "
                                  "demand series from a CSV file.")
@@ -430,11 +430,11 @@ def build_parser() -> argparse.ArgumentParser:
                          "(default: no file)")
     bt.set_defaults(run=_backtest)
 
-    from .cli_planning import add_planning_commands  # imports this module: not at the top
+    from .planning import add_planning_commands  # imports this module: not at the top
 
     add_planning_commands(sub, data_help=data_help, **common)
 
-    from .cli_batch import add_batch_command  # imports this module: not at the top
+    from .batch import add_batch_command  # imports this module: not at the top
 
     add_batch_command(sub, parents=[_model_options()], formatter_class=_HelpFormatter)
 
@@ -571,7 +571,7 @@ def _forecast(args: argparse.Namespace) -> str:
             raise InputError(f"cannot write {args.out!r}: {_one_line(exc)}") from exc
         print(f"fanfold: wrote {len(table)} rows to {args.out}", file=sys.stderr)
     if args.plot:
-        from .cli_planning import plot_forecast
+        from .planning import plot_forecast
 
         plot_forecast(args.plot, model, fc, cumulative=args.cumulative)
     payload = forecast_to_dict(model, fc, quantiles=args.quantiles, seed=seed, draws=args.draws,
@@ -623,7 +623,7 @@ def _backtest(args: argparse.Namespace) -> str:
     if args.ets:
         import functools
 
-        from .ets import ets_forecast, require_statsmodels
+        from ..compute.ets import ets_forecast, require_statsmodels
 
         require_statsmodels()
         extra = {"ets": functools.partial(ets_forecast, period=args.period)}
@@ -634,7 +634,7 @@ def _backtest(args: argparse.Namespace) -> str:
                             workers=args.workers, extra=extra)
     scores = result.scores()
     if args.report:
-        from .report import backtest_report
+        from ..output.report import backtest_report
 
         page = backtest_report(result, title=f"Fanfold backtest of {args.data}",
                                settings={"origins": args.origins, "horizon": args.horizon,
@@ -684,7 +684,7 @@ def _serve(args: argparse.Namespace) -> str:
 
     import uvicorn
 
-    from .config import get_settings
+    from ..config import get_settings
 
     try:
         loopback = args.host == "localhost" or ipaddress.ip_address(args.host).is_loopback
@@ -703,11 +703,11 @@ def _serve(args: argparse.Namespace) -> str:
           "(set FANFOLD_DATABASE_URL to choose)", file=sys.stderr, flush=True)
     if args.demo:
         print(_store_demo(f"http://{_url_host(args.host)}:{args.port}"), flush=True)
-    from .logs import configure_logging
+    from ..logs import configure_logging
 
     configure_logging()  # this process (the supervisor with --workers > 1)
-    from .http_protocol import NoDelayHTTPProtocol
-    from .metrics import prepare_multiprocess_dir
+    from ..http_protocol import NoDelayHTTPProtocol
+    from ..metrics import prepare_multiprocess_dir
 
     # PROMETHEUS_MULTIPROC_DIR set: workers share metrics files there (service/metrics.py);
     # created, and emptied of the last run's files, before any worker starts
@@ -725,14 +725,14 @@ def _url_host(host: str) -> str:
 
 def _store_demo(base: str) -> str:
     """Fit the demo data, store it, and return example requests to paste."""
-    from .auth import PUBLIC_TENANT
-    from .config import get_settings
-    from .db import make_engine, make_session_factory
-    from .demo import demo_frame
-    from .engine import fit_model, stored_settings
-    from .migrate import upgrade
-    from .schemas import ModelSettings
-    from .store import save_model
+    from ..auth import PUBLIC_TENANT
+    from ..compute.engine import fit_model, stored_settings
+    from ..config import get_settings
+    from ..db import make_engine, make_session_factory
+    from ..demo import demo_frame
+    from ..migrate import upgrade
+    from ..schemas import ModelSettings
+    from ..store import save_model
 
     settings = get_settings()
     engine = make_engine(settings.database_url)
@@ -766,7 +766,7 @@ def _store_demo(base: str) -> str:
 def _new_key(args: argparse.Namespace) -> str:
     from pydantic import ValidationError
 
-    from .auth import new_key
+    from ..auth import new_key
 
     try:
         key, entry = new_key(args.key_id, args.tenant)

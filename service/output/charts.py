@@ -1,7 +1,7 @@
 """Fan charts in one visual language, wherever Fanfold draws them.
 
 Used by the API's ``fan-chart.svg`` / ``fan-chart.png``, by ``fanfold forecast --plot``
-(through :mod:`service.plots`) and by the backtest report's fan charts; the planner page
+(through :mod:`service.output.plots`) and by the backtest report's fan charts; the planner page
 (``service/static/app/js/charts.js``) draws with the same colours, and a test keeps the
 two lists equal. The language: dates on the x axis, the series' units on the y axis,
 history in near-black, nested central bands in one hue at three lightnesses (widest
@@ -163,7 +163,7 @@ def _x(dates: Sequence[str]) -> np.ndarray:
 
 def panels_from_chart(chart: Mapping[str, Any], series: Sequence[str] | None = None
                       ) -> list[FanPanel]:
-    """Panels from the fan-chart answer of :func:`service.engine.fan_chart` (the JSON
+    """Panels from the fan-chart answer of :func:`service.compute.engine.fan_chart` (the JSON
     of ``GET /v1/models/{id}/fan-chart``), for ``series`` (default: all, in order)."""
     names = list(chart["median"]) if series is None else list(series)
     x = _x(chart["dates"])

@@ -1,5 +1,5 @@
 """``fanfold scenario``, ``shocks`` and ``reorder`` and the ``--plot`` files, run
-in-process through ``service.cli.main``."""
+in-process through ``service.cli.commands.main``."""
 
 from __future__ import annotations
 
@@ -10,7 +10,8 @@ import numpy as np
 import pytest
 
 from priors import FanfoldVAR
-from service.cli import read_data
+from service.cli.commands import read_data
+from service.compute.planning import replenishment_answer, scenario_answer
 from service.config import Settings
 from service.plan_schemas import (
     ReplenishmentCreate,
@@ -20,9 +21,8 @@ from service.plan_schemas import (
     SharesPublic,
     ShocksPublic,
 )
-from service.planning import replenishment_answer, scenario_answer
 
-ROOT = Path(__file__).resolve().parents[2]
+ROOT = Path(__file__).resolve().parents[3]
 DEMO = ROOT / "examples" / "bike_parts_demand.csv"
 NAMES = ["tyres", "inner_tubes", "brake_pads", "chains", "cassettes"]
 PNG = b"\x89PNG\r\n\x1a\n"

@@ -1,6 +1,6 @@
-"""Plain text views of the planning answers built by :mod:`service.planning`.
+"""Plain text views of the planning answers built by :mod:`service.compute.planning`.
 
-As in :mod:`service.tables`, each ``format_*`` function takes the JSON-ready dict (the
+As in :mod:`service.output.tables`, each ``format_*`` function takes the JSON-ready dict (the
 same one ``--json`` prints) and returns the text as one string.
 """
 

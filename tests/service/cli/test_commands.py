@@ -1,4 +1,4 @@
-"""The ``fanfold`` command, run in-process through ``service.cli.main``."""
+"""The ``fanfold`` command, run in-process through ``service.cli.commands.main``."""
 
 from __future__ import annotations
 
@@ -13,9 +13,9 @@ import pandas as pd
 import pytest
 
 from priors import ConvergenceWarning, FanfoldVAR
-from service.cli import main
+from service.cli.commands import main
 
-ROOT = Path(__file__).resolve().parents[2]
+ROOT = Path(__file__).resolve().parents[3]
 DEMO = ROOT / "examples" / "bike_parts_demand.csv"
 NAMES = ["tyres", "inner_tubes", "brake_pads", "chains", "cassettes"]
 FAST = ["--lags", "2", "--draws", "200"]
@@ -535,7 +535,7 @@ def test_forecast_independent_fresh_seed_reproduces_chains_and_paths(run) -> Non
 
 
 def test_gibbs_progress_is_drawn_on_a_terminal(run, monkeypatch) -> None:
-    import service.cli as cli
+    import service.cli.commands as cli
 
     code, _, err = run("fit", DEMO, *GIBBS)
     assert code == 0 and err == ""  # not a terminal: no bar
@@ -643,7 +643,7 @@ def test_dayfirst_reads_day_first_dates(run, tmp_path: Path) -> None:
     ["shocks"], ["reorder", "--lead-time", 2, "--stock", "tyres=5"],
 ])
 def test_every_command_reading_a_data_file_takes_dayfirst(command) -> None:
-    from service.cli import build_parser
+    from service.cli.commands import build_parser
 
     name, *rest = command
     args = build_parser().parse_args([name, "data.csv", *map(str, rest), "--dayfirst"])

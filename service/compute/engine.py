@@ -1,6 +1,6 @@
 """The bridge from request specs to :mod:`priors`: data frames, fits, forecasts.
 
-Limits and cost estimates are in :mod:`service.limits`.
+Limits and cost estimates are in :mod:`service.compute.limits`.
 
 Pure functions of (spec, settings); the routes call them in a worker thread.
 """
@@ -26,8 +26,10 @@ from priors import (
 from priors.calendar import calendar_from_index, check_date_range, regular_dates
 from priors.inventory import window_totals
 
-from .config import Settings
-from .errors import LimitExceeded
+from ..config import Settings
+from ..errors import LimitExceeded
+from ..schemas import ForecastSettings, ModelSettings, OutputSettings, SeriesData
+from ..serialization import convergence_summary, forecast_to_dict, quantile_key
 from .limits import (
     Admission,
     Shape,
@@ -39,8 +41,6 @@ from .limits import (
     gibbs_work,
     lags_and_terms,
 )
-from .schemas import ForecastSettings, ModelSettings, OutputSettings, SeriesData
-from .serialization import convergence_summary, forecast_to_dict, quantile_key
 
 __all__ = [
     "Fitted",

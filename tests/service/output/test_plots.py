@@ -1,4 +1,4 @@
-"""The PNG charts of :mod:`service.plots`, drawn from a small demo model."""
+"""The PNG charts of :mod:`service.output.plots`, drawn from a small demo model."""
 
 from __future__ import annotations
 
@@ -10,7 +10,7 @@ import pytest
 
 from priors import FanfoldVAR
 from priors.backtest import rolling_origin
-from service.plots import (
+from service.output.plots import (
     backtest_fan_png,
     fan_chart_png,
     period_name,
@@ -18,7 +18,7 @@ from service.plots import (
     scenario_png,
 )
 
-DEMO = Path(__file__).resolve().parents[2] / "examples" / "bike_parts_demand.csv"
+DEMO = Path(__file__).resolve().parents[3] / "examples" / "bike_parts_demand.csv"
 NAMES = ["tyres", "inner_tubes", "brake_pads", "chains", "cassettes"]
 PNG = b"\x89PNG\r\n\x1a\n"
 

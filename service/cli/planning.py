@@ -2,11 +2,12 @@
 and the ``--plot`` PNG files.
 
 The commands build the same request objects as the HTTP API
-(:mod:`service.plan_schemas`) and call the same answers (:mod:`service.planning`), so
+(:mod:`service.plan_schemas`) and call the same answers (:mod:`service.compute.planning`), so
 ``--json`` prints exactly the API's layout; the text views are in
-:mod:`service.plan_tables`, the charts in :mod:`service.plots`. Errors follow
-:mod:`service.cli`: a bad option is a :class:`~service.cli.UsageError` (exit 2), an
-unwritable file an :class:`~service.cli.InputError` (exit 1).
+:mod:`service.output.plan_tables`, the charts in :mod:`service.output.plots`. Errors follow
+:mod:`service.cli.commands`: a bad option is a
+:class:`~service.cli.commands.UsageError` (exit 2), an unwritable file an
+:class:`~service.cli.commands.InputError` (exit 1).
 """
 
 from __future__ import annotations
@@ -30,7 +31,13 @@ from pydantic import BaseModel, ValidationError
 from priors import FanfoldVAR, Forecast
 from priors.scenarios import Scenario
 
-from .cli import (
+from ..compute.planning import replenishment_answer, scenario_answer, shares_answer, shocks_answer
+from ..config import Settings
+from ..errors import LimitExceeded
+from ..output.plan_tables import format_reorder, format_scenario, format_shares, format_shocks
+from ..output.plots import fan_chart_png, period_name, responses_png, scenario_png
+from ..plan_schemas import ReplenishmentCreate, ScenarioCreate
+from .commands import (
     SEED_HELP,
     InputError,
     UsageError,
@@ -45,12 +52,6 @@ from .cli import (
     read_data,
     read_text_file,
 )
-from .config import Settings
-from .errors import LimitExceeded
-from .plan_schemas import ReplenishmentCreate, ScenarioCreate
-from .plan_tables import format_reorder, format_scenario, format_shares, format_shocks
-from .planning import replenishment_answer, scenario_answer, shares_answer, shocks_answer
-from .plots import fan_chart_png, period_name, responses_png, scenario_png
 
 __all__ = ["add_planning_commands", "plot_forecast"]
 
@@ -508,7 +509,7 @@ class StockRow:
 
 
 def _read_stock_file(path: str) -> list[StockRow]:
-    """The items of a ``--stock-file``; an :class:`~service.cli.InputError` naming the
+    """The items of a ``--stock-file``; an :class:`~service.cli.commands.InputError` naming the
     file, data row (the first row after the header is data row 1) and column for anything
     it cannot use."""
     text = read_text_file(path, "stock file")

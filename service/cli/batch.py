@@ -15,11 +15,11 @@ import time
 from collections.abc import Callable
 from typing import Any
 
-from .batch.output import forecast_frame, status_frame, status_path, write_table
-from .batch.runner import batch_client, dask_security, run_batch
-from .batch.table import Columns, parse_group_by, read_table, split_groups
-from .batch.worker import ForecastSpec
-from .cli import (
+from ..batch.output import forecast_frame, status_frame, status_path, write_table
+from ..batch.runner import batch_client, dask_security, run_batch
+from ..batch.table import Columns, parse_group_by, read_table, split_groups
+from ..batch.worker import ForecastSpec
+from .commands import (
     SEED_RULE,
     InputError,
     UsageError,
@@ -107,7 +107,7 @@ def add_batch_command(sub: Any, *, parents: list[argparse.ArgumentParser],
 
 
 def _batch(args: argparse.Namespace) -> str:
-    from .config import get_settings
+    from ..config import get_settings
 
     settings = get_settings()
     if not args.out.lower().endswith((".parquet", ".pq", ".csv")):

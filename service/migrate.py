@@ -1,4 +1,12 @@
-"""Schema migrations (Alembic), run programmatically at start-up."""
+"""Schema migrations (Alembic), run programmatically at start-up.
+
+Every uvicorn worker and every replica runs :func:`upgrade` when it starts, often at the
+same moment on a fresh database; without a lock two of them both create the tables and
+all but one crash ("table alembic_version already exists"). So the migration runs under
+a database-wide lock that the others wait for, then find the schema at head: a
+transaction-level advisory lock on PostgreSQL, the write lock (``BEGIN IMMEDIATE``,
+waiting up to the connection's ``busy_timeout``) on SQLite.
+"""
 
 from __future__ import annotations
 
@@ -8,11 +16,13 @@ from alembic import command
 from alembic.config import Config
 from alembic.runtime.migration import MigrationContext
 from alembic.script import ScriptDirectory
-from sqlalchemy import Engine
+from sqlalchemy import Connection, Engine, text
 
 __all__ = ["at_head", "upgrade"]
 
 _SCRIPTS = str(Path(__file__).resolve().parent / "migrations")
+#: the advisory-lock key of schema migrations on PostgreSQL (any constant bigint)
+MIGRATION_LOCK_KEY = 0x66616E666F6C64  # "fanfold"
 
 
 def _config() -> Config:
@@ -25,8 +35,17 @@ def upgrade(engine: Engine) -> None:
     """Bring the database schema to the newest revision."""
     cfg = _config()
     with engine.begin() as conn:
+        _lock_schema(conn)
         cfg.attributes["connection"] = conn
         command.upgrade(cfg, "head")
+
+
+def _lock_schema(conn: Connection) -> None:
+    """Hold the database's migration lock until this transaction ends."""
+    if conn.dialect.name == "postgresql":
+        conn.execute(text("SELECT pg_advisory_xact_lock(:key)"), {"key": MIGRATION_LOCK_KEY})
+    elif conn.dialect.name == "sqlite":
+        conn.exec_driver_sql("BEGIN IMMEDIATE")
 
 
 def at_head(engine: Engine) -> bool:

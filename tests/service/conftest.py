@@ -12,20 +12,23 @@ installed the ``[postgres]`` variants skip with that reason, unless
 from __future__ import annotations
 
 import os
-import uuid
 from collections.abc import Iterator
 from pathlib import Path
 
 import pandas as pd
 import pytest
-import sqlalchemy as sa
 from fastapi.testclient import TestClient
 
 from service.app import create_app
 from service.cli import main
 from service.config import Settings, get_settings
 
-from .postgres import PostgresUnavailable, temporary_postgres
+from .postgres import (
+    PostgresUnavailable,
+    drop_postgres_database,
+    fresh_postgres_database,
+    temporary_postgres,
+)
 
 DEMO_CSV = Path(__file__).resolve().parents[2] / "examples" / "bike_parts_demand.csv"
 REQUIRE_POSTGRES = "FANFOLD_TEST_REQUIRE_POSTGRES"
@@ -51,30 +54,6 @@ def postgres_server() -> Iterator[str]:
         if required:
             pytest.fail(f"{REQUIRE_POSTGRES} is set but PostgreSQL cannot run: {exc}")
         pytest.skip(f"PostgreSQL cannot run here: {exc}")
-
-
-def fresh_postgres_database(server_url: str) -> str:
-    """Create an empty database on the server; its SQLAlchemy URL."""
-    name = f"t_{uuid.uuid4().hex[:16]}"
-    admin = sa.create_engine(server_url, isolation_level="AUTOCOMMIT")
-    try:
-        with admin.connect() as conn:
-            conn.exec_driver_sql(f"CREATE DATABASE {name}")
-    finally:
-        admin.dispose()
-    return server_url.rsplit("/", 1)[0] + f"/{name}"
-
-
-def drop_postgres_database(server_url: str, url: str) -> None:
-    """Drop a database made by :func:`fresh_postgres_database`, closing what still uses
-    it (PostgreSQL 13+)."""
-    admin = sa.create_engine(server_url, isolation_level="AUTOCOMMIT")
-    try:
-        with admin.connect() as conn:
-            conn.exec_driver_sql(f"DROP DATABASE IF EXISTS {url.rsplit('/', 1)[1]} "
-                                 "WITH (FORCE)")
-    finally:
-        admin.dispose()
 
 
 @pytest.fixture

@@ -11,11 +11,13 @@ import shutil
 import socket
 import subprocess
 import tempfile
+import uuid
 from collections.abc import Iterator
 from contextlib import contextmanager
 from pathlib import Path
 
-__all__ = ["PostgresUnavailable", "postgres_binaries", "temporary_postgres"]
+__all__ = ["PostgresUnavailable", "drop_postgres_database", "fresh_postgres_database",
+           "postgres_binaries", "temporary_postgres"]
 
 
 class PostgresUnavailable(RuntimeError):
@@ -100,3 +102,34 @@ def temporary_postgres(*, durable: bool = False, max_connections: int = 200) -> 
             subprocess.run([*prefix, pg_ctl, "-D", str(data), "-m", "immediate", "-w", "-t",
                             "30", "stop"], check=False, capture_output=True, timeout=60)
         shutil.rmtree(base, ignore_errors=True)
+
+
+def fresh_postgres_database(server_url: str, name: str | None = None) -> str:
+    """Create an empty database (``name``, else a random one) on the server of
+    ``server_url``; its SQLAlchemy URL."""
+    import sqlalchemy as sa
+
+    name = name or f"t_{uuid.uuid4().hex[:16]}"
+    if not name.isidentifier():
+        raise ValueError(f"database name {name!r} is not a plain identifier")
+    admin = sa.create_engine(server_url, isolation_level="AUTOCOMMIT")
+    try:
+        with admin.connect() as conn:
+            conn.exec_driver_sql(f"CREATE DATABASE {name}")
+    finally:
+        admin.dispose()
+    return server_url.rsplit("/", 1)[0] + f"/{name}"
+
+
+def drop_postgres_database(server_url: str, url: str) -> None:
+    """Drop a database made by :func:`fresh_postgres_database`, closing the connections
+    that still use it (PostgreSQL 13+)."""
+    import sqlalchemy as sa
+
+    admin = sa.create_engine(server_url, isolation_level="AUTOCOMMIT")
+    try:
+        with admin.connect() as conn:
+            conn.exec_driver_sql(f"DROP DATABASE IF EXISTS {url.rsplit('/', 1)[1]} "
+                                 "WITH (FORCE)")
+    finally:
+        admin.dispose()

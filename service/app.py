@@ -28,7 +28,7 @@ from .jobs import JobRunner
 from .limits import SWEEP_COST
 from .logs import configure_logging
 from .metrics import Metrics, MetricsMiddleware
-from .middleware import BodyLimitMiddleware, RequestIdMiddleware
+from .middleware import BodyLimitMiddleware, LoadShedMiddleware, RequestIdMiddleware
 from .migrate import upgrade
 from .ratelimit import RateLimiter, enforce_rate_limit
 from .schemas import ForecastCreate
@@ -98,6 +98,8 @@ def create_app(settings: Settings | None = None) -> FastAPI:
     if settings.docs_enabled:
         _add_docs(app, protected)
     # added last = outermost: ids first, then limits, then metrics around the routes
+    if settings.max_in_flight:
+        app.add_middleware(LoadShedMiddleware, max_in_flight=settings.max_in_flight)
     app.add_middleware(MetricsMiddleware, metrics=app.state.metrics)
     app.add_middleware(BodyLimitMiddleware, max_bytes=settings.max_body_bytes)
     if settings.cors_origins:
@@ -230,6 +232,9 @@ def _problem_responses(schema: dict[str, Any]) -> None:
                                                             "(when keys are configured)"})
                 responses.setdefault("429", {"description": "over the rate limit; see "
                                                             "Retry-After"})
+                responses.setdefault("503", {"description": "overloaded (too many requests "
+                                                            "in flight) or past the request "
+                                                            "time; see Retry-After"})
             for code, response in responses.items():
                 if code.isdigit() and int(code) >= 400:
                     response["content"] = ref

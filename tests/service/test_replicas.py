@@ -235,3 +235,55 @@ def test_two_servers_on_one_database_run_each_job_exactly_once(database_url, tmp
 def _fit_count(metrics: str) -> int:
     match = re.search(r"^fanfold_fit_duration_seconds_count (\S+)$", metrics, re.M)
     return int(float(match.group(1))) if match else 0
+
+
+def test_a_replica_killed_mid_job_leaves_it_to_the_other(database_url, tmp_path, fit_body):
+    """Two servers; the one running a long fit is killed with SIGKILL: the other re-queues
+    the job once its lease runs out, runs it to the end (attempt 2), and one model is
+    stored."""
+    env = {"FANFOLD_DATABASE_URL": database_url, "FANFOLD_JOB_WORKERS": "1",
+           "FANFOLD_RATE_LIMIT_PER_MINUTE": "0", "FANFOLD_JOB_LEASE_S": "2",
+           "FANFOLD_JOB_RECOVERY_INTERVAL_S": "0.5"}
+    servers = _start_together(2, tmp_path, env)
+    by_pid = {str(proc.pid): (base, proc) for base, proc in servers}
+    engine = make_engine(database_url)
+    long_fit = {**fit_body, "prior": "independent", "chains": 1, "burn": 6000, "keep": 50,
+                "seed": 3}  # several seconds of Gibbs sweeps
+    try:
+        with httpx.Client(timeout=30) as http:
+            r = http.post(f"{servers[0][0]}/v1/models", json=long_fit, headers=ASYNC)
+            assert r.status_code == 202, r.text
+            location, job_id = r.headers["location"], r.json()["id"]
+            deadline = time.monotonic() + 60
+            while True:  # running, past its first progress report: mid-fit
+                with engine.connect() as conn:
+                    status, progress, worker = conn.execute(sa.text(
+                        "SELECT status, progress, worker FROM jobs WHERE id = :id"),
+                        {"id": job_id}).one()
+                if status == "running" and progress > 0.1:
+                    break
+                assert status == "queued" or status == "running", status
+                assert time.monotonic() < deadline, "the job did not start within 60 s"
+                time.sleep(0.05)
+            victim_pid = worker.split(":")[1]
+            _, victim = by_pid[victim_pid]
+            victim.kill()  # SIGKILL: no shutdown, the job stays "running" with its lease
+            victim.wait(30)
+            survivor_base = next(b for pid, (b, _) in by_pid.items() if pid != victim_pid)
+            deadline = time.monotonic() + 120
+            while (job := http.get(survivor_base + location).json())["status"] in (
+                    "queued", "running"):
+                assert time.monotonic() < deadline, job
+                time.sleep(0.2)
+            models = http.get(f"{survivor_base}/v1/models").json()["data"]
+    finally:
+        for _, proc in servers:
+            if proc.poll() is None:
+                _stop(proc)
+    with engine.connect() as conn:
+        worker = conn.execute(sa.text("SELECT worker FROM jobs WHERE id = :id"),
+                              {"id": job_id}).scalar_one()
+    engine.dispose()
+    assert job["status"] == "succeeded" and job["attempts"] == 2, job
+    assert worker.split(":")[1] != victim_pid  # the survivor finished it
+    assert [m["id"] for m in models] == [job["result"].rsplit("/", 1)[1]]

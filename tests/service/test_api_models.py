@@ -5,6 +5,7 @@ from __future__ import annotations
 import numpy as np
 import pytest
 from fastapi.testclient import TestClient
+from sqlalchemy import event
 
 from priors import FanfoldVAR
 from service.app import create_app
@@ -99,6 +100,23 @@ def test_fan_chart_bands_nested_and_etag_gives_304(client, model_body):
     again = client.get(url, params={"horizon": 6, "bands": "50,80,95", "draws": 500},
                        headers={"If-None-Match": etag})
     assert again.status_code == 304 and again.headers["etag"] == etag and not again.content
+    # a poll reads the model's version only, not its data, posterior and draws
+    statements: list[str] = []
+
+    def record(conn, cursor, sql, *rest) -> None:
+        statements.append(sql)
+
+    engine = client.app.state.engine
+    event.listen(engine, "before_cursor_execute", record)
+    try:
+        polled = client.get(url, params={"horizon": 6, "bands": "50,80,95", "draws": 500},
+                            headers={"If-None-Match": etag})
+    finally:
+        event.remove(engine, "before_cursor_execute", record)
+    assert polled.status_code == 304 and polled.headers["etag"] == etag
+    selects = [sql for sql in statements if sql.lstrip().upper().startswith("SELECT")
+               and "select 1" not in sql.lower()]
+    assert len(selects) == 1 and "posterior" not in selects[0] and "version" in selects[0]
     other = client.get(url, params={"horizon": 7, "bands": "50,80,95", "draws": 500},
                        headers={"If-None-Match": etag})
     assert other.status_code == 200 and other.headers["etag"] != etag

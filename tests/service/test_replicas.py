@@ -112,7 +112,8 @@ engine.dispose()
 def test_processes_migrating_a_fresh_database_at_once_all_start(database_url):
     """Every uvicorn worker and replica migrates at start. While one holds the migration
     lock the others wait (they crashed on "table alembic_version already exists" when
-    they raced), and once it is released they all finish, with the schema at head."""
+    they raced), also longer than SQLite's busy timeout, and once it is released they
+    all finish, with the schema at head."""
     from service.migrate import _lock_schema
 
     holder = make_engine(database_url)
@@ -127,7 +128,8 @@ def test_processes_migrating_a_fresh_database_at_once_all_start(database_url):
             for p in procs:  # bounded: the child prints within its import time
                 line = _readline(p, timeout=60)
                 assert line == "connected", f"a migrating process did not start: {line!r}"
-            time.sleep(1.0)  # under SQLite's busy_timeout of 5 s
+            time.sleep(6.0)  # past SQLite's busy_timeout of 5 s (a slow migration):
+            # the waiting processes crashed on "database is locked" there
             assert [p.poll() for p in procs] == [None] * 3, "migrated without the lock"
             conn.rollback()
         errors = [p.communicate(timeout=60)[1] for p in procs]

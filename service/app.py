@@ -38,7 +38,7 @@ from .errors import register_error_handlers
 from .jobs import JobRunner
 from .logs import configure_logging
 from .metrics import Metrics, MetricsMiddleware
-from .middleware import BodyLimitMiddleware, RequestIdMiddleware
+from .middleware import BodyLimitMiddleware, LoadShedMiddleware, RequestIdMiddleware
 from .migrate import upgrade
 from .ratelimit import RateLimiter, enforce_rate_limit
 from .schemas import ForecastCreate
@@ -112,6 +112,8 @@ def create_app(settings: Settings | None = None) -> FastAPI:
     if settings.page_enabled:
         app.include_router(page.router)  # static files; the page calls /v1 with the key
     # added last = outermost: ids first, then limits, then metrics around the routes
+    if settings.max_in_flight:
+        app.add_middleware(LoadShedMiddleware, max_in_flight=settings.max_in_flight)
     app.add_middleware(MetricsMiddleware, metrics=app.state.metrics)
     app.add_middleware(BodyLimitMiddleware, max_bytes=settings.max_body_bytes,
                        path_limits={"/v1/batches": settings.max_batch_body_bytes})
@@ -245,6 +247,9 @@ def _problem_responses(schema: dict[str, Any]) -> None:
                                                             "(when keys are configured)"})
                 responses.setdefault("429", {"description": "over the rate limit; see "
                                                             "Retry-After"})
+                responses.setdefault("503", {"description": "overloaded (too many requests "
+                                                            "in flight) or past the request "
+                                                            "time; see Retry-After"})
             for code, response in responses.items():
                 if code.isdigit() and int(code) >= 400:
                     response["content"] = ref

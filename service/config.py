@@ -72,6 +72,9 @@ class Settings(BaseSettings):
     # burst), so that expensive requests cost more; 0 = one token per request
     rate_limit_token_s: float = Field(0.25, ge=0)
     max_running_jobs_per_tenant: int = Field(4, ge=1)
+    # requests answered at once per process; more get 503 + Retry-After at once instead
+    # of queueing (load shedding; probes and /metrics exempt); 0 = no limit
+    max_in_flight: int = Field(64, ge=0)
     docs_enabled: bool = True
     page_enabled: bool = True  # the planner's web page at / (static files, open)
     cors_origins: list[str] = []

@@ -1,7 +1,12 @@
 """Background jobs: rows in the database, run by a pool of worker threads.
 
-Claiming is a conditional UPDATE (``... WHERE id = ? AND status = 'queued'``, checked by
-row count), portable to SQLite and PostgreSQL. A running job holds a short lease
+Claiming is safe with several service replicas on one database. The oldest queued job is
+selected with a row lock that skips rows another worker holds (``SELECT ... FOR UPDATE
+SKIP LOCKED`` on PostgreSQL: concurrent claimers take different jobs and never wait on
+each other; SQLite has no row locks and serialises writers with its database lock
+instead), then taken by a conditional UPDATE (``... WHERE id = ? AND status = 'queued'``
+returning the new attempt number, so a lost race is seen and the next job tried). The
+claim records its worker (``host:pid:thread``) in the row. A running job holds a short lease
 (``job_lease_s``) that a heartbeat renews while the fit runs, up to ``fit_timeout_s``
 of wall-clock time. So when a worker dies (crash, kill -9, restart) its jobs' leases run
 out within ``job_lease_s``, and :meth:`JobRunner.recover` (at start and every
@@ -22,6 +27,8 @@ from __future__ import annotations
 
 import datetime as dt
 import logging
+import os
+import socket
 import threading
 import time
 import uuid
@@ -59,6 +66,8 @@ __all__ = ["PROGRESS_INTERVAL_S", "TERMINAL", "JobRunner", "cancel_job", "get_jo
 log = logging.getLogger("fanfold.jobs")
 TERMINAL = frozenset({"succeeded", "failed", "cancelled"})
 PROGRESS_INTERVAL_S = 0.5  # at most one progress write per job this often
+_CLAIM_TRIES = 5  # queued jobs tried per claim when other workers win the races (SQLite)
+_HOST = socket.gethostname()
 
 
 class _Cancelled(Exception):
@@ -156,8 +165,11 @@ class JobRunner:
 
     # ------------------------------------------------------------------ recovery
     def recover(self) -> int:
-        """Re-queue or fail running jobs whose lease has run out; returns how many."""
+        """Re-queue or fail running jobs whose lease has run out; returns how many this
+        call changed (replicas recovering at the same moment change each job once: the
+        UPDATE re-checks the state, attempt and lease it read)."""
         now = _now()
+        changed = 0
         with self.sessions() as s:
             stale = list(s.scalars(select(Job).where(Job.status == "running",
                                                      Job.lease_until < now)))
@@ -170,16 +182,17 @@ class JobRunner:
                         "detail": f"the job's worker stopped {job.attempts} time(s) before "
                                   "finishing (crash, restart or time-out); submit it again "
                                   "or fit a smaller model"}}
-                s.execute(update(Job).where(Job.id == job.id, Job.status == "running",
-                                            Job.attempts == job.attempts)
-                          .values(updated_at=now, **values))
+                done = s.execute(update(Job).where(
+                    Job.id == job.id, Job.status == "running", Job.attempts == job.attempts,
+                    Job.lease_until < now).values(updated_at=now, **values))
+                changed += done.rowcount
             s.commit()
-        if stale:
-            log.warning("recovered %d job(s) whose lease ran out", len(stale))
+        if changed:
+            log.warning("recovered %d job(s) whose lease ran out", changed)
             if self.metrics is not None:
-                self.metrics.jobs_recovered.inc(len(stale))
+                self.metrics.jobs_recovered.inc(changed)
             self._wake.set()
-        return len(stale)
+        return changed
 
     def _recovery_loop(self) -> None:
         while not self._stop.wait(self.settings.job_recovery_interval_s):
@@ -191,8 +204,10 @@ class JobRunner:
     # ------------------------------------------------------------------ work
     def _claim(self) -> tuple[str, int] | None:
         """Take the oldest queued job of a tenant below its cap of running jobs (a soft
-        cap: workers claiming at the same moment can exceed it by their number)."""
+        cap: workers claiming at the same moment can exceed it by their number); its id
+        and attempt number, or None when there is nothing to take."""
         cap = self.settings.max_running_jobs_per_tenant
+        worker = f"{_HOST}:{os.getpid()}:{threading.current_thread().name}"[:255]
         with self.sessions() as s:
             busy = {t for t, count in s.execute(
                 select(Job.tenant_id, func.count()).where(Job.status == "running")
@@ -200,18 +215,24 @@ class JobRunner:
             query = select(Job.id).where(Job.status == "queued")
             if busy:
                 query = query.where(Job.tenant_id.not_in(busy))
-            ids = list(s.scalars(query.order_by(Job.created_at).limit(5)))
-            for job_id in ids:
-                attempts = s.scalar(select(Job.attempts).where(Job.id == job_id))
-                claimed = s.execute(
+            lost: list[str] = []
+            for _ in range(_CLAIM_TRIES):
+                candidates = query.where(Job.id.not_in(lost)) if lost else query
+                job_id = s.scalar(candidates.order_by(Job.created_at, Job.id).limit(1)
+                                  .with_for_update(skip_locked=True))
+                if job_id is None:
+                    return None
+                attempt = s.scalar(
                     update(Job).where(Job.id == job_id, Job.status == "queued").values(
                         status="running", attempts=Job.attempts + 1, progress=0.1,
                         lease_until=_now() + dt.timedelta(seconds=self.settings.job_lease_s),
-                        updated_at=_now()))
-                if claimed.rowcount == 1:
+                        updated_at=_now(), worker=worker)
+                    .returning(Job.attempts))
+                if attempt is not None:
                     s.commit()
-                    return job_id, int(attempts or 0) + 1
-                s.rollback()
+                    return job_id, int(attempt)
+                s.rollback()  # another worker took it between the SELECT and the UPDATE
+                lost.append(job_id)
         return None
 
     def _loop(self) -> None:

@@ -1,6 +1,6 @@
-"""ASGI middleware: request ids and the request-body size limit.
+"""ASGI middleware: request ids, the request-body size limit and load shedding.
 
-Both are plain ASGI (no BaseHTTPMiddleware), so streamed bodies are counted as they
+All are plain ASGI (no BaseHTTPMiddleware), so streamed bodies are counted as they
 arrive and nothing is buffered twice.
 """
 
@@ -16,19 +16,22 @@ from starlette.types import ASGIApp, Message, Receive, Scope, Send
 
 from .context import request_id
 
-__all__ = ["BodyLimitMiddleware", "RequestIdMiddleware"]
+__all__ = ["BodyLimitMiddleware", "LoadShedMiddleware", "RequestIdMiddleware"]
 
 log = logging.getLogger("fanfold.service")
 _VALID_ID = re.compile(r"^[A-Za-z0-9._\-]{1,128}$")
 
 
-async def _send_problem(send: Send, status: int, title: str, detail: str) -> None:
+async def _send_problem(send: Send, status: int, title: str, detail: str,
+                        headers: dict[str, str] | None = None) -> None:
     """A problem-details response written straight to ASGI (outside the app's handlers)."""
     body = json.dumps({"type": "about:blank", "title": title, "status": status,
                        "detail": detail, "request_id": request_id.get()}).encode()
     await send({"type": "http.response.start", "status": status, "headers": [
         (b"content-type", b"application/problem+json"),
         (b"content-length", str(len(body)).encode()),
+        *((k.lower().encode("latin-1"), v.encode("latin-1"))
+          for k, v in (headers or {}).items()),
     ]})
     await send({"type": "http.response.body", "body": body})
 
@@ -130,6 +133,43 @@ class BodyLimitMiddleware:
         except _TooLarge:
             if not started:
                 await self._reject(send, limit)
+
+
+class LoadShedMiddleware:
+    """Answer 503 with Retry-After at once when ``max_in_flight`` requests are already
+    being answered in this process (overload: many tenants together, each within its
+    rate limit), instead of letting them pile up in the thread pool (fits, fan charts,
+    forecasts above ``inline_max_cost``). The probes and /metrics are never shed.
+
+    Not covered: small one-shot forecasts run on the event loop, one after the other,
+    so they are never "in flight" together; at twice the capacity their excess waits in
+    uvicorn before the app sees it (tests/benchmarks/results/load.md, "(c')": answers
+    took seconds, and 10 s client time-outs occurred without the per-tenant rate limit).
+    """
+
+    EXEMPT = frozenset({"/livez", "/readyz", "/metrics"})
+    RETRY_AFTER_S = 1
+
+    def __init__(self, app: ASGIApp, max_in_flight: int) -> None:
+        self.app = app
+        self.max_in_flight = max_in_flight
+        self.in_flight = 0  # one event loop per process: no lock needed
+
+    async def __call__(self, scope: Scope, receive: Receive, send: Send) -> None:
+        if scope["type"] != "http" or scope["path"] in self.EXEMPT:
+            await self.app(scope, receive, send)
+            return
+        if self.in_flight >= self.max_in_flight:
+            await _send_problem(send, 503, "Service Unavailable",
+                                f"this server is answering {self.in_flight} requests, its "
+                                f"limit; retry after {self.RETRY_AFTER_S} s",
+                                headers={"Retry-After": str(self.RETRY_AFTER_S)})
+            return
+        self.in_flight += 1
+        try:
+            await self.app(scope, receive, send)
+        finally:
+            self.in_flight -= 1
 
 
 def header(scope: dict[str, Any], name: bytes) -> str | None:

@@ -105,6 +105,8 @@ class Job(Base):
     max_attempts: Mapped[int] = mapped_column(Integer, default=3)
     cancel_requested: Mapped[int] = mapped_column(Integer, default=0)
     lease_until: Mapped[dt.datetime | None] = mapped_column(UTCDateTime, nullable=True)
+    # "host:pid:thread" of the worker that claimed the job last (several replicas)
+    worker: Mapped[str | None] = mapped_column(String(255), nullable=True)
     created_at: Mapped[dt.datetime] = mapped_column(UTCDateTime, default=_now)
     updated_at: Mapped[dt.datetime] = mapped_column(UTCDateTime, default=_now)
     payload: Mapped[dict] = mapped_column(JSON)

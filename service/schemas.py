@@ -299,6 +299,14 @@ class ModelCreate(SeriesData, ModelSettings):
 
     name: str | None = Field(None, max_length=200, description="a label for people")
 
+    @field_validator("name")
+    @classmethod
+    def _name_storable(cls, v: str | None) -> str | None:
+        # PostgreSQL text cannot hold U+0000 (it was a 500 there and stored on SQLite)
+        if v is not None and "\x00" in v:
+            raise ValueError("name must not contain the NUL character (U+0000)")
+        return v
+
 
 class ObservationsCreate(SeriesData):
     """New periods for a stored model: every series, continuing right after its data.

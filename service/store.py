@@ -26,7 +26,8 @@ from .serialization import (
 )
 
 __all__ = ["BadCursor", "delete_model", "find_idempotent", "get_model", "list_models",
-           "load_fitted", "remember_idempotent", "replace_fitted", "save_model"]
+           "load_fitted", "model_version", "remember_idempotent", "replace_fitted",
+           "save_model"]
 
 
 class BadCursor(ValueError):
@@ -66,6 +67,14 @@ def save_model(*, session: Session, tenant: str, name: str | None, params: dict[
 
 def get_model(*, session: Session, tenant: str, model_id: str) -> StoredModel | None:
     return session.scalar(select(StoredModel).where(
+        StoredModel.id == model_id, StoredModel.tenant_id == tenant))
+
+
+def model_version(*, session: Session, tenant: str, model_id: str) -> int | None:
+    """The model's version alone (None if there is none): what a conditional GET needs
+    to answer 304, without reading the row's data, posterior and draws (megabytes for
+    Gibbs models, sent over the network on PostgreSQL at every dashboard poll)."""
+    return session.scalar(select(StoredModel.version).where(
         StoredModel.id == model_id, StoredModel.tenant_id == tenant))
 
 

@@ -1,8 +1,18 @@
-"""Fixtures for the HTTP tests: an app on default settings and the demo data."""
+"""Fixtures for the HTTP tests: an app on default settings, the database it uses, and the
+demo data.
+
+Databases. ``database_url`` is a fresh, empty database per test: a SQLite file in the
+test's folder, or (in modules marked ``both_databases``, whose tests then run twice, ids
+``[sqlite]`` and ``[postgres]``) also a database created on a throw-away PostgreSQL
+server, one server per session (:mod:`tests.service.postgres`). Without PostgreSQL
+installed the ``[postgres]`` variants skip with that reason, unless
+``FANFOLD_TEST_REQUIRE_POSTGRES=1`` (CI sets it), which makes them fail instead.
+"""
 
 from __future__ import annotations
 
 import os
+from collections.abc import Iterator
 from pathlib import Path
 
 import pandas as pd
@@ -13,7 +23,56 @@ from service.app import create_app
 from service.cli.commands import main
 from service.config import Settings, get_settings
 
+from .postgres import (
+    PostgresUnavailable,
+    drop_postgres_database,
+    fresh_postgres_database,
+    temporary_postgres,
+)
+
 DEMO_CSV = Path(__file__).resolve().parents[2] / "examples" / "bike_parts_demand.csv"
+REQUIRE_POSTGRES = "FANFOLD_TEST_REQUIRE_POSTGRES"
+DATABASE_KINDS = ("sqlite", "postgres")
+
+
+def pytest_generate_tests(metafunc: pytest.Metafunc) -> None:
+    """Tests of a module marked ``both_databases`` that use ``database_url`` (directly or
+    through ``settings`` / ``client``) run once per database kind."""
+    if (metafunc.definition.get_closest_marker("both_databases") is not None
+            and "database_kind" in metafunc.fixturenames):
+        metafunc.parametrize("database_kind", DATABASE_KINDS, indirect=True)
+
+
+@pytest.fixture(scope="session")
+def postgres_server() -> Iterator[str]:
+    """The admin URL of a throw-away PostgreSQL server on 127.0.0.1, one per session."""
+    required = os.environ.get(REQUIRE_POSTGRES, "") not in ("", "0")
+    try:
+        with temporary_postgres() as url:
+            yield url
+    except PostgresUnavailable as exc:
+        if required:
+            pytest.fail(f"{REQUIRE_POSTGRES} is set but PostgreSQL cannot run: {exc}")
+        pytest.skip(f"PostgreSQL cannot run here: {exc}")
+
+
+@pytest.fixture
+def database_kind(request: pytest.FixtureRequest) -> str:
+    """"sqlite" unless the test is parametrized by :func:`pytest_generate_tests`."""
+    return getattr(request, "param", "sqlite")
+
+
+@pytest.fixture
+def database_url(database_kind: str, tmp_path: Path,
+                 request: pytest.FixtureRequest) -> Iterator[str]:
+    """A fresh, empty database of ``database_kind`` for this test."""
+    if database_kind == "sqlite":
+        yield f"sqlite:///{tmp_path / 'fanfold.db'}"
+        return
+    server = request.getfixturevalue("postgres_server")
+    url = fresh_postgres_database(server)
+    yield url
+    drop_postgres_database(server, url)
 
 
 @pytest.fixture(autouse=True)
@@ -29,9 +88,9 @@ def _isolated_environment(monkeypatch, tmp_path):
 
 
 @pytest.fixture
-def settings() -> Settings:
-    """Defaults, on the temporary database file (worker threads need real connections)."""
-    return Settings()
+def settings(database_url: str) -> Settings:
+    """Defaults, on this test's database (a file: worker threads need real connections)."""
+    return Settings(database_url=database_url)
 
 
 @pytest.fixture

@@ -4,10 +4,13 @@ from __future__ import annotations
 
 import numpy as np
 import pandas as pd
+import pytest
 
 from priors.backtest import rolling_origin
 
 from .helpers import wait_for_job
+
+pytestmark = pytest.mark.both_databases
 
 
 def test_backtest_job_returns_the_engine_scores(client, demo):

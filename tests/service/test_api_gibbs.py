@@ -25,6 +25,7 @@ from service.serialization import CorruptBlobError, draws_from_blob, draws_to_bl
 from .helpers import wait_for_job
 
 GIBBS = {"lags": 2, "prior": "independent", "chains": 2, "burn": 50, "keep": 100}
+pytestmark = pytest.mark.both_databases
 SUMMARY_KEYS = {"worst_r_hat", "min_ess_bulk", "min_ess_tail", "ok", "messages", "thresholds"}
 
 
@@ -41,9 +42,9 @@ def _engine_fit(body: dict) -> FanfoldVAR:
                                                 rng=np.random.default_rng(body["seed"]))
 
 
-def _app(tmp_path, db: str = "g.db", **limits) -> TestClient:
-    """The service on its own database, without the rate limit (tests poll often)."""
-    return TestClient(create_app(Settings(database_url=f"sqlite:///{tmp_path / db}",
+def _app(database_url: str, **limits) -> TestClient:
+    """The service on the test's database, without the rate limit (tests poll often)."""
+    return TestClient(create_app(Settings(database_url=database_url,
                                           rate_limit_per_minute=0, **limits)))
 
 
@@ -110,8 +111,8 @@ def test_draws_round_trip_exactly_and_are_checked(body):
         draws_from_blob(blob, {**meta, "format": "pickle"})
 
 
-def test_corrupt_stored_draws_are_a_500_without_internals(tmp_path, body):
-    with _app(tmp_path) as c:
+def test_corrupt_stored_draws_are_a_500_without_internals(database_url, body):
+    with _app(database_url) as c:
         model_id = c.post("/v1/models", json=body).json()["id"]
         with c.app.state.sessions() as s:
             blob = s.get(StoredModel, model_id).draws
@@ -151,8 +152,8 @@ def _run_job_observed(app: TestClient, location: str, monkeypatch, on_progress=N
     return seen
 
 
-def test_a_long_gibbs_fit_runs_as_a_job_with_rising_progress(tmp_path, body, monkeypatch):
-    with _app(tmp_path, sync_max_gibbs_work=1, job_workers=0) as c:
+def test_a_long_gibbs_fit_runs_as_a_job_with_rising_progress(database_url, body, monkeypatch):
+    with _app(database_url, sync_max_gibbs_work=1, job_workers=0) as c:
         r = c.post("/v1/models", json=body)
         assert r.status_code == 202 and r.headers["location"].startswith("/v1/jobs/")
         location = r.headers["location"]
@@ -164,13 +165,13 @@ def test_a_long_gibbs_fit_runs_as_a_job_with_rising_progress(tmp_path, body, mon
         assert job["status"] == "succeeded" and job["progress"] == 1.0
         stored = c.get(job["result"]).json()
         assert stored["settings"]["seed"] == 5 and set(stored["diagnostics"]) == SUMMARY_KEYS
-    with _app(tmp_path, "direct.db", job_workers=0) as direct:  # the same fit, answered at once
+    with _app(database_url, job_workers=0) as direct:  # the same fit, answered at once
         assert direct.post("/v1/models", json=body).json()["coefficients"] == \
             stored["coefficients"]
 
 
-def test_cancelling_a_running_gibbs_fit_stops_it(tmp_path, body, monkeypatch):
-    with _app(tmp_path, sync_max_gibbs_work=1, job_workers=0) as c:
+def test_cancelling_a_running_gibbs_fit_stops_it(database_url, body, monkeypatch):
+    with _app(database_url, sync_max_gibbs_work=1, job_workers=0) as c:
         location = c.post("/v1/models", json=body).headers["location"]
 
         def cancel_once(reports: int) -> None:
@@ -216,9 +217,9 @@ def test_observations_rerun_the_chains_in_a_job(client, demo):
                                grown.coefficients()["mean"].to_numpy(), rtol=1e-12)
 
 
-def test_an_update_queued_against_an_old_version_fails_with_409(tmp_path, demo, monkeypatch):
+def test_an_update_queued_against_an_old_version_fails_with_409(database_url, demo, monkeypatch):
     part = demo[["tyres", "chains"]]
-    with _app(tmp_path, job_workers=0) as c:
+    with _app(database_url, job_workers=0) as c:
         model_url = c.post("/v1/models", json={**_series(part.iloc[:100]), **GIBBS,
                                                 "seed": 3}).headers["location"]
         first = c.post(f"{model_url}/observations", json=_series(part.iloc[100:110]))
@@ -238,9 +239,9 @@ def test_an_update_queued_against_an_old_version_fails_with_409(tmp_path, demo, 
     ({"max_gibbs_work": 1e4}, {"burn": 5000}, "burn", "lower keep, thin, burn or chains"),
     ({"max_stored_draws": 1000}, {}, "keep", "lower keep or chains"),
 ])
-def test_gibbs_limits_are_422_problems_naming_the_field(tmp_path, body, limits, changes,
+def test_gibbs_limits_are_422_problems_naming_the_field(database_url, body, limits, changes,
                                                         field, advice):
-    with _app(tmp_path, **limits) as c:
+    with _app(database_url, **limits) as c:
         r = c.post("/v1/models", json={**body, **changes})
         assert r.status_code == 422 and r.json()["title"] == "Limit exceeded"
         assert r.json()["errors"][0]["field"] == field and advice in r.json()["detail"]
@@ -268,9 +269,9 @@ def test_gibbs_settings_are_validated(client, body):
     assert r.status_code == 422 and r.json()["errors"][0]["field"] in ("origins", "keep")
 
 
-def test_one_shot_forecasts_with_the_independent_prior(tmp_path, body):
+def test_one_shot_forecasts_with_the_independent_prior(database_url, body):
     ask = {**body, "horizon": 3, "draws": 200}
-    with _app(tmp_path) as c:
+    with _app(database_url) as c:
         r = c.post("/v1/forecasts", json={**ask, "seed": None})
         assert r.status_code == 200, r.text
         seed = r.json()["seed"]  # reported, and reproduces the chains and the paths
@@ -285,25 +286,24 @@ def test_one_shot_forecasts_with_the_independent_prior(tmp_path, body):
                    "&chains=2&burn=20&keep=50&cross=0.5", content=csv,
                    headers={"Content-Type": "text/csv"})
         assert r.status_code == 200, r.text
-    with _app(tmp_path, sync_max_gibbs_work=1) as c:
+    with _app(database_url, sync_max_gibbs_work=1) as c:
         r = c.post("/v1/forecasts", json=ask)
         assert r.status_code == 422 and r.json()["errors"][0]["field"] == "keep"
         assert "POST /v1/models" in r.json()["detail"]
 
 
-def test_the_schema_gains_revision_0005_and_loses_it_again(tmp_path, body):
+def test_the_schema_gains_revision_0005_and_loses_it_again(database_url, body):
     from alembic import command
 
     from service.db import make_engine, make_session_factory
     from service.migrate import _config, upgrade
     from service.store import get_model, load_fitted
 
-    url = f"sqlite:///{tmp_path / 'g.db'}"
-    with _app(tmp_path) as c:
+    with _app(database_url) as c:
         gibbs = c.post("/v1/models", json=body).json()["id"]
         exact = c.post("/v1/models", json={**body, "prior": "minnesota",
                                             "cross": 1.0}).json()["id"]
-    engine = make_engine(url)
+    engine = make_engine(database_url)
     cfg = _config()
     with engine.begin() as conn:
         cfg.attributes["connection"] = conn
@@ -357,7 +357,7 @@ def test_answers_from_unconverged_chains_carry_the_diagnostics_and_a_warning(cli
     assert exact["convergence"] is None and exact["warnings"] == []
 
 
-def test_stochastic_volatility_on_its_defaults_runs_as_a_job(tmp_path, demo):
+def test_stochastic_volatility_on_its_defaults_runs_as_a_job(database_url, demo):
     """The CLI fits it in seconds; the server refused it (422, work over the limit) because
     its cost model counted every sweep as a QR at 20 k rows of the largest lag order."""
     from fastapi.testclient import TestClient
@@ -365,7 +365,7 @@ def test_stochastic_volatility_on_its_defaults_runs_as_a_job(tmp_path, demo):
     from service.app import create_app
     from service.config import Settings
 
-    settings = Settings(database_url=f"sqlite:///{tmp_path / 'sv.db'}", job_workers=0)
+    settings = Settings(database_url=database_url, job_workers=0)
     body = {"series": {c: demo[c].astype(float).tolist() for c in demo},
             "start": "2016-01-01", "frequency": "MS", "volatility": "common"}
     with TestClient(create_app(settings)) as client:

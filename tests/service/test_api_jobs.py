@@ -16,6 +16,7 @@ from service.orm import Job
 from .helpers import wait_for_job
 
 ASYNC = {"Prefer": "respond-async"}
+pytestmark = pytest.mark.both_databases
 
 
 @pytest.fixture
@@ -44,8 +45,8 @@ def test_a_failing_fit_ends_failed_with_a_problem(client, model_body):
     assert job["problem"]["status"] == 422 and "no variation" in job["problem"]["detail"]
 
 
-def test_cancel_a_queued_job(tmp_path, model_body):
-    settings = Settings(database_url=f"sqlite:///{tmp_path / 'j.db'}", job_workers=0)
+def test_cancel_a_queued_job(database_url, model_body):
+    settings = Settings(database_url=database_url, job_workers=0)
     with TestClient(create_app(settings)) as c:
         location = c.post("/v1/models", json=model_body, headers=ASYNC).headers["location"]
         assert c.get(location).json()["status"] == "queued"
@@ -55,8 +56,8 @@ def test_cancel_a_queued_job(tmp_path, model_body):
         assert c.get("/v1/jobs/00000000-0000-4000-8000-000000000000").status_code == 404
 
 
-def test_jobs_left_running_by_a_crash_are_requeued_then_failed(tmp_path, model_body):
-    settings = Settings(database_url=f"sqlite:///{tmp_path / 'j.db'}", job_workers=0,
+def test_jobs_left_running_by_a_crash_are_requeued_then_failed(database_url, model_body):
+    settings = Settings(database_url=database_url, job_workers=0,
                         job_max_attempts=2)
     app = create_app(settings)
     with TestClient(app) as c:
@@ -76,9 +77,8 @@ def test_jobs_left_running_by_a_crash_are_requeued_then_failed(tmp_path, model_b
         assert "stopped 2 time(s)" in job["problem"]["detail"]
 
 
-def test_a_restart_finishes_what_a_crashed_server_left(tmp_path, model_body):
-    url = f"sqlite:///{tmp_path / 'j.db'}"
-    first = create_app(Settings(database_url=url, job_workers=0))
+def test_a_restart_finishes_what_a_crashed_server_left(database_url, model_body):
+    first = create_app(Settings(database_url=database_url, job_workers=0))
     with TestClient(first) as c:
         location = c.post("/v1/models", json=model_body, headers=ASYNC).headers["location"]
         job_id, _ = first.state.jobs._claim()  # running when the "crash" happens
@@ -86,14 +86,14 @@ def test_a_restart_finishes_what_a_crashed_server_left(tmp_path, model_body):
             s.execute(update(Job).where(Job.id == job_id).values(
                 lease_until=dt.datetime.now(dt.UTC) - dt.timedelta(seconds=1)))
             s.commit()
-    with TestClient(create_app(Settings(database_url=url, job_workers=1))) as c:
+    with TestClient(create_app(Settings(database_url=database_url, job_workers=1))) as c:
         job = wait_for_job(c, location)
         assert job["status"] == "succeeded" and job["attempts"] == 2
         assert c.get(job["result"]).status_code == 200
 
 
-def test_a_superseded_worker_cannot_overwrite_the_job(tmp_path, model_body):
-    settings = Settings(database_url=f"sqlite:///{tmp_path / 'j.db'}", job_workers=0)
+def test_a_superseded_worker_cannot_overwrite_the_job(database_url, model_body):
+    settings = Settings(database_url=database_url, job_workers=0)
     app = create_app(settings)
     with TestClient(app) as c:
         location = c.post("/v1/models", json=model_body, headers=ASYNC).headers["location"]
@@ -113,7 +113,7 @@ def test_a_superseded_worker_cannot_overwrite_the_job(tmp_path, model_body):
         assert len(c.get("/v1/models").json()["data"]) == 1
 
 
-def test_heartbeat_keeps_a_long_fit_leased(tmp_path, model_body, monkeypatch):
+def test_heartbeat_keeps_a_long_fit_leased(database_url, model_body, monkeypatch):
     import service.jobs as jobs
 
     real = jobs.fit_model
@@ -123,7 +123,7 @@ def test_heartbeat_keeps_a_long_fit_leased(tmp_path, model_body, monkeypatch):
         return real(*args, **kwargs)
 
     monkeypatch.setattr(jobs, "fit_model", slow_fit)
-    settings = Settings(database_url=f"sqlite:///{tmp_path / 'j.db'}", job_workers=1,
+    settings = Settings(database_url=database_url, job_workers=1,
                         job_lease_s=1.0, job_recovery_interval_s=0.1)
     # a lease of 1 s renewed every third of it: wide enough margins for a loaded machine
     # (at 0.3 s a busy CI run once missed a beat)
@@ -133,11 +133,11 @@ def test_heartbeat_keeps_a_long_fit_leased(tmp_path, model_body, monkeypatch):
     assert job["status"] == "succeeded" and job["attempts"] == 1  # never taken away
 
 
-def test_fit_past_its_time_limit_loses_the_lease(tmp_path, model_body, monkeypatch):
+def test_fit_past_its_time_limit_loses_the_lease(database_url, model_body, monkeypatch):
     import service.jobs as jobs
 
     monkeypatch.setattr(jobs, "fit_model", lambda *a, **k: time.sleep(1.5))
-    settings = Settings(database_url=f"sqlite:///{tmp_path / 'j.db'}", job_workers=1,
+    settings = Settings(database_url=database_url, job_workers=1,
                         job_lease_s=0.2, job_recovery_interval_s=0.1, fit_timeout_s=0.3,
                         job_max_attempts=1)
     with TestClient(create_app(settings)) as c:
@@ -146,10 +146,10 @@ def test_fit_past_its_time_limit_loses_the_lease(tmp_path, model_body, monkeypat
     assert job["status"] == "failed" and "stopped 1 time(s)" in job["problem"]["detail"]
 
 
-def test_a_fit_past_its_time_limit_stops_itself(tmp_path, model_body):
+def test_a_fit_past_its_time_limit_stops_itself(database_url, model_body):
     """The engine checks the job's time limit between Gibbs sweeps (priors.cancellation):
     the job fails with a clear problem soon after the limit instead of running on."""
-    settings = Settings(database_url=f"sqlite:///{tmp_path / 'j.db'}", job_workers=1,
+    settings = Settings(database_url=database_url, job_workers=1,
                         fit_timeout_s=0.5, job_max_attempts=1)
     long_fit = {**model_body, "prior": "independent", "chains": 1, "burn": 20_000,
                 "keep": 10, "seed": 3}  # about 15 s if it ran to the end
@@ -164,8 +164,8 @@ def test_a_fit_past_its_time_limit_stops_itself(tmp_path, model_body):
     assert "0.5 s" in job["problem"]["detail"]
 
 
-def test_running_jobs_are_capped_per_tenant(tmp_path, model_body):
-    settings = Settings(database_url=f"sqlite:///{tmp_path / 'j.db'}", job_workers=0,
+def test_running_jobs_are_capped_per_tenant(database_url, model_body):
+    settings = Settings(database_url=database_url, job_workers=0,
                         max_running_jobs_per_tenant=2)
     app = create_app(settings)
     with TestClient(app) as c:

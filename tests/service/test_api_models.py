@@ -5,11 +5,14 @@ from __future__ import annotations
 import numpy as np
 import pytest
 from fastapi.testclient import TestClient
+from sqlalchemy import event
 
 from priors import FanfoldVAR
 from service.app import create_app
 from service.config import Settings
 from service.serialization import CorruptBlobError, posterior_from_blob, posterior_to_blob
+
+pytestmark = pytest.mark.both_databases
 
 
 @pytest.fixture
@@ -51,8 +54,8 @@ def test_stored_posterior_round_trips_exactly_and_is_checked(demo):
         posterior_from_blob(blob, {**meta, "sha256": "0" * 64})
 
 
-def test_models_survive_a_restart_on_the_same_database(tmp_path, model_body):
-    settings = Settings(database_url=f"sqlite:///{tmp_path / 'models.db'}")
+def test_models_survive_a_restart_on_the_same_database(database_url, model_body):
+    settings = Settings(database_url=database_url)
     with TestClient(create_app(settings)) as c:
         model_id = _create(c, model_body).json()["id"]
         before = c.post(f"/v1/models/{model_id}/forecasts", json={"horizon": 3, "seed": 4})
@@ -97,6 +100,23 @@ def test_fan_chart_bands_nested_and_etag_gives_304(client, model_body):
     again = client.get(url, params={"horizon": 6, "bands": "50,80,95", "draws": 500},
                        headers={"If-None-Match": etag})
     assert again.status_code == 304 and again.headers["etag"] == etag and not again.content
+    # a poll reads the model's version only, not its data, posterior and draws
+    statements: list[str] = []
+
+    def record(conn, cursor, sql, *rest) -> None:
+        statements.append(sql)
+
+    engine = client.app.state.engine
+    event.listen(engine, "before_cursor_execute", record)
+    try:
+        polled = client.get(url, params={"horizon": 6, "bands": "50,80,95", "draws": 500},
+                            headers={"If-None-Match": etag})
+    finally:
+        event.remove(engine, "before_cursor_execute", record)
+    assert polled.status_code == 304 and polled.headers["etag"] == etag
+    selects = [sql for sql in statements if sql.lstrip().upper().startswith("SELECT")
+               and "select 1" not in sql.lower()]
+    assert len(selects) == 1 and "posterior" not in selects[0] and "version" in selects[0]
     other = client.get(url, params={"horizon": 7, "bands": "50,80,95", "draws": 500},
                        headers={"If-None-Match": etag})
     assert other.status_code == 200 and other.headers["etag"] != etag
@@ -118,6 +138,15 @@ def test_bad_model_input_is_a_422_problem(client, model_body):
     r = client.post("/v1/models", json=body)
     assert r.status_code == 422 and "no variation" in r.json()["detail"]
     assert client.post("/v1/models", json={**model_body, "horizon": 3}).status_code == 422
+    # PostgreSQL text cannot store U+0000: refused alike on both databases, not a 500
+    for headers in ({}, {"Prefer": "respond-async"}):
+        r = client.post("/v1/models", json={**model_body, "name": "tyres\u0000"},
+                        headers=headers)
+        assert r.status_code == 422 and r.json()["errors"][0]["field"] == "name"
+    long_name = "\N{BICYCLE}" * 200  # 200 characters (800 bytes) fit VARCHAR(200)
+    r = client.post("/v1/models", json={**model_body, "name": long_name})
+    assert r.status_code == 201 and client.get(r.headers["location"]).json()["name"] == long_name
+    assert client.delete(r.headers["location"]).status_code == 204
     assert client.get("/v1/models").json()["data"] == []  # nothing stored
 
 
@@ -206,7 +235,7 @@ def test_a_model_without_dates_takes_new_periods_without_dates(client, demo):
     assert r.status_code == 422 and "no dates" in r.json()["detail"]
 
 
-def test_concurrent_updates_cannot_both_win(tmp_path, demo):
+def test_concurrent_updates_cannot_both_win(database_url, demo):
     # optimistic concurrency on the model row: a writer holding an old version loses
     from sqlalchemy.orm.exc import StaleDataError
 
@@ -214,7 +243,7 @@ def test_concurrent_updates_cannot_both_win(tmp_path, demo):
     from service.migrate import upgrade
     from service.store import get_model, replace_fitted, save_model
 
-    engine = make_engine(f"sqlite:///{tmp_path / 'race.db'}")
+    engine = make_engine(database_url)
     upgrade(engine)
     sessions = make_session_factory(engine)
     part = demo[["tyres", "chains"]]
@@ -231,6 +260,7 @@ def test_concurrent_updates_cannot_both_win(tmp_path, demo):
             replace_fitted(session=b, row=row_b, frame=part, model=grown)
     with sessions() as s:
         assert get_model(session=s, tenant="t", model_id=model_id).version == 2
+    engine.dispose()
 
 
 def test_idempotency_key_replays_the_original_answer(client, model_body):

@@ -178,3 +178,46 @@ def test_the_rate_limiter_takes_several_tokens_at_once():
     assert limiter.acquire("a", now=2.0, tokens=5) == 0.0  # refilled, nothing was taken
     assert limiter.acquire("a", now=2.0, tokens=50) == pytest.approx(10.0)  # capped at burst
     assert limiter.acquire("b", now=0.0, tokens=10) == 0.0  # tenants apart
+
+
+def test_requests_past_the_in_flight_limit_are_shed_with_retry_after(tmp_path, monkeypatch,
+                                                                     demo_body):
+    """Load shedding: with two requests being answered, a third is a 503 problem with
+    Retry-After at once (it queued without bound before); the probes still answer, and
+    once the two are done requests are served again."""
+    import threading
+
+    import service.api.routes.models as routes
+
+    release, entered = threading.Event(), threading.Semaphore(0)
+    real = routes.fan_chart
+
+    def held(*args, **kwargs):
+        entered.release()
+        assert release.wait(30)
+        return real(*args, **kwargs)
+
+    monkeypatch.setattr(routes, "fan_chart", held)
+    settings = Settings(database_url=f"sqlite:///{tmp_path / 's.db'}", max_in_flight=2,
+                        rate_limit_per_minute=0)
+    body = {k: v for k, v in demo_body.items() if k in ("series", "start", "frequency")}
+    with TestClient(create_app(settings)) as c:
+        chart = f"{c.post('/v1/models', json={**body, 'lags': 1}).headers['location']}" \
+                "/fan-chart"
+        answers: list = []
+        held_requests = [threading.Thread(target=lambda: answers.append(c.get(chart)))
+                         for _ in range(2)]
+        for t in held_requests:
+            t.start()
+        for _ in held_requests:  # both are inside the route, holding their slots
+            assert entered.acquire(timeout=30)
+        shed = c.get(chart)
+        assert shed.status_code == 503 and shed.headers["retry-after"] == "1"
+        assert shed.headers["content-type"] == "application/problem+json"
+        assert "limit" in shed.json()["detail"] and shed.json()["request_id"]
+        assert c.get("/readyz").status_code == 200  # probes are never shed
+        release.set()
+        for t in held_requests:
+            t.join(30)
+        assert [a.status_code for a in answers] == [200, 200]
+        assert c.get(chart).status_code == 200

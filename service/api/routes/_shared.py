@@ -5,7 +5,7 @@ from __future__ import annotations
 import asyncio
 import hashlib
 import uuid
-from typing import Any
+from typing import Any, Protocol
 
 from fastapi import Request, Response
 from fastapi.concurrency import run_in_threadpool
@@ -71,7 +71,14 @@ def parse_bands(text: str) -> list[float]:
     return values
 
 
-def etag_for(row: StoredModel, *parts: object) -> tuple[str, dict[str, str]]:
+class Versioned(Protocol):
+    """A model row, or just its id and version."""
+
+    id: str
+    version: int
+
+
+def etag_for(row: Versioned, *parts: object) -> tuple[str, dict[str, str]]:
     """A weak ETag of the model's version and the query, with its caching headers. The
     answers behind it are deterministic (fixed seed), so equal tags mean equal bodies."""
     key = "|".join([row.id, str(row.version), *map(str, parts)])

@@ -5,7 +5,7 @@ from __future__ import annotations
 import hashlib
 import time
 import uuid
-from typing import Annotated, Any
+from typing import Annotated, Any, NamedTuple
 
 from fastapi import APIRouter, Header, Query, Request, Response
 from sqlalchemy.exc import IntegrityError
@@ -43,6 +43,7 @@ from ...store import (
     find_idempotent,
     list_models,
     load_fitted,
+    model_version,
     remember_idempotent,
     replace_fitted,
     save_model,
@@ -62,6 +63,13 @@ from ._shared import (
 from .jobs import job_public
 
 router = APIRouter(prefix="/v1/models", tags=["models"], route_class=JSONBodyRoute)
+
+
+class _Stamp(NamedTuple):
+    """What an ETag is made of (:func:`etag_for` reads ``id`` and ``version``)."""
+
+    id: str
+    version: int
 
 
 def _public(row: StoredModel, model: FanfoldVAR | None = None) -> dict[str, Any]:
@@ -227,9 +235,16 @@ async def fan_chart_data(
     seed: Annotated[int, Query(ge=0, lt=2**63)] = 0,
     history: Annotated[int, Query(ge=0, le=10_000, description="past periods")] = 24,
 ) -> Response:
-    row = row_or_404(session, tenant, model_id)
     levels = parse_bands(bands)
-    etag, headers = etag_for(row, horizon, levels, draws, seed, history)
+    key = (horizon, levels, draws, seed, history)
+    if request.headers.get("if-none-match"):  # a poll: the version decides, no row read
+        version = model_version(session=session, tenant=tenant, model_id=str(model_id))
+        if version is not None:
+            etag, headers = etag_for(_Stamp(str(model_id), version), *key)
+            if not_modified(request, etag):
+                return Response(status_code=304, headers=headers)
+    row = row_or_404(session, tenant, model_id)
+    etag, headers = etag_for(row, *key)  # of the row answered (it may have changed)
     if not_modified(request, etag):
         return Response(status_code=304, headers=headers)
     chart = await timed(settings, lambda: fan_chart(

@@ -32,6 +32,7 @@ __all__ = [
     "band_colours",
     "draw_fan",
     "fan_figure",
+    "figure_legend",
     "media_type",
     "figure_bytes",
     "panels_from_chart",
@@ -110,14 +111,15 @@ def draw_fan(ax: Any, panel: FanPanel) -> None:
         ax.set_xlabel("step")
 
 
-def _legend(fig: Any, axes: Sequence[Any]) -> None:
-    """One legend below the panels with every label used in any of them, once."""
+def figure_legend(fig: Any, axes: Sequence[Any], *, max_cols: int = 6) -> None:
+    """One legend below the panels with every label used in any of them, once, in rows
+    of at most ``max_cols`` entries."""
     entries: dict[str, Any] = {}
     for ax in axes:
         for handle, label in zip(*ax.get_legend_handles_labels(), strict=True):
             entries.setdefault(label, handle)
     fig.legend(list(entries.values()), list(entries), loc="outside lower center",
-               ncols=min(len(entries), 6), fontsize=8, frameon=False)
+               ncols=min(len(entries), max_cols), fontsize=8, frameon=False)
 
 
 def fan_figure(panels: Sequence[FanPanel], *, title: str, cols: int = 2,
@@ -136,7 +138,7 @@ def fan_figure(panels: Sequence[FanPanel], *, title: str, cols: int = 2,
     for ax, panel in zip(axes, panels, strict=True):
         draw_fan(ax, panel)
         ax.set_title(panel.name)
-    _legend(fig, axes)
+    figure_legend(fig, axes)
     fig.suptitle(title)
     return fig
 

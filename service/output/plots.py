@@ -31,6 +31,7 @@ from .charts import (
     band_colours,
     draw_fan,
     fan_figure,
+    figure_legend,
 )
 
 if TYPE_CHECKING:
@@ -67,16 +68,6 @@ def _grid(plt: Any, panels: int, *, cols: int, width: float, height: float
     for ax in flat[panels:]:
         ax.remove()
     return fig, flat[:panels]
-
-
-def _legend(fig: Any, axes: Sequence[Any]) -> None:
-    """One legend below the panels with every label used in any of them, once."""
-    entries: dict[str, Any] = {}
-    for ax in axes:
-        for handle, label in zip(*ax.get_legend_handles_labels(), strict=True):
-            entries.setdefault(label, handle)
-    fig.legend(list(entries.values()), list(entries), loc="outside lower center",
-               ncols=min(len(entries), 4), fontsize=8, frameon=False)
 
 
 def _save(fig: Any, plt: Any, path: str | BinaryIO) -> Any:
@@ -167,7 +158,7 @@ def scenario_png(path: str, history: pd.DataFrame | None, scenario: Scenario, *,
             _range(ax, x[int(r.step) - 1], lower, upper)
         ax.set_title(f"{name} (conditioned)" if len(rows) else name,
                      fontweight="bold" if len(rows) else "normal")
-    _legend(fig, axes)
+    figure_legend(fig, max_cols=4, axes=axes)
     fig.suptitle("Scenario: conditional forecast (bands, median) and baseline (dashed)")
     return _save(fig, plt, path)
 
@@ -216,7 +207,7 @@ def responses_png(path: str, responses: ShockResponses, *, shocks: Sequence[str]
                 ax.set_ylabel(f"{resp} ({responses.units[r]})", fontsize=8)
             if r == rows - 1:
                 ax.set_xlabel(f"{period_name} after the shock", fontsize=8)
-    _legend(fig, [axes[0, 0]])
+    figure_legend(fig, max_cols=4, axes=[axes[0, 0]])
     size = "one-s.d." if responses.shock_size == "sd" else "unit"
     total = ", summed over steps" if responses.cumulative else ""
     fig.suptitle(f"Responses to a {size} shock ({responses.identification}{total})")
@@ -306,5 +297,5 @@ def backtest_fan_png(path: str | BinaryIO, result: BacktestResult, k: int, *,
         _origin_ticks(ax, past_x, future_x, fmt)
         ax.set_title(name)
         ax.set_ylabel(f"{name} ({(units or {}).get(name, 'units')})")
-    _legend(fig, axes)
+    figure_legend(fig, max_cols=4, axes=axes)
     return _save(fig, plt, path)

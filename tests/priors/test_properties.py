@@ -70,9 +70,13 @@ def test_forecast_shape_finite_and_reproducible(y, lags, h, seed):
 def test_permuting_series_permutes_the_posterior(y, lags, data):
     n = y.shape[1]
     perm = np.array(data.draw(st.permutations(range(n))), dtype=int)
-    # a fixed tightness keeps the comparison exact (tuning stops at a tolerance)
-    base = FanfoldVAR(lags=lags, tightness=0.2).fit(y)
-    swapped = FanfoldVAR(lags=lags, tightness=0.2).fit(y[:, perm])
+    # fixed hyperparameters keep the comparison exact: tuning stops at a tolerance, and
+    # the tuned dummy weights differed by 1.5e-8 between orders on one drawn example;
+    # the dummy priors themselves are in (sum-of-coefficients and initial observation)
+    fixed = {"lags": lags, "tightness": 0.2, "sum_coef": 1.0, "initial": 1.0,
+             "transforms": "none"}
+    base = FanfoldVAR(**fixed).fit(y)
+    swapped = FanfoldVAR(**fixed).fit(y[:, perm])
     # rows of B: const, then lag blocks of n series each
     rows = np.concatenate([[0], 1 + (np.arange(lags)[:, None] * n + perm).ravel()])
     np.testing.assert_allclose(swapped.posterior_.B, base.posterior_.B[rows][:, perm],

@@ -9,6 +9,7 @@ import uuid
 from typing import Any
 
 from sqlalchemy import and_, or_, select
+from sqlalchemy.exc import IntegrityError
 from sqlalchemy.orm import Session
 
 from priors import FanfoldVAR
@@ -163,3 +164,19 @@ def remember_idempotent(*, session: Session, tenant: str, key: str, method_path:
     session.add(IdempotencyRecord(tenant_id=tenant, key=key, method_path=method_path,
                                   body_sha256=body_sha256, status_code=status_code,
                                   location=location, response=response))
+
+
+def commit_or_winner(*, session: Session, tenant: str, key: str | None
+                     ) -> IdempotencyRecord | None:
+    """Commit the transaction; None when it landed. When another request with the same
+    idempotency ``key`` committed first (a unique-key race), roll back and return the
+    winner's record, so the caller answers as the winner did."""
+    try:
+        session.commit()
+    except IntegrityError:
+        session.rollback()
+        record = find_idempotent(session=session, tenant=tenant, key=key or "")
+        if record is None:
+            raise
+        return record
+    return None

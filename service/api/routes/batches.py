@@ -9,7 +9,6 @@ from typing import Annotated, Any, Literal
 
 import pandas as pd
 from fastapi import APIRouter, Header, Request, Response
-from sqlalchemy.exc import IntegrityError
 from starlette.exceptions import HTTPException
 
 from ...batch.job import prepare
@@ -19,7 +18,7 @@ from ...errors import PROBLEM_JSON, InvalidField
 from ...jobs import get_job, submit_job
 from ...responses import JSONResponse
 from ...schemas import JobPublic
-from ...store import find_idempotent, remember_idempotent
+from ...store import commit_or_winner, find_idempotent, remember_idempotent
 from ..deps import SessionDep, SettingsDep, TenantDep
 from ..json_body import JSONBodyRoute
 from .jobs import job_public
@@ -59,14 +58,9 @@ def create_batch(body: BatchCreate, request: Request, session: SessionDep,
         remember_idempotent(session=session, tenant=tenant, key=idempotency_key,
                             method_path=_WHAT, body_sha256=digest, status_code=202,
                             location=location, response=out)
-    try:
-        session.commit()
-    except IntegrityError:  # the same key won a race: answer as the winner did
-        session.rollback()
-        record = find_idempotent(session=session, tenant=tenant, key=idempotency_key or "")
-        if record is None:
-            raise
-        return _replay(record, digest)
+    winner = commit_or_winner(session=session, tenant=tenant, key=idempotency_key)
+    if winner is not None:  # the same key won a race: answer as the winner did
+        return _replay(winner, digest)
     request.app.state.jobs.wake()
     return JSONResponse(out, status_code=202,
                         headers={"Location": location, "Retry-After": "1"})

@@ -8,7 +8,6 @@ import uuid
 from typing import Annotated, Any, NamedTuple
 
 from fastapi import APIRouter, Header, Query, Request, Response
-from sqlalchemy.exc import IntegrityError
 from starlette.exceptions import HTTPException
 
 from priors import FanfoldVAR
@@ -39,6 +38,7 @@ from ...schemas import (
 from ...serialization import convergence_warnings, data_from_dict, summary_to_dict
 from ...store import (
     BadCursor,
+    commit_or_winner,
     delete_model,
     find_idempotent,
     list_models,
@@ -152,14 +152,9 @@ async def create_model(
             remember_idempotent(session=session, tenant=tenant, key=idempotency_key,
                                 method_path=what, body_sha256=body_sha, status_code=status,
                                 location=location, response=out)
-        try:
-            session.commit()
-        except IntegrityError:  # the same key won a race: answer as the winner did
-            session.rollback()
-            record = find_idempotent(session=session, tenant=tenant, key=idempotency_key or "")
-            if record is None:
-                raise
-            return replay(record)
+        winner = commit_or_winner(session=session, tenant=tenant, key=idempotency_key)
+        if winner is not None:  # the same key won a race: answer as the winner did
+            return replay(winner)
         if status == 202:
             request.app.state.jobs.wake()
             return JSONResponse(out, status_code=202,

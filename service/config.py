@@ -7,6 +7,7 @@ first use and ``create_app(settings)`` accepts one explicitly (tests do that).
 from __future__ import annotations
 
 from functools import lru_cache
+from typing import Literal
 
 from pydantic import Field, model_validator
 from pydantic_settings import BaseSettings, SettingsConfigDict
@@ -59,6 +60,10 @@ class Settings(BaseSettings):
     fit_timeout_s: float = Field(1800.0, gt=0)  # wall-clock limit of one fit in a job
     job_lease_s: float = Field(30.0, gt=0)  # renewed by a heartbeat while the job runs
     job_recovery_interval_s: float = Field(10.0, gt=0)
+    # where fit, update and backtest jobs compute: "threads" = this process's job threads;
+    # "dask" = the Dask cluster below (the job threads then only claim, watch and store,
+    # so job_workers is how many such jobs this process has in flight)
+    job_executor: Literal["threads", "dask"] = "threads"
     sync_max_coefficients: int = Field(10_000, ge=1)
     sync_max_gibbs_work: float = Field(1e9, gt=0)  # Gibbs fits above it run as jobs
 
@@ -80,8 +85,9 @@ class Settings(BaseSettings):
     cors_origins: list[str] = []
     blas_threads: int = Field(1, ge=0)  # 0 = the libraries' default
 
-    # batch forecasts on dask.distributed (service/batch): the scheduler's address
-    # (tls://host:8786); empty = an in-process LocalCluster for each batch
+    # dask.distributed, for batches (service/batch) and, with job_executor "dask", every
+    # job: the scheduler's address (tls://host:8786); empty = a LocalCluster started in
+    # this process on first use and kept until shutdown
     dask_address: str = ""
     # mutual TLS with the scheduler: CA, client certificate and key files (all or none)
     dask_tls_ca_file: str = ""

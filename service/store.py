@@ -26,8 +26,10 @@ from .serialization import (
     posterior_to_blob,
 )
 
-__all__ = ["BadCursor", "delete_model", "find_idempotent", "get_model", "list_models",
-           "load_fitted", "model_version", "remember_idempotent", "replace_fitted",
+__all__ = ["BadCursor", "MODEL_COLUMNS", "delete_model", "find_idempotent", "fitted_from_columns",
+           "get_model", "list_models", "load_fitted", "model_columns", "model_version",
+           "remember_idempotent", "replace_columns", "replace_fitted", "row_columns",
+           "save_columns",
            "save_model"]
 
 
@@ -46,24 +48,42 @@ def _sampled(model: FanfoldVAR) -> dict[str, Any]:
             "diagnostics": None if report is None else report.summary()}
 
 
-def save_model(*, session: Session, tenant: str, name: str | None, params: dict[str, Any],
-               frame: Any, model: FanfoldVAR, commit: bool = True) -> StoredModel:
-    """Store a fitted model; visible only once committed (``commit=False`` leaves the
-    commit to the caller, to write more in the same transaction). ``params`` are the
-    stored settings (:func:`service.compute.engine.stored_settings`)."""
+#: the columns that make a stored model (what :func:`model_columns` returns)
+MODEL_COLUMNS = ("settings", "data", "lags", "hyperparameters", "log_ml", "posterior",
+                 "posterior_meta", "draws", "draws_meta", "diagnostics")
+
+
+def model_columns(model: FanfoldVAR, frame: Any, params: dict[str, Any]) -> dict[str, Any]:
+    """A fitted model as the values of its row's columns (:data:`MODEL_COLUMNS`): plain
+    data only (bytes, numbers, JSON-ready dicts), so a job can compute it on a Dask worker
+    and the service only writes it. ``params`` are the stored settings
+    (:func:`service.compute.engine.stored_settings`)."""
     blob, meta = posterior_to_blob(model.posterior_)
-    row = StoredModel(
-        id=str(uuid.uuid4()), tenant_id=tenant, name=name, status="ready",
-        settings=params, data=data_to_dict(frame), lags=int(model.lags_),
-        hyperparameters=hyper_to_dict(model.hyper_), log_ml=model.log_ml_,
-        posterior=blob, posterior_meta=meta, **_sampled(model),
-    )
+    return {"settings": params, "data": data_to_dict(frame), "lags": int(model.lags_),
+            "hyperparameters": hyper_to_dict(model.hyper_), "log_ml": model.log_ml_,
+            "posterior": blob, "posterior_meta": meta, **_sampled(model)}
+
+
+def save_columns(*, session: Session, tenant: str, name: str | None,
+                 columns: dict[str, Any], commit: bool = True) -> StoredModel:
+    """Store a model given as :func:`model_columns`; visible only once committed
+    (``commit=False`` leaves the commit to the caller, to write more in the same
+    transaction)."""
+    row = StoredModel(id=str(uuid.uuid4()), tenant_id=tenant, name=name, status="ready",
+                      **{k: columns[k] for k in MODEL_COLUMNS})
     session.add(row)
     if commit:
         session.commit()
     else:
         session.flush()
     return row
+
+
+def save_model(*, session: Session, tenant: str, name: str | None, params: dict[str, Any],
+               frame: Any, model: FanfoldVAR, commit: bool = True) -> StoredModel:
+    """Store a fitted model (:func:`save_columns` of :func:`model_columns`)."""
+    return save_columns(session=session, tenant=tenant, name=name,
+                        columns=model_columns(model, frame, params), commit=commit)
 
 
 def get_model(*, session: Session, tenant: str, model_id: str) -> StoredModel | None:
@@ -119,38 +139,54 @@ def list_models(*, session: Session, tenant: str, limit: int,
     return rows, (_encode(rows[-1]) if more and rows else None)
 
 
-def load_fitted(row: StoredModel) -> FanfoldVAR:
-    """The stored model, ready to forecast: no tuning, no refit (Gibbs draws as stored)."""
-    params = {k: v for k, v in row.settings.items() if k not in ("seed", "configuration")}
-    draws = None if row.draws is None else draws_from_blob(row.draws, row.draws_meta or {})
+def row_columns(row: StoredModel) -> dict[str, Any]:
+    """The model columns of a stored row (:data:`MODEL_COLUMNS`), as plain data."""
+    return {k: getattr(row, k) for k in MODEL_COLUMNS}
+
+
+def fitted_from_columns(columns: dict[str, Any]) -> FanfoldVAR:
+    """The model stored as ``columns``, ready to forecast: no tuning, no refit (Gibbs
+    draws as stored)."""
+    settings = columns["settings"]
+    params = {k: v for k, v in settings.items() if k not in ("seed", "configuration")}
+    draws = (None if columns["draws"] is None
+             else draws_from_blob(columns["draws"], columns["draws_meta"] or {}))
     return FanfoldVAR.restore(
-        params, data_from_dict(row.data), lags=row.lags,
-        hyper=hyper_from_dict(row.hyperparameters),
-        posterior=posterior_from_blob(row.posterior, row.posterior_meta),
-        draws=draws, configuration=row.settings.get("configuration"),
+        params, data_from_dict(columns["data"]), lags=columns["lags"],
+        hyper=hyper_from_dict(columns["hyperparameters"]),
+        posterior=posterior_from_blob(columns["posterior"], columns["posterior_meta"]),
+        draws=draws, configuration=settings.get("configuration"),
     )
 
 
-def replace_fitted(*, session: Session, row: StoredModel, frame: Any, model: FanfoldVAR,
-                   seed: int | None = None, commit: bool = True) -> StoredModel:
-    """Store an updated model in place: new data, posterior and (independent prior) draws,
-    diagnostics and the ``seed`` that produced them; the version goes up by one (checked,
-    see :class:`service.orm.StoredModel`). ``commit=False`` leaves the commit to the
-    caller."""
-    blob, meta = posterior_to_blob(model.posterior_)
-    row.data = data_to_dict(frame)
-    row.posterior, row.posterior_meta = blob, meta
-    row.log_ml = model.log_ml_
-    for column, value in _sampled(model).items():
-        setattr(row, column, value)
-    if seed is not None:
-        row.settings = {**row.settings, "seed": seed}
+def load_fitted(row: StoredModel) -> FanfoldVAR:
+    """The stored model, ready to forecast: no tuning, no refit (Gibbs draws as stored)."""
+    return fitted_from_columns(row_columns(row))
+
+
+def replace_columns(*, session: Session, row: StoredModel, columns: dict[str, Any],
+                    commit: bool = True) -> StoredModel:
+    """Store an updated model, given as :func:`model_columns`, in place; the version goes
+    up by one (checked, see :class:`service.orm.StoredModel`). ``commit=False`` leaves
+    the commit to the caller."""
+    for column in MODEL_COLUMNS:
+        setattr(row, column, columns[column])
     row.updated_at = dt.datetime.now(dt.UTC)
     if commit:
         session.commit()
     else:
         session.flush()
     return row
+
+
+def replace_fitted(*, session: Session, row: StoredModel, frame: Any, model: FanfoldVAR,
+                   seed: int | None = None, commit: bool = True) -> StoredModel:
+    """Store an updated model in place: new data, posterior and (independent prior) draws,
+    diagnostics and the ``seed`` that produced them (the other settings as stored)."""
+    settings = row.settings if seed is None else {**row.settings, "seed": seed}
+    columns = {**model_columns(model, frame, settings), "lags": row.lags,
+               "hyperparameters": row.hyperparameters}
+    return replace_columns(session=session, row=row, columns=columns, commit=commit)
 
 
 def find_idempotent(*, session: Session, tenant: str, key: str) -> IdempotencyRecord | None:

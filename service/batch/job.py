@@ -7,12 +7,14 @@
 
 from __future__ import annotations
 
+import contextlib
 import secrets
 from collections.abc import Callable
 from typing import Any
 
 import numpy as np
 import pandas as pd
+from distributed import Client
 
 from ..compute.engine import model_params
 from ..compute.limits import check_output_limits
@@ -47,19 +49,23 @@ def prepare(spec: BatchCreate, settings: Settings) -> Groups:
 
 
 def run(payload: dict[str, Any], settings: Settings,
-        progress: Callable[[int, int], None] | None = None) -> dict[str, Any]:
-    """Run the batch of a stored request; the results the job keeps."""
+        progress: Callable[[int, int], None] | None = None,
+        client: Client | None = None) -> dict[str, Any]:
+    """Run the batch of a stored request on ``client``'s cluster (None: connect as the
+    settings say, for this batch only); the results the job keeps."""
     spec = BatchCreate.model_validate(payload)
     seed = secrets.randbits(32) if spec.seed is None else spec.seed
     groups = prepare(spec, settings)
     forecast = ForecastSpec(model_params(spec), spec.horizon, spec.draws,
                             tuple(spec.quantiles), seed, settings.blas_threads)
-    security = dask_security(ca_file=settings.dask_tls_ca_file,
-                             cert_file=settings.dask_tls_cert_file,
-                             key_file=settings.dask_tls_key_file)
-    with batch_client(address=settings.dask_address, security=security,
-                      workers=settings.dask_workers,
-                      processes=settings.dask_processes) as client:
+    with contextlib.ExitStack() as stack:
+        if client is None:
+            security = dask_security(ca_file=settings.dask_tls_ca_file,
+                                     cert_file=settings.dask_tls_cert_file,
+                                     key_file=settings.dask_tls_key_file)
+            client = stack.enter_context(batch_client(
+                address=settings.dask_address, security=security,
+                workers=settings.dask_workers, processes=settings.dask_processes))
         done = run_batch(client, groups.groups, forecast, chunk_size=settings.batch_chunk_size,
                          retries=settings.batch_retries, progress=progress)
     outcomes = sorted(done + groups.rejected, key=lambda g: g.key)

@@ -29,9 +29,13 @@ from priors.cancellation import checkpoint
 
 from .worker import ForecastSpec, GroupArrays, GroupForecast, failed, forecast_chunk
 
-__all__ = ["MAX_CHUNK", "batch_client", "chunk_size_for", "dask_security", "run_batch"]
+__all__ = ["LOCAL_HTTP", "MAX_CHUNK", "batch_client", "chunk_size_for", "dask_security",
+           "run_batch"]
 
 MAX_CHUNK = 50  # groups per task at most, by default
+#: where a LocalCluster's scheduler serves HTTP (health, metrics; it always does): None
+#: would mean port 8787 on every interface, and a warning when another cluster has it
+LOCAL_HTTP = "127.0.0.1:0"
 Progress = Callable[[int, int], None]
 ChunkFunction = Callable[[Sequence[GroupArrays], ForecastSpec], list[GroupForecast]]
 
@@ -70,7 +74,8 @@ def batch_client(*, address: str = "", security: Security | None = None,
     n = workers or os.cpu_count() or 1
     # worker processes get OMP/MKL/OPENBLAS_NUM_THREADS=1 from dask's pre-spawn-environ
     with LocalCluster(n_workers=n, threads_per_worker=1, processes=processes,
-                      dashboard_address=None, security=security, scheduler_port=0) as cluster, \
+                      dashboard_address=LOCAL_HTTP, security=security,
+                      scheduler_port=0) as cluster, \
             Client(cluster, timeout=timeout_s, set_as_default=False) as client:
         yield client
 

@@ -63,7 +63,7 @@ def measure(groups, spec, workers: int) -> dict[str, float]:
     from service.batch.runner import run_batch
 
     with LocalCluster(n_workers=workers, threads_per_worker=1, processes=True,
-                      dashboard_address=None, scheduler_port=0) as cluster, \
+                      dashboard_address="127.0.0.1:0", scheduler_port=0) as cluster, \
             Client(cluster, set_as_default=False) as client:
         client.wait_for_workers(workers, timeout=120)
         run_batch(client, groups[: 2 * workers], spec, chunk_size=1, timeout_s=600)  # warm-up

@@ -128,7 +128,7 @@ def _run_job_observed(app: TestClient, location: str, monkeypatch, on_progress=N
                       ) -> list[float]:
     """Run the queued job in this thread, recording the job's progress as the API shows
     it at every progress report of the fit (written at every report here)."""
-    import service.jobs as jobs
+    import service.jobs.runner as jobs
 
     monkeypatch.setattr(jobs, "PROGRESS_INTERVAL_S", 0.0)
     runner = app.app.state.jobs

@@ -114,7 +114,7 @@ def test_a_superseded_worker_cannot_overwrite_the_job(database_url, model_body):
 
 
 def test_heartbeat_keeps_a_long_fit_leased(database_url, model_body, monkeypatch):
-    import service.jobs as jobs
+    import service.jobs.work as jobs
 
     real = jobs.fit_model
 
@@ -134,7 +134,7 @@ def test_heartbeat_keeps_a_long_fit_leased(database_url, model_body, monkeypatch
 
 
 def test_fit_past_its_time_limit_loses_the_lease(database_url, model_body, monkeypatch):
-    import service.jobs as jobs
+    import service.jobs.work as jobs
 
     monkeypatch.setattr(jobs, "fit_model", lambda *a, **k: time.sleep(1.5))
     settings = Settings(database_url=database_url, job_workers=1,

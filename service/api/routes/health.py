@@ -18,7 +18,8 @@ def livez() -> dict[str, str]:
     return {"status": "ok"}
 
 
-@router.get("/readyz", summary="Readiness: database reachable, schema current, not draining",
+@router.get("/readyz", summary="Readiness: database reachable, schema current, the Dask "
+                               "cluster reachable (if configured), not draining",
             responses={503: {"description": "not ready"}})
 def readyz(request: Request) -> Response:
     if not getattr(request.app.state, "ready", False):
@@ -33,6 +34,9 @@ def readyz(request: Request) -> Response:
     if not current:
         return problem(503, "the database schema is not at the newest revision",
                        request=request)
+    cluster = request.app.state.jobs.cluster_problem()
+    if cluster is not None:
+        return problem(503, cluster, request=request, headers={"Retry-After": "5"})
     return Response('{"status":"ready"}', media_type="application/json")
 
 

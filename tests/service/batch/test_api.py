@@ -21,7 +21,7 @@ from .data import FAST, long_table, with_bad_groups
 @pytest.fixture(scope="module")
 def scheduler():
     with LocalCluster(n_workers=1, threads_per_worker=1, processes=False,
-                      dashboard_address=None, scheduler_port=0) as cluster:
+                      dashboard_address="127.0.0.1:0", scheduler_port=0) as cluster:
         yield cluster.scheduler_address
 
 

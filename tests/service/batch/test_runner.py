@@ -10,17 +10,16 @@ from __future__ import annotations
 
 import functools
 
-import dask
 import numpy as np
 import pandas as pd
 import pytest
-from distributed import Client, LocalCluster
 
 from service.batch.runner import run_batch
 from service.batch.table import Columns, split_groups
 from service.batch.worker import forecast_chunk
 from service.cli.commands import _model_params, build_parser
 
+from ..helpers import dask_cluster
 from .data import BAD_ERRORS, SPEC, dying_chunk, long_table, raising_chunk, with_bad_groups
 
 COLUMNS = Columns(("warehouse", "family"))
@@ -31,17 +30,9 @@ LIMIT_S = 120  # no batch here may take longer
 def client():
     # worker-saturation 1.0: a worker holds only the task it runs, so a dying task takes
     # no queued innocent task down with it (those are recomputed, not blamed)
-    with dask.config.set({"distributed.scheduler.allowed-failures": 1,
-                          "distributed.scheduler.worker-saturation": 1.0}):
-        cluster = LocalCluster(n_workers=2, threads_per_worker=1, processes=True,
-                               dashboard_address=None, scheduler_port=0)
-    c = Client(cluster, timeout=60, set_as_default=False)
-    try:
-        c.wait_for_workers(2, timeout=60)
-        yield c
-    finally:
-        c.close(timeout=30)
-        cluster.close(timeout=30)
+    with dask_cluster(2, config={"distributed.scheduler.allowed-failures": 1,
+                                 "distributed.scheduler.worker-saturation": 1.0}) as client:
+        yield client
 
 
 def _alone(groups):

@@ -83,7 +83,8 @@ def test_a_batch_runs_on_a_tls_only_scheduler_and_plain_tcp_is_refused(tmp_path)
                         dask_tls_key_file=files["key"])
     groups = split_groups(long_table(3), Columns(("warehouse", "family"))).groups
     with LocalCluster(n_workers=1, threads_per_worker=1, processes=False, protocol="tls://",
-                      security=server, dashboard_address=None, scheduler_port=0) as cluster:
+                      security=server, dashboard_address="127.0.0.1:0",
+                      scheduler_port=0) as cluster:
         address = cluster.scheduler_address
         assert address.startswith("tls://")
         with batch_client(address=address, security=_security(settings)) as client:

@@ -182,6 +182,7 @@ def run_remote(client: Client, *, channel: str, kind: str, inputs: dict[str, Any
     future = client.submit(_task, channel, kind, inputs, limits, interval, key=channel,
                            pure=False)
     reported = Variable(f"{channel}-progress", client=client)
+    reported.set(None)  # reading an unset Variable logs an error on the scheduler
     stop = Event(f"{channel}-stop", client=client)
     deadline = time.monotonic() + limits.fit_timeout_s + grace_s
     seen: Any = None
@@ -197,11 +198,10 @@ def run_remote(client: Client, *, channel: str, kind: str, inputs: dict[str, Any
                                   f"away while the job ran ({type(exc).__name__})") from exc
             if client.status != "running":
                 raise ClusterLost("the connection to the Dask cluster closed")
-            with contextlib.suppress(TimeoutError):
-                now_at = reported.get(timeout=0)
-                if now_at != seen:
-                    seen = now_at
-                    progress(*now_at)
+            now_at = reported.get()
+            if now_at is not None and now_at != seen:
+                seen = now_at
+                progress(*now_at)
             if time.monotonic() > deadline:
                 raise WorkCancelled("the job's work on the cluster ran past its time limit")
     except BaseException:

@@ -69,7 +69,8 @@ def _wait(client, locations: list[str], limit_s: float = 900.0) -> None:
             time.sleep(0.02)
 
 
-def measure(settings_extra: dict, jobs: int, alone: int, folder: Path) -> dict[str, float]:
+def measure(settings_extra: dict, jobs: int, alone: int, folder: Path,
+            warm: int) -> dict[str, float]:
     from fastapi.testclient import TestClient
 
     from service.app import create_app
@@ -80,8 +81,9 @@ def measure(settings_extra: dict, jobs: int, alone: int, folder: Path) -> dict[s
                         rate_limit_per_minute=0, **settings_extra)
     headers = {"Prefer": "respond-async"}
     with TestClient(create_app(settings)) as client:
+        # warm-up of every job thread or worker: imports, kernels, connections
         _wait(client, [client.post("/v1/models", json=body, headers=headers)
-                       .headers["location"]])  # warm-up: imports, kernels, connections
+                       .headers["location"] for _ in range(warm)])
         single = []
         for _ in range(alone):
             started = time.perf_counter()
@@ -111,14 +113,14 @@ def main(argv: list[str] | None = None) -> int:
         (folder / "threads").mkdir()
         (folder / "dask").mkdir()
         threads = measure({"job_workers": args.workers}, args.jobs, args.alone,
-                          folder / "threads")
+                          folder / "threads", args.workers)
         with LocalCluster(n_workers=args.workers, threads_per_worker=1, processes=True,
                           dashboard_address="127.0.0.1:0", scheduler_port=0) as cluster, \
                 Client(cluster, set_as_default=False) as client:
             client.wait_for_workers(args.workers, timeout=120)
             remote = measure({"job_workers": args.workers, "job_executor": "dask",
                               "dask_address": cluster.scheduler_address},
-                             args.jobs, args.alone, folder / "dask")
+                             args.jobs, args.alone, folder / "dask", args.workers)
     lines = [
         "# Jobs in the server's threads or on Dask",
         "",

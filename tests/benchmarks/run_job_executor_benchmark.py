@@ -15,7 +15,9 @@ and the throughput of ``--jobs`` jobs submitted at once, side by side with their
 (dask over threads). On one machine the cluster can only add overhead (pickling the
 request and the model's columns, the scheduler's round trips, progress through a
 Variable); what it buys is that the fits leave the API's processes, for workers on
-other machines.
+other machines, and that they run in processes: the job threads of one server process
+share its interpreter lock, and the Gibbs sampler's sweeps are a Python loop, so two
+job threads finish fits at little more than the rate of one.
 
     python tests/benchmarks/run_job_executor_benchmark.py [--jobs 20] [--alone 5]
         [--workers 2] [--out tests/benchmarks/results/job_executor.md]
@@ -108,6 +110,7 @@ def main(argv: list[str] | None = None) -> int:
 
     from distributed import Client, LocalCluster
 
+    load = os.getloadavg()[0]
     with tempfile.TemporaryDirectory() as tmp:
         folder = Path(tmp)
         (folder / "threads").mkdir()
@@ -126,7 +129,7 @@ def main(argv: list[str] | None = None) -> int:
         "",
         f"commit {repo_commit('service', 'priors')}, {cpu_model()}, {os.cpu_count()} cores, "
         f"Python {platform.python_version()}; {args.workers} job threads, and "
-        f"{args.workers} Dask worker processes for `dask`",
+        f"{args.workers} Dask worker processes for `dask`; load average {load:.2f} before",
         "",
         f"Gibbs fit jobs (3 series, VAR(2), 2 chains x (500 + 1,000) sweeps) through the "
         f"API; one job alone: median of {args.alone}; throughput: {args.jobs} jobs "

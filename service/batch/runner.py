@@ -30,7 +30,7 @@ from priors.cancellation import checkpoint
 from .worker import ForecastSpec, GroupArrays, GroupForecast, failed, forecast_chunk
 
 __all__ = ["LOCAL_HTTP", "MAX_CHUNK", "batch_client", "chunk_size_for", "dask_security",
-           "run_batch"]
+           "local_cluster", "run_batch"]
 
 MAX_CHUNK = 50  # groups per task at most, by default
 #: where a LocalCluster's scheduler serves HTTP (health, metrics; it always does): None
@@ -71,13 +71,19 @@ def batch_client(*, address: str = "", security: Security | None = None,
         finally:
             client.close()
         return
-    n = workers or os.cpu_count() or 1
-    # worker processes get OMP/MKL/OPENBLAS_NUM_THREADS=1 from dask's pre-spawn-environ
-    with LocalCluster(n_workers=n, threads_per_worker=1, processes=processes,
-                      dashboard_address=LOCAL_HTTP, security=security,
-                      scheduler_port=0) as cluster, \
+    with local_cluster(workers=workers, processes=processes, security=security) as cluster, \
             Client(cluster, timeout=timeout_s, set_as_default=False) as client:
         yield client
+
+
+def local_cluster(*, workers: int = 0, processes: bool = True,
+                  security: Security | None = None) -> LocalCluster:
+    """A LocalCluster of ``workers`` (0 = one per core), one thread each, its scheduler's
+    HTTP on a free loopback port (:data:`LOCAL_HTTP`)."""
+    # worker processes get OMP/MKL/OPENBLAS_NUM_THREADS=1 from dask's pre-spawn-environ
+    return LocalCluster(n_workers=workers or os.cpu_count() or 1, threads_per_worker=1,
+                        processes=processes, dashboard_address=LOCAL_HTTP,
+                        security=security, scheduler_port=0)
 
 
 def chunk_size_for(groups: int, workers: int) -> int:

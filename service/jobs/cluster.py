@@ -30,7 +30,6 @@ from __future__ import annotations
 import contextlib
 import logging
 import math
-import os
 import threading
 import time
 from concurrent.futures import CancelledError
@@ -41,7 +40,7 @@ from distributed import Client, Event, LocalCluster, Variable
 from priors import CancelToken, cancel_scope
 from priors.errors import WorkCancelled
 
-from ..batch.runner import LOCAL_HTTP, dask_security
+from ..batch.runner import dask_security, local_cluster
 from ..compute.engine import blas_threads
 from ..config import Settings
 from .problems import ClusterLost, JobProblem, problem_of
@@ -102,11 +101,8 @@ class Cluster:
         if s.dask_address:
             return Client(s.dask_address, security=security, timeout=self.connect_timeout_s,
                           set_as_default=False)
-        # worker processes get OMP/MKL/OPENBLAS_NUM_THREADS=1 from dask's pre-spawn-environ
-        self._local = LocalCluster(n_workers=s.dask_workers or os.cpu_count() or 1,
-                                   threads_per_worker=1, processes=s.dask_processes,
-                                   dashboard_address=LOCAL_HTTP, security=security,
-                                   scheduler_port=0)
+        self._local = local_cluster(workers=s.dask_workers, processes=s.dask_processes,
+                                    security=security)
         return Client(self._local, timeout=max(self.connect_timeout_s, 30.0),
                       set_as_default=False)
 

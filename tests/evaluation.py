@@ -141,7 +141,9 @@ def _origin(cs: CorpusSet, params: dict[str, object] | None, models: list[str], 
         warnings.simplefilter("ignore")
         for name in models:
             if name == "model":
-                model = FanfoldVAR(**params).fit(train)  # type: ignore[arg-type]
+                model = FanfoldVAR(**params)  # type: ignore[arg-type]
+                model = (model.fit(train, rng=rng) if model.uses_gibbs
+                         else model.fit(train))
                 parts = _from_paths(model.forecast(h, rng=rng, draws=draws).paths, actual)
             elif name == "ols_var":
                 fc = ols_var(train, cs.period).forecast(h, rng=rng, draws=draws)

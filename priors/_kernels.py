@@ -22,8 +22,8 @@ from typing import Any
 import numpy as np
 from numba import njit
 
-__all__ = ["bartlett_roots", "gram_shock_step", "select_quantiles", "tightness_profile",
-           "warm_up"]
+__all__ = ["bartlett_roots", "damped_trend_errors", "gram_shock_step", "select_quantiles",
+           "tightness_profile", "warm_up"]
 
 #: fastmath without "nnan"/"ninf": sums may be reordered, NaN and inf keep their meaning
 _FAST = {"nsz", "arcp", "contract", "afn", "reassoc"}
@@ -342,6 +342,29 @@ def tightness_profile(lam, e, G1, G2, base, B0WB0, const, df):  # pragma: no cov
     return out
 
 
+@_compiled(fastmath=False)
+def damped_trend_errors(y, period, alpha, beta, gamma, phi, state, season, err):
+    # pragma: no cover - compiled
+    """One-step errors of the damped-trend recursions (:mod:`priors.localtrend`) for y
+    (T,) into err (T,); state (2,) level and trend, season (max(m, 1),) with season[i]
+    for row i mod m, both updated in place to the states after the last row. Returns the
+    sum of squared errors from row ``2 m`` (row 2 without a season) on."""
+    level, trend = state[0], state[1]
+    burn = 2 * period if period > 0 else 2
+    total = 0.0
+    for t in range(y.shape[0]):
+        seas = season[t % period] if period > 0 else 0.0
+        e = y[t] - (level + phi * trend + seas)
+        err[t] = e
+        if t >= burn:
+            total += e * e
+        level, trend = level + phi * trend + alpha * e, phi * trend + beta * e
+        if period > 0:
+            season[t % period] = seas + gamma * e
+    state[0], state[1] = level, trend
+    return total
+
+
 def warm_up() -> None:
     """Compile (or load from the disk cache) every kernel for the argument types the
     samplers use, on tiny inputs: a server calls this before it reports ready, so its
@@ -352,5 +375,9 @@ def warm_up() -> None:
                     np.zeros(n), np.zeros((h, n, s)), 1, 1, np.zeros((h + n + 2, s)))
     bartlett_roots(np.eye(n), np.ones((s, n)), np.zeros((s, n * (n - 1) // 2)))
     select_quantiles(np.zeros((n, s)), np.array([0.5]))
+    damped_trend_errors(np.zeros(s), 2, 0.5, 0.1, 0.1, 0.9, np.zeros(2), np.zeros(2),
+                        np.zeros(s))
+    damped_trend_errors(np.zeros(s), 0, 0.5, 0.1, 0.0, 0.9, np.zeros(2), np.zeros(1),
+                        np.zeros(s))
     tightness_profile(np.ones(1), np.ones(k), np.zeros((k, n)), np.zeros((k, n)), np.eye(n),
                       np.eye(n), 0.0, 5.0)

@@ -36,6 +36,7 @@ from dataclasses import dataclass
 import numpy as np
 from scipy.optimize import minimize
 
+from ._kernels import damped_trend_errors
 from ._types import FloatArray
 from .errors import SpecificationError
 
@@ -104,18 +105,12 @@ def one_step_errors(y: FloatArray, period: int, alpha: float, beta: float, gamma
     ``season[i]`` for period T + 1 + i), from ``start`` (default :func:`initial_states`)."""
     y = np.asarray(y, dtype=np.float64)
     level, trend, season = start if start is not None else initial_states(y, period)
-    s = np.array(season, dtype=np.float64)
+    state = np.array([level, trend], dtype=np.float64)
+    s = np.array(season, dtype=np.float64) if period else np.zeros(1)
     err = np.empty(y.size)
-    for t in range(y.size):
-        seas = s[t % period] if period else 0.0
-        e = y[t] - (level + phi * trend + seas)
-        err[t] = e
-        level, trend = level + phi * trend + alpha * e, phi * trend + beta * e
-        if period:
-            s[t % period] = seas + gamma * e
-    if period:  # rotate so that index 0 is the season of row T (the next period)
-        s = np.roll(s, -(y.size % period))
-    return err, (float(level), float(trend), s)
+    damped_trend_errors(y, period, alpha, beta, gamma, phi, state, s, err)
+    s = np.roll(s, -(y.size % period)) if period else np.zeros(0)  # index 0: row T's season
+    return err, (float(state[0]), float(state[1]), s)
 
 
 def _unpack(z: FloatArray, period: int) -> tuple[float, float, float, float]:
@@ -136,12 +131,15 @@ def fit_local_trend(y: FloatArray, period: int = 0) -> LocalTrendFit:
     period, not 1-D or not finite.
     """
     y = _check(y, period)
-    burn = _burn(period)
     start = initial_states(y, period)
 
-    def sse(z: FloatArray) -> float:
-        e = one_step_errors(y, period, *_unpack(z, period), start=start)[0][burn:]
-        return float(e @ e)
+    state0 = np.array(start[:2], dtype=np.float64)
+    season0 = np.array(start[2], dtype=np.float64) if period else np.zeros(1)
+    state, season, err = np.empty(2), np.empty(season0.size), np.empty(y.size)
+
+    def sse(z: FloatArray) -> float:  # the kernel sums the squares after the start-up rows
+        state[:], season[:] = state0, season0
+        return float(damped_trend_errors(y, period, *_unpack(z, period), state, season, err))
 
     best = None
     for z0 in ((0.0, -2.0, -2.0, 0.0), (-1.5, -2.0, -1.0, 1.0)):
@@ -153,7 +151,7 @@ def fit_local_trend(y: FloatArray, period: int = 0) -> LocalTrendFit:
     alpha, beta, gamma, phi = _unpack(best.x, period)
     err, (level, trend, season) = one_step_errors(y, period, alpha, beta, gamma, phi,
                                                   start=start)
-    sigma = float(np.sqrt(np.mean(err[burn:] ** 2)))
+    sigma = float(np.sqrt(np.mean(err[_burn(period):] ** 2)))
     return LocalTrendFit(alpha, beta, gamma, phi, period, level, trend, season, sigma,
                          int(y.size))
 

@@ -248,7 +248,7 @@ def _one_origin(
     if "ols_var" in benchmarks:
         flat = {**params, "prior": "flat", "lags": model.lags_}
         for key in ("tightness", "sum_coef", "initial", "hyperprior", "cross", "outliers",
-                    "sample_hyper", "volatility"):
+                    "sample_hyper", "volatility", "local_trend"):
             flat.pop(key, None)
         fitted["ols_var"] = FanfoldVAR(**flat).fit(train)  # type: ignore[arg-type]
     rows: dict[str, tuple[FloatArray, ...]] = {}
@@ -269,7 +269,8 @@ def _one_origin(
                       crps_ensemble(paths, filled), qs[0], qs[1], pinball)
         pits[name] = pit_values(rng, paths, filled)
         energies[name] = _energy(rng, paths, actual, scale)
-        if not model.series_.exog_names and not m.time_varying_shocks() and m.ragged_ is None:
+        if (not model.series_.exog_names and not m.time_varying_shocks() and m.ragged_ is None
+                and not m.pools_local_trend()):  # the log density is the VAR's alone
             logs[name] = m.log_predictive_density(actual, rng=rng, draws=min(draws, 500))
 
     def gaussian(name: str, center: FloatArray, sd: FloatArray) -> None:

@@ -35,6 +35,7 @@ from dataclasses import dataclass
 
 import numpy as np
 from scipy.optimize import minimize
+from scipy.special import expit, logit
 
 from ._kernels import damped_trend_errors
 from ._types import FloatArray
@@ -115,17 +116,30 @@ def one_step_errors(y: FloatArray, period: int, alpha: float, beta: float, gamma
 
 def _unpack(z: FloatArray, period: int) -> tuple[float, float, float, float]:
     """Unconstrained z (4,) to (alpha, beta, gamma, phi) inside the bounds."""
-    alpha = 1.0 / (1.0 + np.exp(-z[0]))
-    beta = alpha / (1.0 + np.exp(-z[1]))
-    gamma = (1.0 - alpha) / (1.0 + np.exp(-z[2])) if period else 0.0
+    alpha = expit(z[0])
+    beta = alpha * expit(z[1])
+    gamma = (1.0 - alpha) * expit(z[2]) if period else 0.0
     lo, hi = PHI_BOUNDS
-    phi = lo + (hi - lo) / (1.0 + np.exp(-z[3]))
+    phi = lo + (hi - lo) * expit(z[3])
     return float(alpha), float(beta), float(gamma), float(phi)
 
 
-def fit_local_trend(y: FloatArray, period: int = 0) -> LocalTrendFit:
+def _pack(fit: LocalTrendFit) -> FloatArray:
+    """The unconstrained point of a fit's weights (inverse of :func:`_unpack`)."""
+    lo, hi = PHI_BOUNDS
+    alpha = min(max(fit.alpha, 1e-12), 1 - 1e-12)  # expit may round to 0 or 1
+    share = np.array([alpha, fit.beta / alpha,
+                      fit.gamma / (1 - alpha) if fit.period else expit(-2.0),
+                      (fit.phi - lo) / (hi - lo)])
+    return logit(np.clip(share, 1e-9, 1 - 1e-9))
+
+
+def fit_local_trend(y: FloatArray, period: int = 0, *,
+                    warm: LocalTrendFit | None = None) -> LocalTrendFit:
     """Fit one series (see the module notes): least squares of the one-step errors after
-    the start-up rows, two Nelder-Mead starts, sigma the root mean squared error.
+    the start-up rows, two Nelder-Mead starts, sigma the root mean squared error. With
+    ``warm`` (a fit to nearly the same rows), one start at its weights instead: a
+    rolling-origin check refits many overlapping samples this way.
 
     Raises :class:`~priors.errors.SpecificationError` for a series too short for its
     period, not 1-D or not finite.
@@ -142,7 +156,8 @@ def fit_local_trend(y: FloatArray, period: int = 0) -> LocalTrendFit:
         return float(damped_trend_errors(y, period, *_unpack(z, period), state, season, err))
 
     best = None
-    for z0 in ((0.0, -2.0, -2.0, 0.0), (-1.5, -2.0, -1.0, 1.0)):
+    starts = ((0.0, -2.0, -2.0, 0.0), (-1.5, -2.0, -1.0, 1.0)) if warm is None else (_pack(warm),)
+    for z0 in starts:
         res = minimize(sse, np.array(z0), method="Nelder-Mead",
                        options={"maxiter": 400, "xatol": 1e-4, "fatol": 1e-8})
         if best is None or res.fun < best.fun:

@@ -16,6 +16,7 @@ import numpy as np
 import pandas as pd
 
 from ._model_gibbs import GibbsParts
+from ._model_pool import LocalTrendPool
 from ._model_summaries import PosteriorSummaries
 from ._types import FloatArray
 from .autoconfig import (
@@ -108,7 +109,7 @@ def _advice(series: SeriesData, design: Design) -> list[tuple[str, type[Warning]
              (check_history(design), ShortHistoryWarning)]
     return [(message, category) for message, category in found if message]
 
-class FanfoldVAR(GibbsParts, PosteriorSummaries):
+class FanfoldVAR(GibbsParts, LocalTrendPool, PosteriorSummaries):
     """Bayesian VAR with a natural-conjugate Minnesota prior.
 
     Parameters
@@ -179,6 +180,11 @@ class FanfoldVAR(GibbsParts, PosteriorSummaries):
         "common" (prior "minnesota"): one stochastic volatility for all series, a log-AR(1)
         process (Carriero, Clark & Marcellino 2016), sampled by Gibbs; forecasts carry
         the volatility forward from its last value.
+    local_trend : None, "auto" or float
+        Pool the forecasts with a per-series local damped trend (see
+        :mod:`priors._model_pool`): None the VAR alone; a number in [0, 1] the local
+        trend's weight; "auto" a weight from a rolling-origin check over the last 16
+        periods, leaning towards the VAR. Scenarios and impulse responses stay the VAR's.
     chains, burn, keep, thin, workers : int
         "independent" only: Gibbs chains, sweeps discarded and draws kept per chain,
         sweeps per kept draw, and worker processes (see :class:`priors.gibbs.GibbsSettings`).
@@ -207,6 +213,7 @@ class FanfoldVAR(GibbsParts, PosteriorSummaries):
         sample_hyper: bool = False,
         volatility: str = "constant",
         counts: bool | str = "auto",
+        local_trend: float | str | None = None,
         chains: int = 4,
         burn: int = 500,
         keep: int = 1000,
@@ -233,6 +240,7 @@ class FanfoldVAR(GibbsParts, PosteriorSummaries):
         self.sample_hyper = sample_hyper
         self.volatility = volatility
         self.counts = counts
+        self.local_trend = local_trend
         self.chains = chains
         self.burn = burn
         self.keep = keep
@@ -276,6 +284,7 @@ class FanfoldVAR(GibbsParts, PosteriorSummaries):
                 f"cross = {self.cross!r} needs prior='independent': the conjugate Minnesota "
                 "prior shrinks own and other series' lags alike (cross = 1)")
         self._gibbs_settings()  # validates chains, burn, keep, thin, workers
+        self._check_local_trend()
 
     @property
     def uses_gibbs(self) -> bool:
@@ -414,6 +423,7 @@ class FanfoldVAR(GibbsParts, PosteriorSummaries):
             self._run_gibbs(rng, progress)
         elif self.volatility == "common":
             self._run_sv(rng, progress)
+        self._fit_local_trend(None, rng)
         return self
 
     def get_params(self) -> dict[str, object]:
@@ -437,6 +447,8 @@ class FanfoldVAR(GibbsParts, PosteriorSummaries):
                           season_scale=h.season_scale)
         else:  # flat prior: no shrinkage, no dummies
             params.update(sum_coef=None, initial=None, season_scale=None)
+        if self.local_trend is not None:
+            params["local_trend"] = self.local_trend_weight_
         return params
 
     @classmethod
@@ -469,8 +481,9 @@ class FanfoldVAR(GibbsParts, PosteriorSummaries):
         """
         model = cls(**params)  # type: ignore[arg-type]
         model._check_settings()
-        for name in ("transforms", "seasonal"):
-            if isinstance(params.get(name, "auto"), str) and params.get(name, "auto") == "auto":
+        for name in ("transforms", "seasonal", "local_trend"):
+            default = None if name == "local_trend" else "auto"  # stored before it existed
+            if isinstance(params.get(name, default), str) and params.get(name) == "auto":
                 raise SpecificationError(
                     f"restore needs the fitted model's {name}, not 'auto': pass "
                     "model.resolved_params()")
@@ -511,6 +524,7 @@ class FanfoldVAR(GibbsParts, PosteriorSummaries):
                 model.prior_ = independent_minnesota_prior(design, hyper, prior_mean)
             model.sampler_ = draws
             model.log_ml_ = None
+        model._fit_local_trend(None, None)  # the weight is in params; the fits are cheap
         return model
 
     def append(
@@ -589,6 +603,7 @@ class FanfoldVAR(GibbsParts, PosteriorSummaries):
             model._run_gibbs(rng, progress)
         elif self.volatility == "common":
             model._run_sv(rng, progress)
+        model._fit_local_trend(self.local_trend_weight_, rng)
         return model
 
     def on_calendar(self, new_data: pd.DataFrame | FloatArray) -> pd.DataFrame:
@@ -650,6 +665,23 @@ class FanfoldVAR(GibbsParts, PosteriorSummaries):
             return self.scenario(horizon, [], rng=rng, draws=draws, exog_future=exog_future,
                                  reject_explosive=reject_explosive).forecast
         draws = check_size(draws)
+        trend = self._pool_split(draws) if self.pools_local_trend() else 0
+        if not trend:
+            return self._var_forecast(horizon, rng, draws, exog_future, reject_explosive)
+        parts, rejected = [], None
+        if trend < draws:  # the VAR's paths first, then the local trend's
+            var = self._var_forecast(horizon, rng, draws - trend, exog_future,
+                                     reject_explosive)
+            parts.append(var.paths)
+            rejected = var.rejected_share
+        parts.append(self._censor_counts(self._local_trend_paths(rng, trend, horizon)))
+        return Forecast(np.concatenate(parts), self.series_.names,
+                        self.series_.calendar.future(horizon), rejected)
+
+    def _var_forecast(self, horizon: int, rng: np.random.Generator, draws: int,
+                      exog_future: pd.DataFrame | FloatArray | None,
+                      reject_explosive: bool) -> Forecast:
+        """The VAR's own predictive paths (the whole forecast without a local-trend pool)."""
         series, post = self.series_, self.posterior_
         exog_rows = future_exogenous_rows(series, self.deterministics_, horizon, exog_future)
         history = series.values[-self.lags_:]
@@ -675,7 +707,10 @@ class FanfoldVAR(GibbsParts, PosteriorSummaries):
         """Model-unit paths (S, h, n) in the user's units: transforms undone, and count
         series censored at zero (the model's mass below zero goes to zero demand)."""
         series = self.series_
-        user = inverse_paths(paths, series.transforms, series.levels[-1])
+        return self._censor_counts(inverse_paths(paths, series.transforms, series.levels[-1]))
+
+    def _censor_counts(self, user: FloatArray) -> FloatArray:
+        """User-unit paths (S, h, n) with count series censored at zero, in place."""
         counts = np.asarray(getattr(self, "counts_", ()), dtype=bool)
         if counts.any():
             user[:, :, counts] = np.maximum(user[:, :, counts], 0.0)

@@ -147,3 +147,14 @@ def test_states_after_the_last_row_continue_the_recursion(co2) -> None:
 def test_bad_input(y, period, message) -> None:
     with pytest.raises(SpecificationError, match=message):
         fit_local_trend(y, period)
+
+
+def test_warm_start_from_weights_at_their_bounds(co2) -> None:
+    """A warm start from a fit whose weights sit at the edge (alpha rounded to 1 or 0)
+    still fits (the logit of the start is clipped)."""
+    base = fit_local_trend(co2, 12)
+    for alpha in (1.0, 0.0):
+        edge = LocalTrendFit(alpha, 0.0, 0.0, PHI_BOUNDS[1], 12, base.level, base.trend,
+                             base.season, base.sigma, base.nobs)
+        again = fit_local_trend(co2, 12, warm=edge)
+        assert np.isfinite(again.sigma) and 0 < again.alpha < 1

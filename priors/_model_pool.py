@@ -82,7 +82,7 @@ def trend_period(calendar: Calendar, rows: int) -> int:
         period = 5 if calendar.freq == "B" else 7
     elif calendar.kind == "plain":
         period = int(calendar.period or 0)
-    return period if rows >= 2 * period + 2 + 2 else 0
+    return period if rows >= 2 * period + 2 else 0
 
 
 def _check_setting(value: object) -> None:
@@ -129,8 +129,6 @@ class LocalTrendPool:
 
     def _local_trend_weight(self, rng: np.random.Generator | None) -> float:
         """The weight check of "auto" (module notes); sets ``local_trend_check_``."""
-        from .model import FanfoldVAR  # the mixin's own class, for the inner refits
-
         rng = np.random.default_rng(CHECK_SEED) if rng is None else rng
         series, fits = self.series_, self.local_trend_fits_
         assert fits is not None
@@ -149,7 +147,7 @@ class LocalTrendPool:
             outcome = levels[cut:cut + steps]
             train = frame.iloc[:cut] if index is not None else levels[:cut]
             try:
-                var = FanfoldVAR(**params).fit(  # type: ignore[arg-type]
+                var = type(self)(**params).fit(  # type: ignore[arg-type]
                     train, names=None if index is not None else list(series.names),
                     period=series.calendar.period, warn=False)
                 trend = [fit_local_trend(levels[:cut, i], period, warm=fits[i])
